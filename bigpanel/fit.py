@@ -1,0 +1,206 @@
+"""``bigpanel.fit``: the data path from source to result.
+
+source -> spec -> pass 1 (profile) -> pass 2 (group-level statistics) ->
+alternating projections on the level tables -> pass 3 (demeaned cross-products)
+-> slopes -> pass 4 (robust meat, if asked) -> inference -> effects -> result.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Sequence
+from typing import Callable
+
+import numpy as np
+
+from .dof import count_absorbed
+from .effects import effect_tables, recover
+from .engine import Engine
+from .errors import BigPanelError
+from .inference import infer
+from .moments import create_tilde, cross_products, meat_cluster, meat_hc, store_effects
+from .project import components, solve_effects
+from .reduce import create_views, profile, put_one_row, reduce_cells
+from .results import FitResult
+from .solve import ILL_CONDITIONED, solve_slopes
+from .source import connect, open_source
+from .spec import build_spec, check_where, parse_formula
+
+FEW_CLUSTERS = 50
+
+
+def _as_list(value: str | Sequence[str] | None) -> list[str]:
+    if value is None:
+        return []
+    if isinstance(value, str):
+        return [value]
+    return list(value)
+
+
+def fit(
+    source: str,
+    formula: str | None = None,
+    *,
+    y: str | None = None,
+    x: str | Sequence[str] | None = None,
+    fe: str | Sequence[str] = (),
+    cluster: str | None = None,
+    vcov: str | None = None,
+    where: str | None = None,
+    table: str | None = None,
+    tol: float = 1e-8,
+    max_iter: int = 10_000,
+    drop_singletons: bool = True,
+    memory_limit: str | None = None,
+    temp_dir: str | None = None,
+    threads: int | None = None,
+    on_step: Callable[[str], None] | None = None,
+) -> FitResult:
+    """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
+
+    ``source`` is a Parquet file, folder or glob, a CSV file, or a DuckDB file with
+    ``table``. Either ``formula`` (``"y ~ x1 + x2"``) or ``y`` and ``x`` name the
+    variables; ``fe`` lists effect columns (``"a:b"`` for one effect per pair).
+    ``vcov`` is ``iid`` (default), ``hc1`` or ``cluster`` (CR1 on ``cluster``).
+    Rows with a missing or non-finite used value are dropped listwise; rows alone
+    in a level of any effect (singletons) are dropped unless
+    ``drop_singletons=False``. See :mod:`bigpanel.inference` and
+    :mod:`bigpanel.dof` for the variance formulas and degrees of freedom.
+    """
+    started = time.perf_counter()
+    if formula is not None:
+        if y is not None or x is not None:
+            raise BigPanelError("give either a formula or --y/--x, not both")
+        y, xs = parse_formula(formula)
+    else:
+        xs = _as_list(x)
+    if not y:
+        raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
+    if tol <= 0 or not np.isfinite(tol):
+        raise BigPanelError(f"--tol must be a positive number, not {tol}")
+    con = connect(memory_limit, temp_dir, threads)
+    try:
+        src = open_source(con, source, table)
+        spec = build_spec(src, y, xs, _as_list(fe), cluster, vcov, where)
+        if spec.where:
+            check_where(con, spec.where)
+        eng = Engine(con, on_step=on_step)
+        create_views(eng, spec)
+        prof = profile(eng, spec)
+        put_one_row(eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(prof.means)})
+        red = reduce_cells(eng, spec, drop_singletons, prof.n_complete)
+        if on_step:
+            on_step("alternating projections on the level tables")
+        t0 = time.perf_counter()
+        proj = solve_effects(red, prof.sds, tol=tol, max_iter=max_iter)
+        eng.timings["projections (numpy)"] = time.perf_counter() - t0
+        n_comp, labels = components(red) if len(spec.fe) >= 2 else (None, None)
+        absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
+        store_effects(eng, spec, proj.alpha)
+        create_tilde(eng, spec)
+        n, q, _, st, tt = cross_products(eng, len(spec.value_aliases))
+        slopes = solve_slopes(q, n, st, tt)
+        names_all = [spec.y, *spec.x]
+        if not slopes.keep:
+            raise BigPanelError(
+                "every regressor is absorbed by the fixed effects or collinear: "
+                + ", ".join(names_all[j] for j, _ in slopes.dropped)
+            )
+        meat, n_clusters = None, None
+        if spec.vcov == "hc1":
+            meat = meat_hc(eng, slopes.keep, slopes.beta)
+        elif spec.vcov == "cluster":
+            n_clusters, meat = meat_cluster(eng, slopes.keep, slopes.beta)
+        inf = infer(
+            slopes.beta,
+            slopes.bread,
+            slopes.rss,
+            n,
+            absorbed.total,
+            spec.vcov,
+            meat=meat,
+            n_clusters=n_clusters,
+            absorbed_cluster=absorbed.cluster_total,
+        )
+        fx = recover(proj, red.counts, slopes.keep, slopes.beta, prof.means, labels)
+        effects = effect_tables(eng, spec, fx, red.counts)
+    finally:
+        con.close()
+
+    tss = float(tt[0] - st[0] ** 2 / n)
+    warnings: list[str] = []
+    if not proj.converged:
+        warnings.append(
+            f"NOT CONVERGED: the projections stopped after {proj.iterations} iterations with change "
+            f"{proj.change:.2e} > tol {tol:.0e}; the estimates are not reliable (raise --max-iter)"
+        )
+    if slopes.condition > ILL_CONDITIONED:
+        warnings.append(
+            f"the demeaned regressors are nearly collinear (condition number {slopes.condition:.2e}); "
+            "estimates may be imprecise"
+        )
+    if n_clusters is not None and n_clusters < FEW_CLUSTERS:
+        warnings.append(f"only {n_clusters} clusters: cluster-robust errors can be unreliable with few clusters")
+    fe_info = [
+        {
+            "name": name,
+            "columns": list(cols),
+            "levels": int(len(red.counts[d])),
+            "parameters": int(absorbed.per_effect[d] + (1 if d == 0 else 0)),
+            "nested_in_cluster": bool(red.nested[d]) if spec.cluster else None,
+        }
+        for d, (name, cols) in enumerate(zip(spec.fe_names, spec.fe))
+    ]
+    return FitResult(
+        outcome=spec.y,
+        names=[names_all[j] for j in slopes.keep],
+        coef=slopes.beta,
+        std_error=inf.std_error,
+        vcov=inf.vcov,
+        t=inf.t,
+        p=inf.p,
+        ci_low=inf.ci_low,
+        ci_high=inf.ci_high,
+        vcov_type=spec.vcov,
+        cluster=spec.cluster,
+        n_clusters=n_clusters,
+        df=inf.df,
+        small_sample=inf.small_sample,
+        nobs=n,
+        fe=fe_info,
+        absorbed=absorbed.total,
+        components=n_comp,
+        r2_within=1.0 - slopes.rss / q[0, 0] if q[0, 0] > 0 else float("nan"),
+        r2_overall=1.0 - slopes.rss / tss if tss > 0 else float("nan"),
+        rss=slopes.rss,
+        sigma=inf.sigma,
+        df_resid=int(n - len(slopes.keep) - absorbed.total),
+        f_stat=inf.f_stat,
+        f_df=inf.f_df,
+        f_p=inf.f_p,
+        rows={
+            "source": prof.n_source if prof.n_source is not None else prof.n_filtered,
+            "after_filter": prof.n_filtered,
+            "incomplete": {k: v for k, v in prof.incomplete.items() if v},
+            "dropped_incomplete": prof.n_filtered - prof.n_complete,
+            "dropped_singletons": red.singletons,
+            "used": n,
+        },
+        dropped=[{"name": names_all[j], "reason": why} for j, why in slopes.dropped],
+        solver={
+            "path": "group-level statistics" if len(spec.fe) > 1 else "exact one-way demeaning",
+            "iterations": proj.iterations,
+            "change": proj.change,
+            "tol": tol,
+            "converged": proj.converged,
+            "condition_number": slopes.condition,
+            "raw_passes": eng.raw_passes,
+            "singleton_rounds": red.rounds,
+            "seconds": round(time.perf_counter() - started, 4),
+        },
+        effects=effects,
+        source=str(source),
+        where=spec.where,
+        warnings=warnings,
+        timings=dict(eng.timings),
+    )

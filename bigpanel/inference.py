@@ -1,0 +1,104 @@
+"""Variance estimators, degrees of freedom and tests for the within slopes.
+
+With N rows, K kept slopes and P absorbed effect parameters (see
+:mod:`bigpanel.dof`), and bread B = (X~'X~)^-1:
+
+* ``iid``: V = s^2 B, s^2 = RSS / (N - K - P); t tests on N - K - P df.
+* ``hc1``: V = N / (N - K - P) * B (sum_i u_i^2 x~_i x~_i') B; t on N - K - P df.
+* ``cluster`` (CR1): V = G/(G - 1) * (N - 1)/(N - K - P_c) * B (sum_c g_c g_c') B,
+  g_c = sum_{i in c} u_i x~_i, G clusters; P_c counts the absorbed parameters of
+  effects not nested in the cluster, plus one for the intercept when some are
+  nested; t tests on G - 1 df.
+
+The F statistic tests that all slopes are zero: (b' V^-1 b) / K on (K, df).
+For ``iid`` this equals the classical ((TSS_within - RSS) / K) / s^2.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg, stats
+
+from .errors import BigPanelError
+
+
+@dataclass(frozen=True)
+class Inference:
+    """Variance matrix and the tests that follow from it."""
+
+    vcov: np.ndarray
+    std_error: np.ndarray
+    t: np.ndarray
+    p: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    df: float
+    f_stat: float
+    f_df: tuple[float, float]
+    f_p: float
+    sigma: float
+    small_sample: float
+
+
+def infer(
+    beta: np.ndarray,
+    bread: np.ndarray,
+    rss: float,
+    n: int,
+    absorbed: int,
+    vcov: str,
+    meat: np.ndarray | None = None,
+    n_clusters: int | None = None,
+    absorbed_cluster: int | None = None,
+    level: float = 0.95,
+) -> Inference:
+    """Standard errors, t and p values, intervals and the F test; see the module docstring."""
+    k = len(beta)
+    df_resid = n - k - absorbed
+    if df_resid <= 0:
+        raise BigPanelError(
+            f"no residual degrees of freedom: {n} rows, {k} slopes and {absorbed} absorbed effect parameters"
+        )
+    sigma2 = rss / df_resid
+    if vcov == "iid":
+        factor = sigma2
+        v = sigma2 * bread
+        df = float(df_resid)
+    elif vcov == "hc1":
+        factor = n / df_resid
+        v = factor * bread @ meat @ bread
+        df = float(df_resid)
+    else:
+        g = int(n_clusters)
+        if g < 2:
+            raise BigPanelError("the cluster column takes a single value: cluster-robust errors need two or more")
+        factor = (g / (g - 1)) * ((n - 1) / (n - k - absorbed_cluster))
+        v = factor * bread @ meat @ bread
+        df = float(g - 1)
+    v = (v + v.T) / 2.0
+    se = np.sqrt(np.maximum(np.diag(v), 0.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = beta / se
+    p = 2.0 * stats.t.sf(np.abs(t), df)
+    crit = stats.t.ppf(0.5 + level / 2.0, df)
+    if k:
+        wald = float(beta @ linalg.pinvh(v) @ beta) / k
+        f_p = float(stats.f.sf(wald, k, df))
+    else:
+        wald, f_p = float("nan"), float("nan")
+    return Inference(
+        vcov=v,
+        std_error=se,
+        t=t,
+        p=p,
+        ci_low=beta - crit * se,
+        ci_high=beta + crit * se,
+        df=df,
+        f_stat=wald,
+        f_df=(float(k), df),
+        f_p=f_p,
+        sigma=float(np.sqrt(sigma2)),
+        small_sample=float(factor if vcov != "iid" else 1.0),
+    )

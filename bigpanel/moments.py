@@ -1,0 +1,99 @@
+"""The final passes: demeaned cross-products and robust score sums, row by row.
+
+The solved effects are joined back to the rows, so every demeaned value
+x~ = (x - shift) - sum_d a_d[level] is formed per row and products are summed
+afterwards; no moment is ever formed as sum(x y) - sum(x) sum(y) / n.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pyarrow as pa
+
+from .engine import Engine
+from .reduce import put_one_row
+from .spec import Spec
+from .sqltext import join, render
+
+
+def store_effects(eng: Engine, spec: Spec, alpha: list[np.ndarray]) -> None:
+    """Write each dimension's solved effects as ``bp_alpha_d`` (level keys + a0..aK)."""
+    for d, a in enumerate(alpha):
+        keys = eng.arrow("level keys", render("level_table", columns=join(spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}"))
+        for j in range(a.shape[1]):
+            keys = keys.append_column(f"a{j}", pa.array(a[:, j], type=pa.float64()))
+        eng.put_table(f"bp_alpha_{d + 1}", keys)
+
+
+def create_tilde(eng: Engine, spec: Spec) -> None:
+    """The view ``bp_tilde`` of demeaned (e_j) and shifted (t_j) columns."""
+    k = len(spec.fe)
+    cols = []
+    for j, v in enumerate(spec.value_aliases):
+        effects = " - ".join(f"a{d + 1}.a{j}" for d in range(k))
+        cols.append(f"{v} - s.m{j} - {effects} AS e{j}")
+        cols.append(f"{v} - s.m{j} AS t{j}")
+    if spec.cluster:
+        cols.append("cl")
+    joins = "\n".join(
+        f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
+    )
+    eng.execute("demeaned view", render("tilde", columns=join(cols), joins=joins))
+
+
+def cross_products(eng: Engine, m: int) -> tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Pass 3: N, E'E (demeaned), sums of e, sums and squares of the shifted t.
+
+    Column 0 is the outcome, 1..K the regressors.
+    """
+    sums = [f"sum(e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
+    sums += [f"sum(e{i}) AS se_{i}" for i in range(m)]
+    sums += [f"sum(t{i}) AS st_{i}" for i in range(m)]
+    sums += [f"sum(t{i} * t{i}) AS tt_{i}" for i in range(m)]
+    row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
+    q = np.zeros((m, m))
+    for i in range(m):
+        for j in range(i, m):
+            q[i, j] = q[j, i] = row[f"q_{i}_{j}"]
+    se = np.array([row[f"se_{i}"] for i in range(m)], dtype=float)
+    st = np.array([row[f"st_{i}"] for i in range(m)], dtype=float)
+    tt = np.array([row[f"tt_{i}"] for i in range(m)], dtype=float)
+    return int(row["n"]), q, se, st, tt
+
+
+def _resid_parts(keep: list[int], beta: np.ndarray) -> tuple[str, str]:
+    fit = " + ".join(f"b.b{j} * e{j}" for j in keep)
+    return f"e0 - ({fit})", ", ".join(f"e{j}" for j in keep)
+
+
+def _store_coef(eng: Engine, keep: list[int], beta: np.ndarray) -> None:
+    put_one_row(eng, "bp_coef", {f"b{j}": float(b) for j, b in zip(keep, beta)})
+
+
+def meat_hc(eng: Engine, keep: list[int], beta: np.ndarray) -> np.ndarray:
+    """Pass 4 (HC1): sum_i u_i^2 x~_i x~_i' over the kept regressors."""
+    _store_coef(eng, keep, beta)
+    resid, carry = _resid_parts(keep, beta)
+    sums = [f"sum(u * u * e{i} * e{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
+    row = eng.one("pass 4: robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
+    return _square(row, keep)
+
+
+def meat_cluster(eng: Engine, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
+    """Pass 4 (cluster): sum over clusters of g_c g_c', g_c = sum_{i in c} u_i x~_i."""
+    _store_coef(eng, keep, beta)
+    resid, carry = _resid_parts(keep, beta)
+    scores = join(["cl"] + [f"sum(u * e{j}) AS g{j}" for j in keep])
+    sums = [f"sum(g{i} * g{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
+    sql = render("meat_cluster", sums=join(sums), scores=scores, resid=resid, carry=carry)
+    row = eng.one("pass 4: cluster scores", sql, raw=True)
+    return int(row["n_clusters"]), _square(row, keep)
+
+
+def _square(row: dict, keep: list[int]) -> np.ndarray:
+    k = len(keep)
+    out = np.zeros((k, k))
+    for a in range(k):
+        for c in range(a, k):
+            out[a, c] = out[c, a] = row[f"h_{keep[a]}_{keep[c]}"]
+    return out

@@ -1,0 +1,232 @@
+"""Passes over the raw rows that reduce the panel to group-level statistics.
+
+Pass 1 (:func:`profile`) counts what the filter and the listwise deletion
+remove and takes each value column's mean as its shift. Pass 2
+(:func:`reduce_cells`) groups the sample once by every effect (one effect) or
+every pair of effects (two or more) and keeps, per cell, the row count and the
+sums of the shifted values. Dropping singletons repeats pass 2 only while a
+level is left with one row.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from itertools import combinations
+
+import numpy as np
+import pyarrow.compute as pc
+from scipy import sparse
+
+from .engine import Engine
+from .errors import BigPanelError
+from .spec import Spec
+from .sqltext import ident, join, render
+
+MAX_SINGLETON_ROUNDS = 200
+
+
+@dataclass(frozen=True)
+class Profile:
+    """What pass 1 found: row counts, incomplete rows per column, shifts."""
+
+    n_source: int | None
+    n_filtered: int
+    n_complete: int
+    incomplete: dict[str, int]
+    means: np.ndarray
+    sds: np.ndarray
+
+
+@dataclass(frozen=True)
+class Reduction:
+    """Group-level statistics of the estimation sample.
+
+    ``counts[d]`` holds the rows per level of effect d, ``rhs[d]`` the sums of
+    each shifted value column per level (levels x columns) and ``cross[(d, e)]``
+    the sparse table of rows per pair of levels of effects d < e.
+    """
+
+    counts: list[np.ndarray]
+    rhs: list[np.ndarray]
+    cross: dict[tuple[int, int], sparse.csr_matrix]
+    nested: list[bool]
+    n_obs: int
+    singletons: int
+    rounds: int
+
+
+def _complete(spec: Spec) -> str:
+    parts = [f"isfinite({v})" for v in spec.value_aliases]
+    for d in range(len(spec.fe)):
+        parts += [f"{k} IS NOT NULL" for k in spec.key_aliases(d)]
+    if spec.cluster:
+        parts.append("cl IS NOT NULL")
+    return " AND ".join(parts)
+
+
+def create_views(eng: Engine, spec: Spec) -> None:
+    """The views ``bp_filtered`` (used columns, internal names) and ``bp_sample``."""
+    columns = [f"CAST({ident(spec.y)} AS DOUBLE) AS v0"]
+    columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
+    for d, cols in enumerate(spec.fe):
+        columns += [f"{ident(c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
+    if spec.cluster:
+        columns.append(f"{ident(spec.cluster)} AS cl")
+    where = f"({spec.where})" if spec.where else "TRUE"
+    eng.execute("filter view", render("filtered", columns=join(columns), where=where))
+    eng.execute("sample view", render("sample", complete=_complete(spec)))
+
+
+def profile(eng: Engine, spec: Spec) -> Profile:
+    """Pass 1: counts of filtered, complete and incomplete rows; means and spreads."""
+    complete = _complete(spec)
+    aggs: list[str] = []
+    checks: list[tuple[str, str]] = []
+    for j, name in enumerate([spec.y, *spec.x]):
+        aggs.append(f"count(*) FILTER (WHERE NOT coalesce(isfinite(v{j}), FALSE)) AS bad_v{j}")
+        checks.append((name, f"bad_v{j}"))
+    for d, cols in enumerate(spec.fe):
+        for name, alias in zip(cols, spec.key_aliases(d)):
+            aggs.append(f"count(*) FILTER (WHERE {alias} IS NULL) AS bad_{alias}")
+            checks.append((name, f"bad_{alias}"))
+    if spec.cluster:
+        aggs.append("count(*) FILTER (WHERE cl IS NULL) AS bad_cl")
+        checks.append((spec.cluster, "bad_cl"))
+    for v in spec.value_aliases:
+        aggs.append(f"avg({v}) FILTER (WHERE {complete}) AS mean_{v}")
+        aggs.append(f"stddev_pop({v}) FILTER (WHERE {complete}) AS sd_{v}")
+    row = eng.one("pass 1: profile", render("profile", complete=complete, aggregates=join(aggs)), raw=True)
+    n_source = None
+    if spec.where:
+        n_source = int(eng.one("count source", render("count_source"))["n"])
+    incomplete: dict[str, int] = {}
+    for name, key in checks:
+        incomplete[name] = max(incomplete.get(name, 0), int(row[key]))
+    if row["n_filtered"] == 0:
+        raise BigPanelError(
+            "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
+        )
+    if row["n_complete"] == 0:
+        worst = max(incomplete, key=lambda c: incomplete[c])
+        raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {incomplete[worst]} rows")
+    means = np.array([row[f"mean_{v}"] for v in spec.value_aliases], dtype=float)
+    sds = np.array([row[f"sd_{v}"] for v in spec.value_aliases], dtype=float)
+    return Profile(n_source, int(row["n_filtered"]), int(row["n_complete"]), incomplete, means, sds)
+
+
+def put_one_row(eng: Engine, table: str, values: dict[str, float]) -> None:
+    """Store numbers as the one-row table ``table`` through bound parameters."""
+    cols = join([f"CAST(${name} AS DOUBLE) AS {name}" for name in values])
+    eng.execute(f"store {table}", render("one_row", table=table, columns=cols), values)
+
+
+def _sets(spec: Spec) -> list[tuple[int, ...]]:
+    k = len(spec.fe)
+    return [(0,)] if k == 1 else list(combinations(range(k), 2))
+
+
+def _gid(spec: Spec, dims: tuple[int, ...]) -> int:
+    all_keys = [a for d in range(len(spec.fe)) for a in spec.key_aliases(d)]
+    inside = {a for d in dims for a in spec.key_aliases(d)}
+    width = len(all_keys)
+    return sum(1 << (width - 1 - i) for i, a in enumerate(all_keys) if a not in inside)
+
+
+def _home_set(spec: Spec, d: int) -> tuple[int, ...]:
+    """The first grouping set that holds effect ``d``: its levels are read from there."""
+    return next(s for s in _sets(spec) if d in s)
+
+
+def _build_levels(eng: Engine, spec: Spec, min_count: int) -> None:
+    for d in range(len(spec.fe)):
+        keys = join(spec.key_aliases(d), ", ")
+        sql = render("levels", table=f"bp_lev_{d + 1}", keys=keys)
+        eng.execute(f"levels of {spec.fe_names[d]}", sql, {"gid": _gid(spec, _home_set(spec, d)), "min_count": min_count})
+
+
+def _single_levels(eng: Engine, spec: Spec) -> int:
+    return sum(
+        int(eng.one("singletons", render("singleton_levels", table=f"bp_lev_{d + 1}"))["n_single"])
+        for d in range(len(spec.fe))
+    )
+
+
+def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, n_complete: int) -> Reduction:
+    """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays."""
+    k = len(spec.fe)
+    all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
+    sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
+    if spec.cluster:
+        sums += ["min(cl) AS cl_min", "max(cl) AS cl_max"]
+    else:
+        sums += ["CAST(NULL AS INTEGER) AS cl_min", "CAST(NULL AS INTEGER) AS cl_max"]
+    sets = join(["(" + ", ".join(a for d in s for a in spec.key_aliases(d)) + ")" for s in _sets(spec)], ", ")
+    filters = ""
+    rounds = 0
+    while True:
+        rounds += 1
+        sql = render("cells", keys=all_keys, sums=join(sums), filters=filters, sets=sets)
+        eng.execute(f"pass 2: group-level statistics (round {rounds})", sql, raw=True)
+        _build_levels(eng, spec, min_count=1)
+        if not drop_singletons or _single_levels(eng, spec) == 0:
+            break
+        _build_levels(eng, spec, min_count=2)
+        if k == 1:
+            break  # one effect: dropping a singleton level changes no other level
+        if rounds >= MAX_SINGLETON_ROUNDS:
+            raise BigPanelError(f"singletons still left after {rounds} rounds; rerun with --keep-singletons")
+        filters = "".join(
+            f"\nJOIN bp_lev_{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
+        )
+    return _fetch(eng, spec, n_complete, rounds)
+
+
+def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, bool]:
+    tab = eng.arrow("level counts", render("level_table", columns="n, nested", table=f"bp_lev_{d + 1}"))
+    counts = tab.column("n").to_numpy().astype(float)
+    nested = bool(spec.cluster) and bool(pc.all(tab.column("nested")).as_py())
+    return counts, nested
+
+
+def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
+    k = len(spec.fe)
+    m = len(spec.value_aliases)
+    counts, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
+    for d in range(k):
+        if len(counts[d]) == 0:
+            raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
+    rhs: list[np.ndarray | None] = [None] * k
+    cross: dict[tuple[int, int], sparse.csr_matrix] = {}
+    for dims in _sets(spec):
+        codes = join([f"l{d + 1}.code AS c{d + 1}" for d in dims], ", ")
+        joins = "\n".join(
+            f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in dims
+        )
+        sql = render(
+            "cell_stats",
+            codes=codes,
+            sums=join([f"c.s{j}" for j in range(m)], ", "),
+            joins=joins,
+            order=join([f"c{d + 1}" for d in dims], ", "),
+        )
+        tab = eng.arrow("fetch cells", sql, {"gid": _gid(spec, dims)})
+        code = {d: tab.column(f"c{d + 1}").to_numpy() for d in dims}
+        n = tab.column("n").to_numpy().astype(float)
+        s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
+        for d in dims:
+            if rhs[d] is None:
+                g = len(counts[d])
+                rhs[d] = np.column_stack([np.bincount(code[d], weights=s[:, j], minlength=g) for j in range(m)])
+        if len(dims) == 2:
+            d, e = dims
+            cross[dims] = sparse.csr_matrix((n, (code[d], code[e])), shape=(len(counts[d]), len(counts[e])))
+    n_obs = int(counts[0].sum())
+    return Reduction(
+        counts=list(counts),
+        rhs=[r for r in rhs if r is not None],
+        cross=cross,
+        nested=list(nested),
+        n_obs=n_obs,
+        singletons=n_complete - n_obs,
+        rounds=rounds,
+    )

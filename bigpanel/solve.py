@@ -1,0 +1,66 @@
+"""Solve the K x K within normal equations, dropping what the effects absorb.
+
+A regressor is *absorbed* (constant within every level, such as a time-invariant
+unit trait under unit effects) when its demeaned sum of squares is below 1e-10
+of its total sum of squares around the mean. A regressor is *collinear* when,
+in the order given, it is explained by the regressors already kept up to a
+residual share below 1e-10 of its demeaned sum of squares. The slopes solve
+(X~'X~) b = X~'y~ on the kept columns, scaled to unit diagonal, by an SVD-based
+least-squares solver; the condition number reported is that of the scaled X~.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import linalg
+
+ABSORBED_SHARE = 1e-10
+COLLINEAR_SHARE = 1e-10
+ILL_CONDITIONED = 1e7
+
+
+@dataclass(frozen=True)
+class Slopes:
+    """Kept regressors (indices 1..K into the value columns), slopes and bread."""
+
+    keep: list[int]
+    dropped: list[tuple[int, str]]
+    beta: np.ndarray
+    bread: np.ndarray  # (X~'X~)^-1 over the kept columns
+    rss: float
+    condition: float
+
+
+def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slopes:
+    """Slopes of column 0 of ``q`` on the others; see the module docstring for the rules."""
+    m = q.shape[0]
+    total = np.maximum(tt - st**2 / n, 0.0)
+    dropped: list[tuple[int, str]] = []
+    keep: list[int] = []
+    for j in range(1, m):
+        within = q[j, j]
+        if total[j] <= 0 or within <= ABSORBED_SHARE * total[j]:
+            dropped.append((j, "absorbed by the fixed effects (no variation within levels)"))
+            continue
+        if keep:
+            s = np.sqrt(np.diag(q)[keep])
+            qss = q[np.ix_(keep, keep)] / np.outer(s, s)
+            qsj = q[keep, j] / (s * np.sqrt(within))
+            coef = linalg.lstsq(qss, qsj, cond=None)[0]
+            if 1.0 - qsj @ coef < COLLINEAR_SHARE:
+                dropped.append((j, "collinear with the other regressors"))
+                continue
+        keep.append(j)
+    if not keep:
+        return Slopes(keep, dropped, np.zeros(0), np.zeros((0, 0)), float(q[0, 0]), float("nan"))
+    s = np.sqrt(np.diag(q)[keep])
+    scaled = q[np.ix_(keep, keep)] / np.outer(s, s)
+    beta = linalg.lstsq(scaled, q[keep, 0] / s, cond=None)[0] / s
+    bread = linalg.pinvh(scaled) / np.outer(s, s)
+    qk = q[np.ix_(keep, keep)]
+    rss = float(q[0, 0] - 2.0 * beta @ q[keep, 0] + beta @ qk @ beta)
+    eig = np.linalg.eigvalsh(scaled)
+    condition = float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else float("inf")
+    return Slopes(keep, dropped, beta, bread, max(rss, 0.0), condition)

@@ -1,0 +1,123 @@
+"""Open a panel where it lies: Parquet files or globs, CSV files, DuckDB tables.
+
+Nothing is copied: the source becomes the temporary view ``bp_source`` over the
+files, and every later pass reads through it.
+"""
+
+from __future__ import annotations
+
+import glob as globlib
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import duckdb
+
+from .errors import BigPanelError
+from .sqltext import ident, literal, render
+
+_PARQUET = (".parquet", ".parq", ".pq")
+_CSV = (".csv", ".tsv", ".csv.gz", ".tsv.gz", ".txt")
+_DATABASE = (".duckdb", ".ddb", ".db")
+
+
+@dataclass(frozen=True)
+class Source:
+    """Where the panel lives and what it holds."""
+
+    location: str
+    kind: str  # "parquet", "csv" or "table"
+    table: str | None
+    columns: dict[str, str]  # column name -> DuckDB type, in source order
+
+
+def connect(
+    memory_limit: str | None = None, temp_dir: str | None = None, threads: int | None = None
+) -> duckdb.DuckDBPyConnection:
+    """An in-process DuckDB connection with the user's memory, spill and thread settings."""
+    config: dict[str, str | int] = {}
+    if memory_limit:
+        config["memory_limit"] = memory_limit
+    if temp_dir:
+        Path(temp_dir).mkdir(parents=True, exist_ok=True)
+        config["temp_directory"] = temp_dir
+    if threads:
+        config["threads"] = int(threads)
+    try:
+        return duckdb.connect(":memory:", config=config)
+    except duckdb.Error as exc:
+        raise BigPanelError(f"bad engine setting ({_first_line(exc)})") from None
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
+
+
+def _kind_of(location: str, table: str | None) -> str:
+    low = location.lower()
+    if table is not None:
+        return "table"
+    if low.endswith(_PARQUET) or os.path.isdir(location):
+        return "parquet"
+    if low.endswith(_CSV):
+        return "csv"
+    if low.endswith(_DATABASE):
+        raise BigPanelError(f"{location} is a database file: name the table with --table")
+    raise BigPanelError(
+        f"cannot tell the format of {location}: use a .parquet, .csv or database file (with --table)"
+    )
+
+
+def _parquet_files(location: str) -> list[str]:
+    if os.path.isdir(location):
+        pattern = os.path.join(location, "**", "*.parquet")
+        files = sorted(globlib.glob(pattern, recursive=True))
+        if not files:
+            raise BigPanelError(f"folder {location} holds no .parquet files")
+        return files
+    if globlib.has_magic(location):
+        files = sorted(globlib.glob(location, recursive=True))
+        if not files:
+            raise BigPanelError(f"no file matches {location}")
+        return files
+    if not os.path.exists(location):
+        raise BigPanelError(f"file not found: {location}")
+    return [location]
+
+
+def open_source(
+    con: duckdb.DuckDBPyConnection, location: str, table: str | None = None
+) -> Source:
+    """Create the view ``bp_source`` over ``location`` and read its schema."""
+    location = str(location)
+    kind = _kind_of(location, table)
+    try:
+        if kind == "parquet":
+            files = _parquet_files(location)
+            paths = "[" + ", ".join(literal(f) for f in files) + "]"
+            con.execute(render("source_parquet", paths=paths))
+        elif kind == "csv":
+            if not os.path.exists(location):
+                raise BigPanelError(f"file not found: {location}")
+            con.execute(render("source_csv", path=literal(location)))
+        else:
+            if not os.path.exists(location):
+                raise BigPanelError(f"database file not found: {location}")
+            con.execute(render("attach_database", path=literal(location)))
+            names = [r[0] for r in con.execute(render("list_tables")).fetchall()]
+            if table not in names:
+                raise BigPanelError(
+                    f"table {table!r} not found in {location}"
+                    + (f" (tables: {', '.join(sorted(names))})" if names else " (it holds no tables)")
+                )
+            con.execute(render("source_table", table=ident(str(table))))
+        described = con.execute(render("describe_source")).fetchall()
+    except BigPanelError:
+        raise
+    except duckdb.Error as exc:
+        raise BigPanelError(f"cannot read {location}: {_first_line(exc)}") from None
+    columns = {row[0]: row[1] for row in described}
+    if not columns:
+        raise BigPanelError(f"{location} has no columns")
+    return Source(location=location, kind=kind, table=table, columns=columns)

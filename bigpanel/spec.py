@@ -1,0 +1,154 @@
+"""The model a user asks for, checked against the source's columns.
+
+A spec maps every user column to a short internal name so that only one SQL
+statement (the ``bp_filtered`` view) ever mentions user identifiers, quoted:
+the outcome is ``v0``, regressor j is ``vj``, column j of effect d is ``fd_j``
+and the cluster column is ``cl``.
+"""
+
+from __future__ import annotations
+
+import difflib
+import re
+from dataclasses import dataclass
+
+import duckdb
+
+from .errors import BigPanelError
+from .source import Source
+
+VCOV_TYPES = ("iid", "hc1", "cluster")
+_NUMERIC = re.compile(
+    r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
+    r"|FLOAT|DOUBLE|REAL|DECIMAL.*|BOOLEAN)$"
+)
+
+
+@dataclass(frozen=True)
+class Spec:
+    """A checked model: ``y`` on ``x`` absorbing the effects ``fe``.
+
+    ``fe`` holds one tuple of columns per effect; a tuple of two or more columns
+    is an interaction with one level per distinct combination.
+    """
+
+    y: str
+    x: tuple[str, ...]
+    fe: tuple[tuple[str, ...], ...]
+    cluster: str | None
+    vcov: str
+    where: str | None
+
+    @property
+    def fe_names(self) -> list[str]:
+        """Display names of the effects, ``a:b`` for interactions."""
+        return [":".join(cols) for cols in self.fe]
+
+    def key_aliases(self, d: int) -> list[str]:
+        """Internal names of the columns of effect ``d`` (0-based)."""
+        return [f"f{d + 1}_{j + 1}" for j in range(len(self.fe[d]))]
+
+    @property
+    def value_aliases(self) -> list[str]:
+        """Internal names of the outcome and the regressors: ``v0`` then ``v1..vK``."""
+        return [f"v{j}" for j in range(len(self.x) + 1)]
+
+
+def parse_formula(formula: str) -> tuple[str, list[str]]:
+    """Split ``y ~ x1 + x2`` into the outcome and the regressors."""
+    if formula.count("~") != 1:
+        raise BigPanelError(f"formula {formula!r} needs exactly one '~' (as in 'y ~ x1 + x2')")
+    lhs, rhs = (part.strip() for part in formula.split("~"))
+    terms = [t.strip() for t in rhs.split("+")]
+    if not lhs or not terms or any(not t for t in terms):
+        raise BigPanelError(f"formula {formula!r} is incomplete (write it as 'y ~ x1 + x2')")
+    for term in terms:
+        if term in ("0", "1", "-1"):
+            raise BigPanelError(
+                f"formula term {term!r}: the intercept is absorbed by the fixed effects; leave it out"
+            )
+    return lhs, terms
+
+
+def _check_column(name: str, source: Source, role: str) -> None:
+    if name in source.columns:
+        return
+    close = difflib.get_close_matches(name, list(source.columns), n=1, cutoff=0.6)
+    hint = f"; did you mean {close[0]!r}?" if close else ""
+    raise BigPanelError(f"{role} column {name!r} not found in {source.location}{hint}")
+
+
+def _split_effect(term: str, source: Source) -> tuple[str, ...]:
+    if term in source.columns:
+        return (term,)
+    return tuple(part.strip() for part in term.split(":"))
+
+
+def build_spec(
+    source: Source,
+    y: str,
+    x: list[str],
+    fe: list[str],
+    cluster: str | None = None,
+    vcov: str | None = None,
+    where: str | None = None,
+) -> Spec:
+    """Check names, types and options; return the spec or raise a one-line error."""
+    if not x:
+        raise BigPanelError("no regressors: give at least one --x (or a formula 'y ~ x1 + ...')")
+    if not fe:
+        raise BigPanelError("no fixed effect: give at least one --fe column")
+    if len(set(x)) != len(x):
+        dup = next(v for v in x if x.count(v) > 1)
+        raise BigPanelError(f"regressor {dup!r} is listed twice")
+    if y in x:
+        raise BigPanelError(f"column {y!r} is both the outcome and a regressor")
+    _check_column(y, source, "outcome")
+    for name in x:
+        _check_column(name, source, "regressor")
+    for name in [y, *x]:
+        kind = source.columns[name]
+        if not _NUMERIC.match(kind):
+            raise BigPanelError(
+                f"column {name!r} has type {kind}, not a number: it cannot be the outcome or a regressor"
+            )
+    effects = tuple(_split_effect(term, source) for term in fe)
+    for cols in effects:
+        for name in cols:
+            _check_column(name, source, "fixed-effect")
+    if len(set(effects)) != len(effects):
+        raise BigPanelError("the same fixed effect is listed twice")
+    if vcov is None:
+        vcov = "cluster" if cluster else "iid"
+    vcov = vcov.lower()
+    if vcov not in VCOV_TYPES:
+        raise BigPanelError(f"unknown variance type {vcov!r}: choose one of {', '.join(VCOV_TYPES)}")
+    if vcov == "cluster" and not cluster:
+        raise BigPanelError("--vcov cluster needs a --cluster column")
+    if cluster and vcov != "cluster":
+        raise BigPanelError(f"--cluster {cluster} conflicts with --vcov {vcov}: drop one of them")
+    if cluster:
+        _check_column(cluster, source, "cluster")
+    if where is not None and not where.strip():
+        where = None
+    return Spec(y=y, x=tuple(x), fe=effects, cluster=cluster, vcov=vcov, where=where)
+
+
+def check_where(con: duckdb.DuckDBPyConnection, where: str) -> None:
+    """Accept ``where`` only as one boolean expression over the source's columns."""
+    probe = f"SELECT count(*) FROM (SELECT * FROM bp_source LIMIT 0) AS s WHERE ({where})"
+    try:
+        statements = con.extract_statements(probe)
+    except duckdb.Error as exc:
+        raise BigPanelError(f"--where {where!r} is not a valid expression: {_first(exc)}") from None
+    if len(statements) != 1:
+        raise BigPanelError(f"--where {where!r} must be a single expression, not several statements")
+    try:
+        con.execute(probe)
+    except duckdb.Error as exc:
+        raise BigPanelError(f"--where {where!r} is not a valid filter: {_first(exc)}") from None
+
+
+def _first(exc: BaseException) -> str:
+    lines = str(exc).strip().splitlines()
+    return lines[0] if lines else type(exc).__name__

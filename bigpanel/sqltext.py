@@ -1,0 +1,53 @@
+"""SQL templates under ``sql/`` and the quoting rules for filling them.
+
+Templates hold ``{{name}}`` slots. A slot is filled only with SQL fragments that
+this package generates from quoted identifiers (:func:`ident`) or quoted string
+literals (:func:`literal`); run-time numbers travel as bound ``$name`` parameters
+or as rows of small helper tables, never as pasted text.
+"""
+
+from __future__ import annotations
+
+import re
+from functools import lru_cache
+from pathlib import Path
+
+_SLOT = re.compile(r"\{\{(\w+)\}\}")
+
+
+def _sql_dir() -> Path:
+    here = Path(__file__).resolve().parent
+    for candidate in (here / "sql", here.parent / "sql"):
+        if candidate.is_dir():
+            return candidate
+    raise RuntimeError("bigpanel: SQL templates not found next to the package")
+
+
+@lru_cache(maxsize=None)
+def template(name: str) -> str:
+    """Return the text of ``sql/<name>.sql``."""
+    return (_sql_dir() / f"{name}.sql").read_text()
+
+
+def render(name: str, **slots: str) -> str:
+    """Fill every ``{{slot}}`` of template ``name``; unknown or missing slots are an error."""
+    text = template(name)
+    wanted = set(_SLOT.findall(text))
+    if wanted != set(slots):
+        raise KeyError(f"template {name}: slots {sorted(wanted)} but got {sorted(slots)}")
+    return _SLOT.sub(lambda m: slots[m.group(1)], text)
+
+
+def ident(name: str) -> str:
+    """Quote an identifier, doubling any double quote inside it."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def literal(value: str) -> str:
+    """Quote a string literal, doubling any single quote inside it."""
+    return "'" + value.replace("'", "''") + "'"
+
+
+def join(parts: list[str], sep: str = ",\n       ") -> str:
+    """Join generated fragments for a slot."""
+    return sep.join(parts)

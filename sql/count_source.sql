@@ -1,0 +1,2 @@
+-- Rows in the source before any filter.
+SELECT count(*) AS n FROM bp_source

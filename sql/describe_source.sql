@@ -1,0 +1,2 @@
+-- Column names and types of the source.
+DESCRIBE bp_source
