@@ -44,7 +44,7 @@ class Engine:
 
     def execute(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> None:
         """Run a statement whose result is not needed."""
-        self._run(label, raw, lambda: self.con.execute(sql, params or {}))
+        self._run(label, raw, lambda: self.con.execute(sql, params or {}).fetchall())
 
     def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
         """Run a query returning one row; return it as a dict."""
@@ -52,7 +52,7 @@ class Engine:
         def fetch() -> dict:
             cur = self.con.execute(sql, params or {})
             names = [d[0] for d in cur.description]
-            row = cur.fetchone()
+            row = cur.fetchall()[0]
             return dict(zip(names, row))
 
         return self._run(label, raw, fetch)

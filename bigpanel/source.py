@@ -96,22 +96,22 @@ def open_source(
         if kind == "parquet":
             files = _parquet_files(location)
             paths = "[" + ", ".join(literal(f) for f in files) + "]"
-            con.execute(render("source_parquet", paths=paths))
+            con.execute(render("source_parquet", paths=paths)).fetchall()
         elif kind == "csv":
             if not os.path.exists(location):
                 raise BigPanelError(f"file not found: {location}")
-            con.execute(render("source_csv", path=literal(location)))
+            con.execute(render("source_csv", path=literal(location))).fetchall()
         else:
             if not os.path.exists(location):
                 raise BigPanelError(f"database file not found: {location}")
-            con.execute(render("attach_database", path=literal(location)))
+            con.execute(render("attach_database", path=literal(location))).fetchall()
             names = [r[0] for r in con.execute(render("list_tables")).fetchall()]
             if table not in names:
                 raise BigPanelError(
                     f"table {table!r} not found in {location}"
                     + (f" (tables: {', '.join(sorted(names))})" if names else " (it holds no tables)")
                 )
-            con.execute(render("source_table", table=ident(str(table))))
+            con.execute(render("source_table", table=ident(str(table)))).fetchall()
         described = con.execute(render("describe_source")).fetchall()
     except BigPanelError:
         raise

@@ -144,7 +144,7 @@ def check_where(con: duckdb.DuckDBPyConnection, where: str) -> None:
     if len(statements) != 1:
         raise BigPanelError(f"--where {where!r} must be a single expression, not several statements")
     try:
-        con.execute(probe)
+        con.execute(probe).fetchall()
     except duckdb.Error as exc:
         raise BigPanelError(f"--where {where!r} is not a valid filter: {_first(exc)}") from None
 
