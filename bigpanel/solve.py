@@ -42,7 +42,7 @@ def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slope
     for j in range(1, m):
         within = q[j, j]
         if total[j] <= 0 or within <= ABSORBED_SHARE * total[j]:
-            dropped.append((j, "absorbed by the fixed effects (no variation within levels)"))
+            dropped.append((j, "absorbed: no variation within the fixed-effect levels"))
             continue
         if keep:
             s = np.sqrt(np.diag(q)[keep])

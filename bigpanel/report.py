@@ -1,0 +1,106 @@
+"""Terminal rendering of a fit (rich), and the same report as plain text."""
+
+from __future__ import annotations
+
+import io
+
+from rich import box
+from rich.console import Console, Group
+from rich.table import Table
+from rich.text import Text
+
+from .results import FitResult
+
+VCOV_LABEL = {
+    "iid": "classical (homoskedastic)",
+    "hc1": "heteroskedasticity-robust HC1",
+    "cluster": "cluster-robust CR1",
+}
+
+
+def _n(v: int | float) -> str:
+    return f"{int(v):,}"
+
+
+def _p(p: float) -> str:
+    return "<1e-16" if p < 1e-16 else f"{p:.4f}" if p >= 1e-4 else f"{p:.1e}"
+
+
+def _g(v: float, digits: int = 6) -> str:
+    return f"{v:.{digits}g}"
+
+
+def fit_renderable(res: FitResult) -> Group:
+    """The report: a coefficient table framed by lines on sample, effects, variance and solver."""
+    head = Text()
+    head.append(f"{res.estimator} estimate  ", style="bold")
+    head.append(res.formula, style="bold magenta")
+    effects = " + ".join(f"{d['name']} ({_n(d['levels'])} levels)" for d in res.fe)
+    head.append(f"\nabsorbing  {effects}", style="dim")
+
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
+    table.add_column("regressor")
+    for col in ("slope", "s.e.", "t", "p", "95% low", "95% high"):
+        table.add_column(col, justify="right")
+    for i, name in enumerate(res.names):
+        table.add_row(
+            name,
+            _g(res.coef[i]),
+            _g(res.std_error[i], 4),
+            f"{res.t[i]:.2f}",
+            _p(res.p[i]),
+            _g(res.ci_low[i], 5),
+            _g(res.ci_high[i], 5),
+        )
+
+    r = res.rows
+    lines = Text()
+    lines.append("rows      ", style="bold")
+    lines.append(f"{_n(r['used'])} used of {_n(r['source'])}")
+    drops = []
+    if r["source"] != r["after_filter"]:
+        drops.append(f"{_n(r['source'] - r['after_filter'])} outside the filter")
+    if r["dropped_incomplete"]:
+        cols = ", ".join(f"{c} {_n(v)}" for c, v in r["incomplete"].items())
+        drops.append(f"{_n(r['dropped_incomplete'])} incomplete ({cols})")
+    if r["dropped_singletons"]:
+        drops.append(f"{_n(r['dropped_singletons'])} singletons")
+    if drops:
+        lines.append("; dropped " + "; ".join(drops))
+    lines.append("\nvariance  ", style="bold")
+    lines.append(VCOV_LABEL[res.vcov_type])
+    if res.cluster:
+        nested = [d["name"] for d in res.fe if d["nested_in_cluster"]]
+        lines.append(f" by {res.cluster} ({_n(res.n_clusters)} clusters)")
+        if nested:
+            lines.append(f"; nested in the cluster: {', '.join(nested)}")
+    lines.append(f"; t on {_n(res.df)} df")
+    lines.append("\nfit       ", style="bold")
+    lines.append(
+        f"within R2 {res.r2_within:.4f}; overall R2 {res.r2_overall:.4f}; residual s.e. {_g(res.sigma, 4)} "
+        f"on {_n(res.df_resid)} df; F({_n(res.f_df[0])}, {_n(res.f_df[1])}) = {res.f_stat:.4g}, p {_p(res.f_p)}"
+    )
+    lines.append("\neffects   ", style="bold")
+    comp = f" in {res.components} connected components" if res.components else ""
+    lines.append(f"{_n(res.absorbed)} absorbed parameters{comp}")
+    s = res.solver
+    lines.append("\nsolver    ", style="bold")
+    conv = "converged" if s["converged"] else "NOT CONVERGED"
+    lines.append(
+        f"{s['path']}; {s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv}); "
+        f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s"
+    )
+    if res.dropped:
+        lines.append("\ndropped   ", style="bold yellow")
+        lines.append("; ".join(f"{d['name']} ({d['reason']})" for d in res.dropped), style="yellow")
+    for w in res.warnings:
+        lines.append("\nwarning   ", style="bold red")
+        lines.append(w, style="red")
+    return Group(head, table, lines)
+
+
+def render_text(res: FitResult, width: int = 100) -> str:
+    """The report as plain text."""
+    buf = io.StringIO()
+    Console(file=buf, width=width, no_color=True, highlight=False).print(fit_renderable(res))
+    return buf.getvalue()
