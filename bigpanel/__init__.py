@@ -3,7 +3,7 @@
 __version__ = "0.1.0"
 
 from .errors import BigPanelError  # noqa: E402
-from .fit import fit  # noqa: E402
+from .estimate import fit  # noqa: E402
 from .results import FitResult  # noqa: E402
 
 __all__ = ["fit", "FitResult", "BigPanelError", "__version__"]

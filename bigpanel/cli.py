@@ -14,7 +14,7 @@ from rich.console import Console
 from .demo import write_demo
 from .errors import BigPanelError
 from .files import write_parquet, write_text
-from .fit import fit as run_fit
+from .estimate import fit as run_fit
 from .report import fit_renderable
 
 app = typer.Typer(

@@ -19,14 +19,16 @@ from .sqltext import ident, render
 
 @dataclass
 class Engine:
-    """Run SQL on one connection; keep the raw-pass count and per-step timings."""
+    """Run SQL on one connection; keep the raw-pass count, per-step timings and the statements."""
 
     con: duckdb.DuckDBPyConnection
     on_step: Callable[[str], None] | None = None
     raw_passes: int = 0
     timings: dict[str, float] = field(default_factory=dict)
+    statements: list[str] = field(default_factory=list)
 
-    def _run(self, label: str, raw: bool, fn: Callable[[], Any]) -> Any:
+    def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any]) -> Any:
+        self.statements.append(sql)
         if self.on_step is not None:
             self.on_step(label)
         start = time.perf_counter()
@@ -44,7 +46,7 @@ class Engine:
 
     def execute(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> None:
         """Run a statement whose result is not needed."""
-        self._run(label, raw, lambda: self.con.execute(sql, params or {}).fetchall())
+        self._run(label, raw, sql, lambda: self.con.execute(sql, params or {}).fetchall())
 
     def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
         """Run a query returning one row; return it as a dict."""
@@ -55,11 +57,11 @@ class Engine:
             row = cur.fetchall()[0]
             return dict(zip(names, row))
 
-        return self._run(label, raw, fetch)
+        return self._run(label, raw, sql, fetch)
 
     def arrow(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> pa.Table:
         """Run a query returning a (small) table as Arrow."""
-        return self._run(label, raw, lambda: self.con.sql(sql, params=params or None).to_arrow_table())
+        return self._run(label, raw, sql, lambda: self.con.sql(sql, params=params or None).to_arrow_table())
 
     def put_table(self, name: str, table: pa.Table) -> None:
         """Copy a small Arrow table into a temporary DuckDB table ``name``."""

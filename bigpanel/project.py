@@ -10,7 +10,10 @@ as a symmetric sweep, and accelerated by using that sweep as the preconditioner
 of conjugate gradients. All value columns iterate together; no raw row is read.
 
 Convergence: the change of the demeaned column in an iteration, ||D (a_t+1 - a_t)||,
-relative to the column's standard deviation times sqrt(N), must fall below ``tol``.
+relative to the norm of the demeaned column itself, must fall below ``tol``. The
+norm is known from the level statistics as ||t||^2 - a'D't - a'r (t the shifted
+column, r the residual of the normal equations); it is floored at 1e-4 ||t|| so
+that a column the effects absorb entirely still converges.
 """
 
 from __future__ import annotations
@@ -79,18 +82,21 @@ class _System:
         return np.vstack(u)
 
 
-def solve_effects(red: Reduction, scale: np.ndarray, tol: float = 1e-8, max_iter: int = 10_000) -> Projection:
+FLOOR = 1e-4
+
+
+def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> Projection:
     """Effects of every dimension for every value column (one column per variable).
 
-    ``scale`` is each column's standard deviation; the stopping rule is stated in
-    the module docstring. One effect needs no iteration: a = level sums / counts.
+    The stopping rule is stated in the module docstring. One effect needs no
+    iteration: a = level sums / counts.
     """
     if len(red.counts) == 1:
         return Projection([red.rhs[0] / red.counts[0][:, None]], iterations=0, change=0.0, converged=True)
     system = _System(red)
     b = np.vstack(red.rhs)
     m = b.shape[1]
-    norm = np.where(scale > 0, scale, 1.0) * np.sqrt(red.n_obs)
+    total = np.maximum(red.sumsq, np.finfo(float).tiny)
     x = np.zeros_like(b)
     r = b.copy()
     z = system.sweep(r)
@@ -105,9 +111,11 @@ def solve_effects(red: Reduction, scale: np.ndarray, tol: float = 1e-8, max_iter
         pq = np.einsum("ij,ij->j", p, q)
         step = np.where(active & (pq > 0), rz / np.where(pq > 0, pq, 1.0), 0.0)
         x += p * step
+        r -= q * step
+        demeaned = total - np.einsum("ij,ij->j", x, b) - np.einsum("ij,ij->j", x, r)
+        norm = np.sqrt(np.maximum(demeaned, FLOOR**2 * total))
         moved = np.abs(step) * np.sqrt(np.maximum(pq, 0.0)) / norm
         change = np.where(active, moved, change)
-        r -= q * step
         active &= (moved >= tol) & (pq > 0)
         z = system.sweep(r)
         rz_new = np.einsum("ij,ij->j", r, z)

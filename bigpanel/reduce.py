@@ -42,14 +42,16 @@ class Reduction:
     """Group-level statistics of the estimation sample.
 
     ``counts[d]`` holds the rows per level of effect d, ``rhs[d]`` the sums of
-    each shifted value column per level (levels x columns) and ``cross[(d, e)]``
-    the sparse table of rows per pair of levels of effects d < e.
+    each shifted value column per level (levels x columns), ``cross[(d, e)]``
+    the sparse table of rows per pair of levels of effects d < e, and
+    ``sumsq`` each shifted column's sum of squares over the sample.
     """
 
     counts: list[np.ndarray]
     rhs: list[np.ndarray]
     cross: dict[tuple[int, int], sparse.csr_matrix]
     nested: list[bool]
+    sumsq: np.ndarray
     n_obs: int
     singletons: int
     rounds: int
@@ -156,6 +158,7 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, n_complete: int
     k = len(spec.fe)
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
     sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
+    sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
     if spec.cluster:
         sums += ["min(cl) AS cl_min", "max(cl) AS cl_max"]
     else:
@@ -205,7 +208,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         sql = render(
             "cell_stats",
             codes=codes,
-            sums=join([f"c.s{j}" for j in range(m)], ", "),
+            sums=join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", "),
             joins=joins,
             order=join([f"c{d + 1}" for d in dims], ", "),
         )
@@ -213,6 +216,8 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         code = {d: tab.column(f"c{d + 1}").to_numpy() for d in dims}
         n = tab.column("n").to_numpy().astype(float)
         s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
+        if dims == _sets(spec)[0]:
+            sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
         for d in dims:
             if rhs[d] is None:
                 g = len(counts[d])
@@ -226,6 +231,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         rhs=[r for r in rhs if r is not None],
         cross=cross,
         nested=list(nested),
+        sumsq=sumsq,
         n_obs=n_obs,
         singletons=n_complete - n_obs,
         rounds=rounds,

@@ -1,8 +1,10 @@
 """Solve the K x K within normal equations, dropping what the effects absorb.
 
 A regressor is *absorbed* (constant within every level, such as a time-invariant
-unit trait under unit effects) when its demeaned sum of squares is below 1e-10
-of its total sum of squares around the mean. A regressor is *collinear* when,
+unit trait under unit effects) when its demeaned sum of squares is below 1e-18
+of its total sum of squares around the mean: far above rounding noise (about
+1e-32 for one effect, below 1e-24 after the projections' stopping rule) and far
+below any within variation worth estimating. A regressor is *collinear* when,
 in the order given, it is explained by the regressors already kept up to a
 residual share below 1e-10 of its demeaned sum of squares. The slopes solve
 (X~'X~) b = X~'y~ on the kept columns, scaled to unit diagonal, by an SVD-based
@@ -16,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg
 
-ABSORBED_SHARE = 1e-10
+ABSORBED_SHARE = 1e-18
 COLLINEAR_SHARE = 1e-10
 ILL_CONDITIONED = 1e7
 

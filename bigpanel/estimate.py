@@ -92,13 +92,13 @@ def fit(
         if on_step:
             on_step("alternating projections on the level tables")
         t0 = time.perf_counter()
-        proj = solve_effects(red, prof.sds, tol=tol, max_iter=max_iter)
+        proj = solve_effects(red, tol=tol, max_iter=max_iter)
         eng.timings["projections (numpy)"] = time.perf_counter() - t0
         n_comp, labels = components(red) if len(spec.fe) >= 2 else (None, None)
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
         store_effects(eng, spec, proj.alpha)
         create_tilde(eng, spec)
-        n, q, _, st, tt = cross_products(eng, len(spec.value_aliases))
+        n, q, sum_e, st, tt = cross_products(eng, len(spec.value_aliases))
         slopes = solve_slopes(q, n, st, tt)
         names_all = [spec.y, *spec.x]
         if not slopes.keep:
@@ -194,6 +194,7 @@ def fit(
             "tol": tol,
             "converged": proj.converged,
             "condition_number": slopes.condition,
+            "max_mean_demeaned": float(np.max(np.abs(sum_e / n) / np.where(prof.sds > 0, prof.sds, 1.0))),
             "raw_passes": eng.raw_passes,
             "singleton_rounds": red.rounds,
             "seconds": round(time.perf_counter() - started, 4),

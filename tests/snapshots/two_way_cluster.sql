@@ -1,0 +1,182 @@
+-- Used columns under internal names, after the user's row filter.
+-- The only statement that names user columns; each is a quoted identifier.
+CREATE OR REPLACE TEMP VIEW bp_filtered AS
+SELECT CAST("y" AS DOUBLE) AS v0,
+       CAST("select" AS DOUBLE) AS v1,
+       "shop id" AS f1_1,
+       "wk""" AS f2_1,
+       "area" AS cl
+FROM bp_source
+WHERE TRUE
+
+;
+-- The estimation sample: rows complete in every used column (listwise deletion).
+CREATE OR REPLACE TEMP VIEW bp_sample AS
+SELECT *
+FROM bp_filtered
+WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL
+
+;
+-- Pass 1: rows after the filter, rows complete in every used column, the
+-- incomplete count per column, and each value column's mean and spread on the
+-- complete rows (the means become the shifts that keep later sums small).
+SELECT count(*) AS n_filtered,
+       count(*) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS n_complete,
+       count(*) FILTER (WHERE NOT coalesce(isfinite(v0), FALSE)) AS bad_v0,
+       count(*) FILTER (WHERE NOT coalesce(isfinite(v1), FALSE)) AS bad_v1,
+       count(*) FILTER (WHERE f1_1 IS NULL) AS bad_f1_1,
+       count(*) FILTER (WHERE f2_1 IS NULL) AS bad_f2_1,
+       count(*) FILTER (WHERE cl IS NULL) AS bad_cl,
+       avg(v0) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS mean_v0,
+       stddev_pop(v0) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS sd_v0,
+       avg(v1) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS mean_v1,
+       stddev_pop(v1) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS sd_v1
+FROM bp_filtered
+
+;
+-- A one-row helper table of numbers bound as parameters (shifts, coefficients).
+CREATE OR REPLACE TEMP TABLE bp_shift AS
+SELECT CAST($m0 AS DOUBLE) AS m0,
+       CAST($m1 AS DOUBLE) AS m1
+
+;
+-- Pass 2: the group-level sufficient statistics. One scan groups the sample by
+-- each effect (one effect) or by each pair of effects (two or more): row count
+-- and the sum of every shifted value column per cell, and the cluster's range
+-- per cell (to tell whether an effect is nested in the cluster).
+CREATE OR REPLACE TEMP TABLE bp_cells AS
+SELECT f1_1, f2_1,
+       GROUPING(f1_1, f2_1) AS gid,
+       count(*) AS n,
+       sum(v0 - s.m0) AS s0,
+       sum(v1 - s.m1) AS s1,
+       sum((v0 - s.m0) * (v0 - s.m0)) AS q0,
+       sum((v1 - s.m1) * (v1 - s.m1)) AS q1,
+       min(cl) AS cl_min,
+       max(cl) AS cl_max
+FROM bp_sample CROSS JOIN bp_shift AS s
+GROUP BY GROUPING SETS ((f1_1, f2_1))
+
+;
+-- The levels of one effect with a dense integer code in key order, the row
+-- count, and whether all its rows share one cluster value.
+CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
+SELECT f1_1,
+       CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
+       n,
+       nested
+FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
+      FROM bp_cells
+      WHERE gid = $gid
+      GROUP BY f1_1
+      HAVING sum(n) >= $min_count) AS lv
+
+;
+-- The levels of one effect with a dense integer code in key order, the row
+-- count, and whether all its rows share one cluster value.
+CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
+SELECT f2_1,
+       CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
+       n,
+       nested
+FROM (SELECT f2_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
+      FROM bp_cells
+      WHERE gid = $gid
+      GROUP BY f2_1
+      HAVING sum(n) >= $min_count) AS lv
+
+;
+-- How many levels of one effect hold a single row.
+SELECT count(*) AS n_single FROM bp_lev_1 WHERE n = 1
+
+;
+-- How many levels of one effect hold a single row.
+SELECT count(*) AS n_single FROM bp_lev_2 WHERE n = 1
+
+;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT n, nested FROM bp_lev_1 ORDER BY code
+
+;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT n, nested FROM bp_lev_2 ORDER BY code
+
+;
+-- One grouping set of the cells with integer level codes, for numpy.
+SELECT l1.code AS c1, l2.code AS c2, c.n, c.s0, c.s1, c.q0, c.q1
+FROM bp_cells AS c
+JOIN bp_lev_1 AS l1 USING (f1_1)
+JOIN bp_lev_2 AS l2 USING (f2_1)
+WHERE c.gid = $gid
+ORDER BY c1, c2
+
+;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT f1_1 FROM bp_lev_1 ORDER BY code
+
+;
+-- Copy a registered Arrow table (level effects) into a temporary table.
+CREATE OR REPLACE TEMP TABLE "bp_alpha_1" AS
+SELECT * FROM "bp_alpha_1_arrow"
+
+;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT f2_1 FROM bp_lev_2 ORDER BY code
+
+;
+-- Copy a registered Arrow table (level effects) into a temporary table.
+CREATE OR REPLACE TEMP TABLE "bp_alpha_2" AS
+SELECT * FROM "bp_alpha_2_arrow"
+
+;
+-- The demeaned columns: each value minus its shift and the solved effects of
+-- every dimension, joined back row by row (e0 is the outcome, ej regressor j),
+-- plus the shifted columns tj for total sums of squares.
+CREATE OR REPLACE TEMP VIEW bp_tilde AS
+SELECT v0 - s.m0 - a1.a0 - a2.a0 AS e0,
+       v0 - s.m0 AS t0,
+       v1 - s.m1 - a1.a1 - a2.a1 AS e1,
+       v1 - s.m1 AS t1,
+       cl
+FROM bp_sample CROSS JOIN bp_shift AS s
+JOIN bp_alpha_1 AS a1 USING (f1_1)
+JOIN bp_alpha_2 AS a2 USING (f2_1)
+
+;
+-- Final pass: the cross-products of the demeaned columns, row by row.
+SELECT count(*) AS n,
+       sum(e0 * e0) AS q_0_0,
+       sum(e0 * e1) AS q_0_1,
+       sum(e1 * e1) AS q_1_1,
+       sum(e0) AS se_0,
+       sum(e1) AS se_1,
+       sum(t0) AS st_0,
+       sum(t1) AS st_1,
+       sum(t0 * t0) AS tt_0,
+       sum(t1 * t1) AS tt_1
+FROM bp_tilde
+
+;
+-- A one-row helper table of numbers bound as parameters (shifts, coefficients).
+CREATE OR REPLACE TEMP TABLE bp_coef AS
+SELECT CAST($b1 AS DOUBLE) AS b1
+
+;
+-- Cluster-robust meat: scores g_c = sum over the rows of cluster c of u x~,
+-- then sum over clusters of g_c g_c'.
+SELECT count(*) AS n_clusters,
+       sum(g1 * g1) AS h_1_1
+FROM (SELECT cl,
+       sum(u * e1) AS g1
+      FROM (SELECT cl, e0 - (b.b1 * e1) AS u, e1
+            FROM bp_tilde CROSS JOIN bp_coef AS b) AS r
+      GROUP BY cl) AS g
+
+;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT f1_1 FROM bp_lev_1 ORDER BY code
+
+;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT f2_1 FROM bp_lev_2 ORDER BY code
+
