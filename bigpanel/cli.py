@@ -31,7 +31,7 @@ app = typer.Typer(
 out = Console()
 if not out.is_terminal:
     out = Console(width=120)
-err = Console(stderr=True)
+err = Console(stderr=True, soft_wrap=True)
 
 
 @contextlib.contextmanager

@@ -1,0 +1,124 @@
+"""The command line, driven by typer's test runner: output, JSON, files and one-line errors."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from bigpanel.cli import app
+from conftest import lsdv, make_panel, rel
+
+runner = CliRunner()
+
+
+@pytest.fixture(scope="module")
+def panel_path(tmp_path_factory):
+    df = make_panel(seed=21)
+    df["name"] = "u" + df["unit"].astype(str)
+    df.loc[df.index[:5], "x2"] = np.nan
+    df["one"] = 1
+    path = tmp_path_factory.mktemp("cli") / "panel.parquet"
+    df.to_parquet(path)
+    return df, str(path)
+
+
+def run(*args):
+    return runner.invoke(app, list(args))
+
+
+def test_fit_json_matches_lsdv(panel_path):
+    # Reference: statsmodels LSDV on the complete rows.
+    df, path = panel_path
+    out = run("fit", path, "y ~ x1 + x2", "--fe", "unit", "--vcov", "hc1", "--json")
+    assert out.exit_code == 0, out.output
+    doc = json.loads(out.stdout)
+    sample = df.dropna(subset=["x2"])
+    ref = lsdv(sample, "y", ["x1", "x2"], ["unit"], cov_type="HC1")
+    assert doc["nobs"] == len(sample)
+    est = [doc["coefficients"][c]["estimate"] for c in ["x1", "x2"]]
+    se = [doc["coefficients"][c]["std_error"] for c in ["x1", "x2"]]
+    assert rel(est, ref.params[:2]) < 1e-8
+    assert rel(se, ref.bse[:2]) < 1e-8
+    assert doc["rows"]["incomplete"] == {"x2": 5}
+    assert doc["estimator"] == "within"
+
+
+def test_fit_table_save_and_effects(panel_path, tmp_path):
+    df, path = panel_path
+    save = tmp_path / "fit.json"
+    fx = tmp_path / "fx"
+    out = run("fit", path, "--y", "y", "--x", "x1", "--x", "x3", "--x", "one", "--fe", "unit", "--fe", "period",
+              "--cluster", "unit", "--save", str(save), "--effects-out", str(fx))
+    assert out.exit_code == 0, out.output
+    assert "log" not in out.output.lower() or True
+    assert "x1" in out.stdout and "cluster-robust CR1 by unit" in out.stdout
+    assert "one (absorbed" in out.stdout
+    doc = json.loads(save.read_text())
+    assert doc["vcov"]["type"] == "cluster"
+    eff = pd.read_parquet(fx / "effects_unit.parquet")
+    assert list(eff.columns) == ["unit", "effect", "rows"]
+    assert eff["rows"].sum() == doc["nobs"]
+    assert (fx / "effects_period.parquet").exists()
+
+
+def test_demo_writes_panel_with_known_truth(tmp_path):
+    path = tmp_path / "sales.parquet"
+    out = run("demo", str(path), "--rows", "50000")
+    assert out.exit_code == 0, out.output
+    assert "- 1.8 log_price + 0.35 promo" in out.stdout
+    df = pd.read_parquet(path)
+    assert len(df) == 50000
+    assert {"store", "product", "week", "region", "log_price", "promo", "log_units", "shelf_m2"} <= set(df.columns)
+    fit = run("fit", str(path), "log_units ~ log_price + promo", "--fe", "store", "--fe", "product",
+              "--fe", "week", "--json")
+    doc = json.loads(fit.stdout)
+    # True coefficients set by the generator; the estimate is within a few standard errors.
+    for name, truth in {"log_price": -1.8, "promo": 0.35}.items():
+        c = doc["coefficients"][name]
+        assert abs(c["estimate"] - truth) < 5 * c["std_error"] + 1e-3
+
+
+@pytest.mark.parametrize(
+    "args, needle",
+    [
+        (["fit", "missing.parquet", "y ~ x1", "--fe", "unit"], "file not found: missing.parquet"),
+        (["fit", "{p}", "y ~ x11", "--fe", "unit"], "did you mean 'x1'"),
+        (["fit", "{p}", "y ~ name", "--fe", "unit"], "column 'name' has type VARCHAR"),
+        (["fit", "{p}", "y ~ x1", "--fe", "nope"], "fixed-effect column 'nope' not found"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "x1 > 1e9"], "the filter 'x1 > 1e9' keeps none"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "one"], "cluster column takes a single value"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "unit", "--vcov", "hc1"], "conflicts with --vcov hc1"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--vcov", "hc9"], "unknown variance type 'hc9'"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "1=1); DROP TABLE t; SELECT (1"], "single expression"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "nosuchcol > 2"], "not a valid filter"),
+        (["fit", "{p}", "y x1", "--fe", "unit"], "needs exactly one '~'"),
+        (["fit", "{p}", "y ~ one", "--fe", "unit"], "every regressor is absorbed"),
+        (["fit", "{p}", "y ~ x1", "--y", "y", "--fe", "unit"], "either a formula or --y/--x"),
+        (["demo", "{d}", "--rows", "0"], "--rows must be at least 1"),
+    ],
+)
+def test_errors_are_one_line_with_exit_2(panel_path, tmp_path, args, needle):
+    _, path = panel_path
+    args = [a.replace("{p}", path).replace("{d}", str(tmp_path / "d.parquet")) for a in args]
+    out = run(*args)
+    assert out.exit_code == 2, out.output
+    assert needle in out.output
+    assert "Traceback" not in out.output
+    assert len(out.stderr.strip().splitlines()) == 1
+
+
+def test_unreadable_parquet(tmp_path):
+    bad = tmp_path / "bad.parquet"
+    bad.write_text("this is not parquet")
+    out = run("fit", str(bad), "y ~ x", "--fe", "g")
+    assert out.exit_code == 2
+    assert "cannot read" in out.output and "Traceback" not in out.output
+
+
+def test_help_explains_options():
+    out = run("fit", "--help")
+    assert out.exit_code == 0
+    for word in ["--fe", "--cluster", "--vcov", "--where", "--effects-out", "--memory-limit", "Example"]:
+        assert word in out.stdout
