@@ -11,13 +11,13 @@ values do not depend on this choice.
 
 from __future__ import annotations
 
+from typing import Callable
+
 import numpy as np
 import pyarrow as pa
 
-from .engine import Engine
 from .project import Projection
 from .spec import Spec
-from .sqltext import join, render
 
 
 def recover(
@@ -47,14 +47,16 @@ def recover(
     return fx
 
 
-def effect_tables(eng: Engine, spec: Spec, fx: list[np.ndarray], counts: list[np.ndarray]) -> dict[str, pa.Table]:
-    """One Arrow table per effect: the level's key columns, ``effect`` and ``rows``."""
+def effect_tables(
+    spec: Spec, keys_of: Callable[[int], pa.Table], fx: list[np.ndarray], counts: list[np.ndarray]
+) -> dict[str, pa.Table]:
+    """One Arrow table per effect: the level's key columns, ``effect`` and ``rows``.
+
+    ``keys_of(d)`` gives effect d's level keys in code order.
+    """
     out: dict[str, pa.Table] = {}
     for d, name in enumerate(spec.fe_names):
-        keys = eng.arrow(
-            "effect keys", render("level_table", columns=join(spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")
-        )
-        keys = keys.rename_columns(list(spec.fe[d]))
+        keys = keys_of(d).rename_columns(list(spec.fe[d]))
         taken = set(spec.fe[d])
         label_effect = "effect" if "effect" not in taken else "effect_estimate"
         label_rows = "rows" if "rows" not in taken else "rows_in_level"

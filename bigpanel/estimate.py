@@ -18,15 +18,16 @@ from .effects import effect_tables, recover
 from .engine import Engine
 from .errors import BigPanelError
 from .inference import infer
-from .moments import create_tilde, cross_products, meat_cluster, meat_hc, store_effects
+from .memory import MemoryBackend
 from .project import components, solve_effects
-from .reduce import create_views, profile, put_one_row, reduce_cells
 from .results import FitResult
 from .solve import ILL_CONDITIONED, solve_slopes
 from .source import connect, open_source
+from .sqlpath import SqlBackend
 from .spec import build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
+ENGINES = {"duckdb": SqlBackend, "memory": MemoryBackend}
 
 
 def _as_list(value: str | Sequence[str] | None) -> list[str]:
@@ -54,6 +55,7 @@ def fit(
     memory_limit: str | None = None,
     temp_dir: str | None = None,
     threads: int | None = None,
+    engine: str = "duckdb",
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -66,6 +68,8 @@ def fit(
     in a level of any effect (singletons) are dropped unless
     ``drop_singletons=False``. See :mod:`bigpanel.inference` and
     :mod:`bigpanel.dof` for the variance formulas and degrees of freedom.
+    ``engine="memory"`` loads the used columns into numpy and fits the same
+    model there (the reference for checking the SQL path on a sample).
     """
     started = time.perf_counter()
     if formula is not None:
@@ -78,6 +82,8 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if tol <= 0 or not np.isfinite(tol):
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
+    if engine not in ENGINES:
+        raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     con = connect(memory_limit, temp_dir, threads)
     try:
         src = open_source(con, source, table)
@@ -85,10 +91,9 @@ def fit(
         if spec.where:
             check_where(con, spec.where)
         eng = Engine(con, on_step=on_step)
-        create_views(eng, spec)
-        prof = profile(eng, spec)
-        put_one_row(eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(prof.means)})
-        red = reduce_cells(eng, spec, drop_singletons, prof.n_complete)
+        back = ENGINES[engine](eng, spec)
+        prof = back.profile()
+        red = back.reduce(drop_singletons, prof.n_complete)
         if on_step:
             on_step("alternating projections on the level tables")
         t0 = time.perf_counter()
@@ -96,10 +101,9 @@ def fit(
         eng.timings["projections (numpy)"] = time.perf_counter() - t0
         n_comp, labels = components(red) if len(spec.fe) >= 2 else (None, None)
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
-        store_effects(eng, spec, proj.alpha)
-        create_tilde(eng, spec)
-        n, q, sum_e, st, tt = cross_products(eng, len(spec.value_aliases))
-        slopes = solve_slopes(q, n, st, tt)
+        mom = back.moments(proj.alpha)
+        n = mom.n
+        slopes = solve_slopes(mom.q, n, mom.sum_t, mom.sumsq_t)
         names_all = [spec.y, *spec.x]
         if not slopes.keep:
             raise BigPanelError(
@@ -108,9 +112,9 @@ def fit(
             )
         meat, n_clusters = None, None
         if spec.vcov == "hc1":
-            meat = meat_hc(eng, slopes.keep, slopes.beta)
+            meat = back.meat_hc(slopes.keep, slopes.beta)
         elif spec.vcov == "cluster":
-            n_clusters, meat = meat_cluster(eng, slopes.keep, slopes.beta)
+            n_clusters, meat = back.meat_cluster(slopes.keep, slopes.beta)
         inf = infer(
             slopes.beta,
             slopes.bread,
@@ -123,11 +127,12 @@ def fit(
             absorbed_cluster=absorbed.cluster_total,
         )
         fx = recover(proj, red.counts, slopes.keep, slopes.beta, prof.means, labels)
-        effects = effect_tables(eng, spec, fx, red.counts)
+        effects = effect_tables(spec, back.level_keys, fx, red.counts)
     finally:
         con.close()
 
-    tss = float(tt[0] - st[0] ** 2 / n)
+    q = mom.q
+    tss = float(mom.sumsq_t[0] - mom.sum_t[0] ** 2 / n)
     warnings: list[str] = []
     if not proj.converged:
         warnings.append(
@@ -188,14 +193,15 @@ def fit(
         },
         dropped=[{"name": names_all[j], "reason": why} for j, why in slopes.dropped],
         solver={
+            "engine": engine,
             "path": "group-level statistics" if len(spec.fe) > 1 else "exact one-way demeaning",
             "iterations": proj.iterations,
             "change": proj.change,
             "tol": tol,
             "converged": proj.converged,
             "condition_number": slopes.condition,
-            "max_mean_demeaned": float(np.max(np.abs(sum_e / n) / np.where(prof.sds > 0, prof.sds, 1.0))),
-            "raw_passes": eng.raw_passes,
+            "max_mean_demeaned": float(np.max(np.abs(mom.sum_e / n) / np.where(prof.sds > 0, prof.sds, 1.0))),
+            "raw_passes": back.raw_passes,
             "singleton_rounds": red.rounds,
             "seconds": round(time.perf_counter() - started, 4),
         },
@@ -203,5 +209,5 @@ def fit(
         source=str(source),
         where=spec.where,
         warnings=warnings,
-        timings=dict(eng.timings),
+        timings=dict(back.timings),
     )

@@ -10,19 +10,21 @@ from __future__ import annotations
 import numpy as np
 import pyarrow as pa
 
+from dataclasses import dataclass
+
 from .engine import Engine
 from .reduce import put_one_row
 from .spec import Spec
 from .sqltext import join, render
 
 
-def store_effects(eng: Engine, spec: Spec, alpha: list[np.ndarray]) -> None:
-    """Write each dimension's solved effects as ``bp_alpha_d`` (level keys + a0..aK)."""
+def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) -> None:
+    """Write each dimension's solved effects as ``bp_alpha_d`` (level keys in code order + a0..aK)."""
     for d, a in enumerate(alpha):
-        keys = eng.arrow("level keys", render("level_table", columns=join(spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}"))
+        table = keys[d]
         for j in range(a.shape[1]):
-            keys = keys.append_column(f"a{j}", pa.array(a[:, j], type=pa.float64()))
-        eng.put_table(f"bp_alpha_{d + 1}", keys)
+            table = table.append_column(f"a{j}", pa.array(a[:, j], type=pa.float64()))
+        eng.put_table(f"bp_alpha_{d + 1}", table)
 
 
 def create_tilde(eng: Engine, spec: Spec) -> None:
@@ -41,11 +43,22 @@ def create_tilde(eng: Engine, spec: Spec) -> None:
     eng.execute("demeaned view", render("tilde", columns=join(cols), joins=joins))
 
 
-def cross_products(eng: Engine, m: int) -> tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Pass 3: N, E'E (demeaned), sums of e, sums and squares of the shifted t.
+@dataclass(frozen=True)
+class Moments:
+    """Row-level sums over the sample: N, E'E of the demeaned columns, sum of e, sum and sum of squares of t.
 
-    Column 0 is the outcome, 1..K the regressors.
+    Column 0 is the outcome, 1..K the regressors; e is demeaned, t only shifted.
     """
+
+    n: int
+    q: np.ndarray
+    sum_e: np.ndarray
+    sum_t: np.ndarray
+    sumsq_t: np.ndarray
+
+
+def cross_products(eng: Engine, m: int) -> Moments:
+    """Pass 3: the :class:`Moments` of the demeaned view."""
     sums = [f"sum(e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
     sums += [f"sum(e{i}) AS se_{i}" for i in range(m)]
     sums += [f"sum(t{i}) AS st_{i}" for i in range(m)]
@@ -58,7 +71,7 @@ def cross_products(eng: Engine, m: int) -> tuple[int, np.ndarray, np.ndarray, np
     se = np.array([row[f"se_{i}"] for i in range(m)], dtype=float)
     st = np.array([row[f"st_{i}"] for i in range(m)], dtype=float)
     tt = np.array([row[f"tt_{i}"] for i in range(m)], dtype=float)
-    return int(row["n"]), q, se, st, tt
+    return Moments(int(row["n"]), q, se, st, tt)
 
 
 def _resid_parts(keep: list[int], beta: np.ndarray) -> tuple[str, str]:

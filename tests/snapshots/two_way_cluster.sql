@@ -115,13 +115,13 @@ ORDER BY c1, c2
 SELECT f1_1 FROM bp_lev_1 ORDER BY code
 
 ;
+-- The levels of one effect in code order (keys, row count, nesting flag).
+SELECT f2_1 FROM bp_lev_2 ORDER BY code
+
+;
 -- Copy a registered Arrow table (level effects) into a temporary table.
 CREATE OR REPLACE TEMP TABLE "bp_alpha_1" AS
 SELECT * FROM "bp_alpha_1_arrow"
-
-;
--- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT f2_1 FROM bp_lev_2 ORDER BY code
 
 ;
 -- Copy a registered Arrow table (level effects) into a temporary table.

@@ -1,0 +1,173 @@
+"""The in-memory path: the used columns loaded into numpy, the same model fitted there.
+
+It is the reference a user compares the SQL path against, and the fast path
+for small data. Levels are coded by sorting (the same order as the SQL level
+tables), reductions are ``bincount`` calls, singletons are peeled by repeated
+counting, and the demeaned products are formed row by row in numpy. The
+projections, slopes, inference and effects are the shared code.
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+from scipy import sparse
+
+from .engine import Engine
+from .errors import BigPanelError
+from .moments import Moments
+from .reduce import Profile, Reduction, create_views
+from .spec import Spec
+from .sqltext import render
+
+
+def _codes(columns: list[pa.ChunkedArray]) -> tuple[np.ndarray, pa.Table]:
+    """Dense codes of the distinct key combinations in sorted key order, and the keys."""
+    per_col = []
+    uniques = []
+    for col in columns:
+        uniq = pc.unique(col)
+        uniq = uniq.take(pc.sort_indices(uniq))
+        per_col.append(pc.index_in(col, value_set=uniq).to_numpy(zero_copy_only=False).astype(np.int64))
+        uniques.append(uniq)
+    combined = per_col[0]
+    for codes, uniq in zip(per_col[1:], uniques[1:]):
+        combined = combined * len(uniq) + codes
+    levels, inverse = np.unique(combined, return_inverse=True)
+    keys = []
+    rest = levels
+    for codes, uniq in reversed(list(zip(per_col, uniques))):
+        keys.append(uniq.take(pa.array(rest % len(uniq))))
+        rest = rest // len(uniq)
+    return inverse.astype(np.int64), pa.table(list(reversed(keys)), names=[f"k{j}" for j in range(len(columns))])
+
+
+class MemoryBackend:
+    """Runs the fit's row-level steps on numpy arrays held in memory."""
+
+    name = "memory"
+
+    def __init__(self, eng: Engine, spec: Spec) -> None:
+        self.spec = spec
+        self.eng = eng
+        self.timings = eng.timings
+        create_views(eng, spec)
+        start = time.perf_counter()
+        self.table = eng.arrow("load the used columns", render("load_columns"), raw=True)
+        self.timings["load into memory"] = time.perf_counter() - start
+
+    @property
+    def raw_passes(self) -> int:
+        return self.eng.raw_passes
+
+    def profile(self) -> Profile:
+        spec, tab = self.spec, self.table
+        values = np.column_stack(
+            [tab.column(v).to_numpy(zero_copy_only=False).astype(float) for v in spec.value_aliases]
+        )
+        ok_values = np.isfinite(values)
+        incomplete: dict[str, int] = {}
+        for j, name in enumerate([spec.y, *spec.x]):
+            incomplete[name] = max(incomplete.get(name, 0), int((~ok_values[:, j]).sum()))
+        complete = ok_values.all(axis=1)
+        key_cols = [(name, a) for d, cols in enumerate(spec.fe) for name, a in zip(cols, spec.key_aliases(d))]
+        if spec.cluster:
+            key_cols.append((spec.cluster, "cl"))
+        for name, alias in key_cols:
+            null = tab.column(alias).is_null().to_numpy(zero_copy_only=False)
+            incomplete[name] = max(incomplete.get(name, 0), int(null.sum()))
+            complete &= ~null
+        n_filtered = len(values)
+        if n_filtered == 0:
+            raise BigPanelError(
+                "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
+            )
+        if not complete.any():
+            worst = max(incomplete, key=lambda c: incomplete[c])
+            raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {incomplete[worst]} rows")
+        self.values = values[complete]
+        self.rows = tab.filter(pa.array(complete))
+        means = self.values.mean(axis=0)
+        self.t = self.values - means
+        n_source = None
+        if spec.where:
+            n_source = int(self.eng.one("count source", render("count_source"))["n"])
+        return Profile(n_source, n_filtered, int(complete.sum()), incomplete, means, self.values.std(axis=0))
+
+    def reduce(self, drop_singletons: bool, n_complete: int) -> Reduction:
+        spec = self.spec
+        k = len(spec.fe)
+        codes, self.keys = [], []
+        for d in range(k):
+            c, keys = _codes([self.rows.column(a) for a in spec.key_aliases(d)])
+            codes.append(c)
+            self.keys.append(keys.rename_columns(spec.key_aliases(d)))
+        keep = np.ones(len(self.t), dtype=bool)
+        rounds = 0
+        while drop_singletons:
+            rounds += 1
+            drop = np.zeros_like(keep)
+            for c in codes:
+                drop |= np.bincount(c[keep], minlength=c.max() + 1)[c] == 1
+            drop &= keep
+            if not drop.any():
+                break
+            keep &= ~drop
+        rounds = max(rounds, 1)
+        if not keep.any():
+            raise BigPanelError(f"no rows left: every level of {spec.fe_names[0]!r} holds a single row (singletons)")
+        self.t = self.t[keep]
+        self.rows = self.rows.filter(pa.array(keep))
+        self.codes = []
+        for d in range(k):
+            used, inverse = np.unique(codes[d][keep], return_inverse=True)
+            self.codes.append(inverse.astype(np.int64))
+            self.keys[d] = self.keys[d].take(pa.array(used))
+        counts = [np.bincount(c).astype(float) for c in self.codes]
+        rhs = [np.column_stack([np.bincount(c, weights=self.t[:, j]) for j in range(self.t.shape[1])]) for c in self.codes]
+        cross = {}
+        for d in range(k):
+            for e in range(d + 1, k):
+                ones = np.ones(len(self.t))
+                shape = (len(counts[d]), len(counts[e]))
+                cross[(d, e)] = sparse.csr_matrix((ones, (self.codes[d], self.codes[e])), shape=shape)
+        nested = [False] * k
+        if spec.cluster:
+            cl, _ = _codes([self.rows.column("cl")])
+            self.cluster = cl
+            for d, c in enumerate(self.codes):
+                lo = np.full(len(counts[d]), np.iinfo(np.int64).max)
+                hi = np.full(len(counts[d]), -1)
+                np.minimum.at(lo, c, cl)
+                np.maximum.at(hi, c, cl)
+                nested[d] = bool((lo == hi).all())
+        n_obs = len(self.t)
+        return Reduction(counts, rhs, cross, nested, (self.t**2).sum(axis=0), n_obs, n_complete - n_obs, rounds)
+
+    def moments(self, alpha: list[np.ndarray]) -> Moments:
+        e = self.t.copy()
+        for c, a in zip(self.codes, alpha):
+            e -= a[c]
+        self.e = e
+        return Moments(len(e), e.T @ e, e.sum(axis=0), self.t.sum(axis=0), (self.t**2).sum(axis=0))
+
+    def _resid(self, keep: list[int], beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        x = self.e[:, keep]
+        return self.e[:, 0] - x @ beta, x
+
+    def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
+        u, x = self._resid(keep, beta)
+        w = x * u[:, None]
+        return w.T @ w
+
+    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
+        u, x = self._resid(keep, beta)
+        g = int(self.cluster.max()) + 1
+        scores = np.column_stack([np.bincount(self.cluster, weights=u * x[:, j], minlength=g) for j in range(x.shape[1])])
+        return g, scores.T @ scores
+
+    def level_keys(self, d: int) -> pa.Table:
+        return self.keys[d]
