@@ -91,9 +91,10 @@ def fit(
         if spec.where:
             check_where(con, spec.where)
         eng = Engine(con, on_step=on_step)
-        back = ENGINES[engine](eng, spec)
-        prof = back.profile()
-        red = back.reduce(drop_singletons, prof.n_complete)
+        back = ENGINES[engine](eng, spec, src.kind)
+        first = back.start()
+        red = back.reduce(drop_singletons)
+        lost = back.incomplete() if red.n_complete < first.n_filtered else {}
         if on_step:
             on_step("alternating projections on the level tables")
         t0 = time.perf_counter()
@@ -126,7 +127,7 @@ def fit(
             n_clusters=n_clusters,
             absorbed_cluster=absorbed.cluster_total,
         )
-        fx = recover(proj, red.counts, slopes.keep, slopes.beta, prof.means, labels)
+        fx = recover(proj, red.counts, slopes.keep, slopes.beta, first.shift, labels)
         effects = effect_tables(spec, back.level_keys, fx, red.counts)
     finally:
         con.close()
@@ -184,10 +185,10 @@ def fit(
         f_df=inf.f_df,
         f_p=inf.f_p,
         rows={
-            "source": prof.n_source if prof.n_source is not None else prof.n_filtered,
-            "after_filter": prof.n_filtered,
-            "incomplete": {k: v for k, v in prof.incomplete.items() if v},
-            "dropped_incomplete": prof.n_filtered - prof.n_complete,
+            "source": first.n_source,
+            "after_filter": first.n_filtered,
+            "incomplete": {k: v for k, v in lost.items() if v},
+            "dropped_incomplete": first.n_filtered - red.n_complete,
             "dropped_singletons": red.singletons,
             "used": n,
         },
@@ -200,7 +201,7 @@ def fit(
             "tol": tol,
             "converged": proj.converged,
             "condition_number": slopes.condition,
-            "max_mean_demeaned": float(np.max(np.abs(mom.sum_e / n) / np.where(prof.sds > 0, prof.sds, 1.0))),
+            "max_mean_demeaned": float(np.max(np.abs(mom.sum_e) / np.sqrt(n * np.maximum(mom.sumsq_t, 1e-300)))),
             "raw_passes": back.raw_passes,
             "singleton_rounds": red.rounds,
             "seconds": round(time.perf_counter() - started, 4),

@@ -19,7 +19,7 @@ from scipy import sparse
 from .engine import Engine
 from .errors import BigPanelError
 from .moments import Moments
-from .reduce import Profile, Reduction, create_views
+from .reduce import Reduction, Start, create_views
 from .spec import Spec
 from .sqltext import render
 
@@ -50,7 +50,7 @@ class MemoryBackend:
 
     name = "memory"
 
-    def __init__(self, eng: Engine, spec: Spec) -> None:
+    def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
         self.spec = spec
         self.eng = eng
         self.timings = eng.timings
@@ -63,7 +63,7 @@ class MemoryBackend:
     def raw_passes(self) -> int:
         return self.eng.raw_passes
 
-    def profile(self) -> Profile:
+    def start(self) -> Start:
         spec, tab = self.spec, self.table
         values = np.column_stack(
             [tab.column(v).to_numpy(zero_copy_only=False).astype(float) for v in spec.value_aliases]
@@ -85,19 +85,21 @@ class MemoryBackend:
             raise BigPanelError(
                 "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
             )
+        self.bad = incomplete
         if not complete.any():
             worst = max(incomplete, key=lambda c: incomplete[c])
             raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {incomplete[worst]} rows")
         self.values = values[complete]
         self.rows = tab.filter(pa.array(complete))
-        means = self.values.mean(axis=0)
-        self.t = self.values - means
-        n_source = None
-        if spec.where:
-            n_source = int(self.eng.one("count source", render("count_source"))["n"])
-        return Profile(n_source, n_filtered, int(complete.sum()), incomplete, means, self.values.std(axis=0))
+        shift = self.values[:1000].mean(axis=0)
+        self.t = self.values - shift
+        n_source = int(self.eng.one("count source", render("count_source"))["n"]) if spec.where else n_filtered
+        return Start(n_source, n_filtered, shift)
 
-    def reduce(self, drop_singletons: bool, n_complete: int) -> Reduction:
+    def incomplete(self) -> dict[str, int]:
+        return self.bad
+
+    def reduce(self, drop_singletons: bool) -> Reduction:
         spec = self.spec
         k = len(spec.fe)
         codes, self.keys = [], []
@@ -144,8 +146,7 @@ class MemoryBackend:
                 np.minimum.at(lo, c, cl)
                 np.maximum.at(hi, c, cl)
                 nested[d] = bool((lo == hi).all())
-        n_obs = len(self.t)
-        return Reduction(counts, rhs, cross, nested, (self.t**2).sum(axis=0), n_obs, n_complete - n_obs, rounds)
+        return Reduction(counts, rhs, cross, nested, (self.t**2).sum(axis=0), len(keep), len(self.t), rounds)
 
     def moments(self, alpha: list[np.ndarray]) -> Moments:
         e = self.t.copy()

@@ -26,15 +26,16 @@ MAX_SINGLETON_ROUNDS = 200
 
 
 @dataclass(frozen=True)
-class Profile:
-    """What pass 1 found: row counts, incomplete rows per column, shifts."""
+class Start:
+    """What the first, cheap step found: row counts and the shift of every value column.
 
-    n_source: int | None
+    The shift is the mean of the first (up to 1,000) complete rows: any value
+    inside the data's range keeps the later sums small; it cancels exactly.
+    """
+
+    n_source: int
     n_filtered: int
-    n_complete: int
-    incomplete: dict[str, int]
-    means: np.ndarray
-    sds: np.ndarray
+    shift: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -52,9 +53,15 @@ class Reduction:
     cross: dict[tuple[int, int], sparse.csr_matrix]
     nested: list[bool]
     sumsq: np.ndarray
+    n_complete: int
     n_obs: int
-    singletons: int
     rounds: int
+    comoments: np.ndarray | None = None
+    cluster_codes: np.ndarray | None = None
+
+    @property
+    def singletons(self) -> int:
+        return self.n_complete - self.n_obs
 
 
 def _complete(spec: Spec) -> str:
@@ -79,41 +86,43 @@ def create_views(eng: Engine, spec: Spec) -> None:
     eng.execute("sample view", render("sample", complete=_complete(spec)))
 
 
-def profile(eng: Engine, spec: Spec) -> Profile:
-    """Pass 1: counts of filtered, complete and incomplete rows; means and spreads."""
-    complete = _complete(spec)
-    aggs: list[str] = []
-    checks: list[tuple[str, str]] = []
-    for j, name in enumerate([spec.y, *spec.x]):
-        aggs.append(f"count(*) FILTER (WHERE NOT coalesce(isfinite(v{j}), FALSE)) AS bad_v{j}")
-        checks.append((name, f"bad_v{j}"))
-    for d, cols in enumerate(spec.fe):
-        for name, alias in zip(cols, spec.key_aliases(d)):
-            aggs.append(f"count(*) FILTER (WHERE {alias} IS NULL) AS bad_{alias}")
-            checks.append((name, f"bad_{alias}"))
-    if spec.cluster:
-        aggs.append("count(*) FILTER (WHERE cl IS NULL) AS bad_cl")
-        checks.append((spec.cluster, "bad_cl"))
-    for v in spec.value_aliases:
-        aggs.append(f"avg({v}) FILTER (WHERE {complete}) AS mean_{v}")
-        aggs.append(f"stddev_pop({v}) FILTER (WHERE {complete}) AS sd_{v}")
-    row = eng.one("pass 1: profile", render("profile", complete=complete, aggregates=join(aggs)), raw=True)
-    n_source = None
-    if spec.where:
-        n_source = int(eng.one("count source", render("count_source"))["n"])
-    incomplete: dict[str, int] = {}
-    for name, key in checks:
-        incomplete[name] = max(incomplete.get(name, 0), int(row[key]))
-    if row["n_filtered"] == 0:
+def start(eng: Engine, spec: Spec, scans_to_count: bool) -> Start:
+    """Row counts (a metadata lookup for unfiltered Parquet) and the shifts, stored as ``bp_shift``."""
+    n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans_to_count or bool(spec.where))["n"])
+    n_source = int(eng.one("count source", render("count_source"))["n"]) if spec.where else n_filtered
+    if n_filtered == 0:
         raise BigPanelError(
             "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
         )
-    if row["n_complete"] == 0:
-        worst = max(incomplete, key=lambda c: incomplete[c])
-        raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {incomplete[worst]} rows")
-    means = np.array([row[f"mean_{v}"] for v in spec.value_aliases], dtype=float)
-    sds = np.array([row[f"sd_{v}"] for v in spec.value_aliases], dtype=float)
-    return Profile(n_source, int(row["n_filtered"]), int(row["n_complete"]), incomplete, means, sds)
+    avgs = join([f"avg({v}) AS m{j}" for j, v in enumerate(spec.value_aliases)])
+    row = eng.one("shifts", render("shift_sample", avgs=avgs, columns=join(spec.value_aliases, ", ")))
+    if row["m0"] is None:
+        bad = incomplete(eng, spec)
+        worst = max(bad, key=lambda c: bad[c])
+        raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {bad[worst]} rows")
+    shift = np.array([row[f"m{j}"] for j in range(len(spec.value_aliases))], dtype=float)
+    put_one_row(eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(shift)})
+    return Start(n_source, n_filtered, shift)
+
+
+def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
+    """Rows with a missing or non-finite value, per used column (a pass; run only when rows were lost)."""
+    aggs: list[str] = []
+    checks: list[tuple[str, str]] = []
+    for j, name in enumerate([spec.y, *spec.x]):
+        aggs.append(f"sum(CASE WHEN isfinite(v{j}) THEN 0 ELSE 1 END) AS bad_v{j}")
+        checks.append((name, f"bad_v{j}"))
+    keys = [(name, a) for d, cols in enumerate(spec.fe) for name, a in zip(cols, spec.key_aliases(d))]
+    if spec.cluster:
+        keys.append((spec.cluster, "cl"))
+    for name, alias in keys:
+        aggs.append(f"sum(CASE WHEN {alias} IS NULL THEN 1 ELSE 0 END) AS bad_{alias}")
+        checks.append((name, f"bad_{alias}"))
+    row = eng.one("incomplete rows per column", render("incomplete", aggregates=join(aggs)), raw=True)
+    out: dict[str, int] = {}
+    for name, key in checks:
+        out[name] = max(out.get(name, 0), int(row[key] or 0))
+    return out
 
 
 def put_one_row(eng: Engine, table: str, values: dict[str, float]) -> None:
@@ -153,12 +162,25 @@ def _single_levels(eng: Engine, spec: Spec) -> int:
     )
 
 
-def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, n_complete: int) -> Reduction:
-    """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays."""
+def _pairs(m: int) -> list[tuple[int, int]]:
+    return [(i, j) for i in range(m) for j in range(i, m)]
+
+
+def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
+    """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
+
+    With one effect the pass also takes each level's centred co-moments
+    n_g * covar_pop_g(v_i, v_j), computed by DuckDB's numerically stable
+    streaming aggregate; their sum over levels is the demeaned cross-product
+    matrix, so no further pass is needed for the slopes.
+    """
     k = len(spec.fe)
+    m = len(spec.value_aliases)
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
     sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
     sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
+    if k == 1:
+        sums += [f"covar_pop(v{i}, v{j}) * count(*) AS c{i}_{j}" for i, j in _pairs(m)]
     if spec.cluster:
         sums += ["min(cl) AS cl_min", "max(cl) AS cl_max"]
     else:
@@ -166,11 +188,16 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, n_complete: int
     sets = join(["(" + ", ".join(a for d in s for a in spec.key_aliases(d)) + ")" for s in _sets(spec)], ", ")
     filters = ""
     rounds = 0
+    n_complete = None
     while True:
         rounds += 1
         sql = render("cells", keys=all_keys, sums=join(sums), filters=filters, sets=sets)
         eng.execute(f"pass 2: group-level statistics (round {rounds})", sql, raw=True)
         _build_levels(eng, spec, min_count=1)
+        if n_complete is None:
+            n_complete = int(eng.one("complete rows", render("level_rows", table="bp_lev_1"))["n"] or 0)
+            if n_complete == 0:
+                raise BigPanelError("no complete rows: every row misses a used value")
         if not drop_singletons or _single_levels(eng, spec) == 0:
             break
         _build_levels(eng, spec, min_count=2)
@@ -184,22 +211,25 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, n_complete: int
     return _fetch(eng, spec, n_complete, rounds)
 
 
-def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, bool]:
-    tab = eng.arrow("level counts", render("level_table", columns="n, nested", table=f"bp_lev_{d + 1}"))
+def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, bool, np.ndarray | None]:
+    tab = eng.arrow("level counts", render("level_table", columns="n, nested, cl_value", table=f"bp_lev_{d + 1}"))
     counts = tab.column("n").to_numpy().astype(float)
     nested = bool(spec.cluster) and bool(pc.all(tab.column("nested")).as_py())
-    return counts, nested
+    cluster = pc.dictionary_encode(tab.column("cl_value")).combine_chunks().indices.to_numpy() if nested else None
+    return counts, nested, cluster
 
 
 def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
     k = len(spec.fe)
     m = len(spec.value_aliases)
-    counts, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
+    counts, nested, clusters = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
     for d in range(k):
         if len(counts[d]) == 0:
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
     rhs: list[np.ndarray | None] = [None] * k
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
+    comoments = None
+    co_cols = [f"c.c{i}_{j}" for i, j in _pairs(m)] if k == 1 else []
     for dims in _sets(spec):
         codes = join([f"l{d + 1}.code AS c{d + 1}" for d in dims], ", ")
         joins = "\n".join(
@@ -208,7 +238,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         sql = render(
             "cell_stats",
             codes=codes,
-            sums=join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", "),
+            sums=join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)] + co_cols, ", "),
             joins=joins,
             order=join([f"c{d + 1}" for d in dims], ", "),
         )
@@ -218,6 +248,10 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
         if dims == _sets(spec)[0]:
             sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
+        if co_cols:
+            comoments = np.zeros((len(n), m, m))
+            for i, j in _pairs(m):
+                comoments[:, i, j] = comoments[:, j, i] = tab.column(f"c{i}_{j}").to_numpy()
         for d in dims:
             if rhs[d] is None:
                 g = len(counts[d])
@@ -225,14 +259,15 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         if len(dims) == 2:
             d, e = dims
             cross[dims] = sparse.csr_matrix((n, (code[d], code[e])), shape=(len(counts[d]), len(counts[e])))
-    n_obs = int(counts[0].sum())
     return Reduction(
         counts=list(counts),
         rhs=[r for r in rhs if r is not None],
         cross=cross,
         nested=list(nested),
         sumsq=sumsq,
-        n_obs=n_obs,
-        singletons=n_complete - n_obs,
+        n_complete=n_complete,
+        n_obs=int(counts[0].sum()),
         rounds=rounds,
+        comoments=comoments,
+        cluster_codes=clusters[0],
     )

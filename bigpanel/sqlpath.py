@@ -7,7 +7,7 @@ import pyarrow as pa
 
 from .engine import Engine
 from .moments import Moments, create_tilde, cross_products, meat_cluster, meat_hc, store_effects
-from .reduce import Profile, Reduction, create_views, profile, put_one_row, reduce_cells
+from .reduce import Reduction, Start, create_views, incomplete, reduce_cells, start
 from .spec import Spec
 from .sqltext import join, render
 
@@ -17,9 +17,13 @@ class SqlBackend:
 
     name = "duckdb"
 
-    def __init__(self, eng: Engine, spec: Spec) -> None:
+    def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
         self.eng = eng
         self.spec = spec
+        self.source_kind = source_kind
+        self.red: Reduction | None = None
+        self.alpha: list[np.ndarray] = []
+        self.demeaned_view = False
         create_views(eng, spec)
 
     @property
@@ -30,23 +34,48 @@ class SqlBackend:
     def timings(self) -> dict[str, float]:
         return self.eng.timings
 
-    def profile(self) -> Profile:
-        prof = profile(self.eng, self.spec)
-        put_one_row(self.eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(prof.means)})
-        return prof
+    def start(self) -> Start:
+        return start(self.eng, self.spec, scans_to_count=self.source_kind == "csv")
 
-    def reduce(self, drop_singletons: bool, n_complete: int) -> Reduction:
-        return reduce_cells(self.eng, self.spec, drop_singletons, n_complete)
+    def reduce(self, drop_singletons: bool) -> Reduction:
+        self.red = reduce_cells(self.eng, self.spec, drop_singletons)
+        return self.red
+
+    def incomplete(self) -> dict[str, int]:
+        return incomplete(self.eng, self.spec)
+
+    def _demeaned(self) -> None:
+        """Join the solved effects back to the rows (the view ``bp_tilde``), once."""
+        if not self.demeaned_view:
+            store_effects(self.eng, [self.level_keys(d) for d in range(len(self.alpha))], self.alpha)
+            create_tilde(self.eng, self.spec)
+            self.demeaned_view = True
 
     def moments(self, alpha: list[np.ndarray]) -> Moments:
-        store_effects(self.eng, [self.level_keys(d) for d in range(len(alpha))], alpha)
-        create_tilde(self.eng, self.spec)
+        """One effect: the sum of the levels' co-moments (no pass). More: pass 3."""
+        self.alpha = alpha
+        red = self.red
+        if red.comoments is not None:
+            m = red.comoments.shape[1]
+            return Moments(red.n_obs, red.comoments.sum(axis=0), np.zeros(m), red.rhs[0].sum(axis=0), red.sumsq)
+        self._demeaned()
         return cross_products(self.eng, len(self.spec.value_aliases))
 
     def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
+        self._demeaned()
         return meat_hc(self.eng, keep, beta)
 
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
+        """One effect nested in the cluster: scores from the levels' co-moments (no pass)."""
+        red = self.red
+        if red.comoments is not None and red.cluster_codes is not None:
+            c = red.comoments
+            scores = c[:, keep, 0] - c[:, keep][:, :, keep] @ beta
+            n_clusters = int(red.cluster_codes.max()) + 1
+            by_cluster = np.zeros((n_clusters, len(keep)))
+            np.add.at(by_cluster, red.cluster_codes, scores)
+            return n_clusters, by_cluster.T @ by_cluster
+        self._demeaned()
         return meat_cluster(self.eng, keep, beta)
 
     def level_keys(self, d: int) -> pa.Table:

@@ -17,21 +17,14 @@ FROM bp_filtered
 WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL
 
 ;
--- Pass 1: rows after the filter, rows complete in every used column, the
--- incomplete count per column, and each value column's mean and spread on the
--- complete rows (the means become the shifts that keep later sums small).
-SELECT count(*) AS n_filtered,
-       count(*) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS n_complete,
-       count(*) FILTER (WHERE NOT coalesce(isfinite(v0), FALSE)) AS bad_v0,
-       count(*) FILTER (WHERE NOT coalesce(isfinite(v1), FALSE)) AS bad_v1,
-       count(*) FILTER (WHERE f1_1 IS NULL) AS bad_f1_1,
-       count(*) FILTER (WHERE f2_1 IS NULL) AS bad_f2_1,
-       count(*) FILTER (WHERE cl IS NULL) AS bad_cl,
-       avg(v0) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS mean_v0,
-       stddev_pop(v0) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS sd_v0,
-       avg(v1) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS mean_v1,
-       stddev_pop(v1) FILTER (WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL) AS sd_v1
-FROM bp_filtered
+-- Rows after the user's filter (before listwise deletion).
+SELECT count(*) AS n FROM bp_filtered
+
+;
+-- The shifts: means of the first complete rows (at most 1,000; file order).
+SELECT avg(v0) AS m0,
+       avg(v1) AS m1
+FROM (SELECT v0, v1 FROM bp_sample LIMIT 1000) AS head
 
 ;
 -- A one-row helper table of numbers bound as parameters (shifts, coefficients).
@@ -59,13 +52,14 @@ GROUP BY GROUPING SETS ((f1_1, f2_1))
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count, and whether all its rows share one cluster value.
+-- count, whether all its rows share one cluster value, and that value.
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
        n,
-       nested
-FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
+       nested,
+       cl_value
+FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested, min(cl_min) AS cl_value
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f1_1
@@ -73,17 +67,22 @@ FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count, and whether all its rows share one cluster value.
+-- count, whether all its rows share one cluster value, and that value.
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
        n,
-       nested
-FROM (SELECT f2_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
+       nested,
+       cl_value
+FROM (SELECT f2_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested, min(cl_min) AS cl_value
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f2_1
       HAVING sum(n) >= $min_count) AS lv
+
+;
+-- Rows covered by the levels of one effect.
+SELECT sum(n) AS n FROM bp_lev_1
 
 ;
 -- How many levels of one effect hold a single row.
@@ -95,11 +94,11 @@ SELECT count(*) AS n_single FROM bp_lev_2 WHERE n = 1
 
 ;
 -- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT n, nested FROM bp_lev_1 ORDER BY code
+SELECT n, nested, cl_value FROM bp_lev_1 ORDER BY code
 
 ;
 -- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT n, nested FROM bp_lev_2 ORDER BY code
+SELECT n, nested, cl_value FROM bp_lev_2 ORDER BY code
 
 ;
 -- One grouping set of the cells with integer level codes, for numpy.

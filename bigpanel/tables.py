@@ -1,0 +1,223 @@
+"""Side-by-side tables of saved fits: one grid of cells, rendered as Markdown, LaTeX, CSV or rich.
+
+``load_fits`` reads results written by ``FitResult.to_json()``; ``build_table``
+turns them into a :class:`ModelTable` (header, coefficient rows, footer rows,
+notes), every cell already a string; each renderer only lays that grid out.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+from rich import box
+from rich.table import Table
+from rich.text import Text
+
+from .errors import BigPanelError
+
+STARS = ((0.01, "***"), (0.05, "**"), (0.1, "*"))
+VCOV_NAMES = {"iid": "iid", "hc1": "HC1", "cluster": "cluster-robust"}
+LATEX_SPECIAL = {
+    "\\": r"\textbackslash{}",
+    "~": r"\textasciitilde{}",
+    "^": r"\textasciicircum{}",
+    "<": r"\textless{}",
+    ">": r"\textgreater{}",
+    "|": r"\textbar{}",
+    **{ch: "\\" + ch for ch in "_%&#${}"},
+}
+MISSING = "n/a"
+
+Row = list[str]
+
+
+@dataclass(frozen=True)
+class ModelTable:
+    """The cells of a model table; every row is a label followed by one cell per fit.
+
+    ``body`` alternates an estimate row (label: the regressor) and a standard
+    error row (label: empty); ``footer`` holds N, the effects, the variance type,
+    the within R-squared and, when they differ, the outcome and estimator.
+    """
+
+    header: Row
+    body: list[Row]
+    footer: list[Row]
+    notes: list[str]
+
+    def sections(self) -> list[list[Row]]:
+        """Header, body and footer, in the order they are drawn."""
+        return [[self.header], self.body, self.footer]
+
+
+def load_fits(paths: list[str]) -> list[dict[str, Any]]:
+    """Read saved results (``bigpanel fit ... --save FILE.json``); a bad file raises ``BigPanelError``."""
+    fits = []
+    for path in paths:
+        try:
+            doc = json.loads(Path(path).read_text())
+        except OSError as exc:
+            raise BigPanelError(f"cannot read {path}: {exc.strerror or exc}") from None
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise BigPanelError(f"{path} is not valid JSON ({exc})") from None
+        if not isinstance(doc, dict) or "coefficients" not in doc or "nobs" not in doc:
+            raise BigPanelError(f"{path} is not a saved bigpanel result (no 'coefficients' or 'nobs')")
+        fits.append(doc)
+    return fits
+
+
+def format_number(value: float | None, digits: int = 4) -> str:
+    """``value`` with ``digits`` decimals, or in exponent form with ``digits`` significant digits
+    (at least one) when it is nonzero and below 10^-digits or at least 10^6 in magnitude;
+    ``n/a`` when missing."""
+    if value is None:
+        return MISSING
+    size = abs(value)
+    if size >= 1e6 or 0 < size < 10.0**-digits:
+        return f"{value:.{max(digits - 1, 0)}e}"
+    return f"{value:.{digits}f}"
+
+
+def _stars(p: float | None) -> str:
+    if p is None:
+        return ""
+    return next((mark for cut, mark in STARS if p < cut), "")
+
+
+def _first_seen(groups: list[list[str]]) -> list[str]:
+    return list(dict.fromkeys(name for group in groups for name in group))
+
+
+def _variance(fit: dict[str, Any]) -> str:
+    vcov = fit.get("vcov") or {}
+    kind = vcov.get("type", "")
+    name = VCOV_NAMES.get(kind, kind)
+    return f"{name} by {vcov['cluster']}" if kind == "cluster" and vcov.get("cluster") else name
+
+
+def _coefficient_rows(fits: list[dict[str, Any]], stars: bool, digits: int) -> list[Row]:
+    rows = []
+    for name in _first_seen([list(f["coefficients"]) for f in fits]):
+        estimates, errors = [name], [""]
+        for fit in fits:
+            coef = fit["coefficients"].get(name)
+            if coef is None:
+                estimates.append("")
+                errors.append("")
+                continue
+            mark = _stars(coef.get("p_value")) if stars else ""
+            estimates.append(format_number(coef.get("estimate"), digits) + mark)
+            errors.append(f"({format_number(coef.get('std_error'), digits)})")
+        rows += [estimates, errors]
+    return rows
+
+
+def _footer_rows(fits: list[dict[str, Any]], digits: int) -> list[Row]:
+    effects = [[d["name"] for d in f.get("fixed_effects") or []] for f in fits]
+    rows = [["N", *(f"{int(f['nobs']):,}" for f in fits)]]
+    rows += [[f"{name} effects", *("yes" if name in have else "" for have in effects)] for name in _first_seen(effects)]
+    rows.append(["variance", *map(_variance, fits)])
+    rows.append(["within R-squared", *(format_number((f.get("fit") or {}).get("r2_within"), digits) for f in fits)])
+    for key, usual in (("outcome", fits[0].get("outcome")), ("estimator", "within")):
+        values = [f.get(key) for f in fits]
+        if any(value != usual for value in values):
+            rows.append([key, *(str(value or "") for value in values)])
+    return rows
+
+
+def build_table(
+    fits: list[dict[str, Any]],
+    stars: bool = False,
+    digits: int = 4,
+    labels: list[str] | None = None,
+) -> ModelTable:
+    """One column per fit (headed ``(1)``, ``(2)``, ... or ``labels``): each regressor's estimate
+    with its standard error in parentheses beneath, blank where a fit lacks it, then the footer.
+
+    With ``stars``, estimates get *** for p < 0.01, ** for p < 0.05 and * for p < 0.1.
+    """
+    if not fits:
+        raise BigPanelError("no fits to tabulate: give at least one saved result")
+    if labels is not None and len(labels) != len(fits):
+        raise BigPanelError(f"{len(labels)} column labels for {len(fits)} fits")
+    if digits < 0:
+        raise BigPanelError(f"digits must be 0 or more, not {digits}")
+    header = ["", *(labels if labels is not None else (f"({i})" for i in range(1, len(fits) + 1)))]
+    notes = ["standard errors in parentheses"]
+    if stars:
+        notes.append("significance: " + "; ".join(f"{mark} p < {cut}" for cut, mark in STARS))
+    return ModelTable(header, _coefficient_rows(fits, stars, digits), _footer_rows(fits, digits), notes)
+
+
+def to_markdown(table: ModelTable) -> str:
+    """A GitHub pipe table, columns padded to a common width, then each note as a paragraph."""
+    rows = [[cell.replace("|", r"\|") for cell in row] for section in table.sections() for row in section]
+    widths = [max(3, *map(len, column)) for column in zip(*rows)]
+
+    def line(cells: Row) -> str:
+        return "| " + " | ".join(cell.ljust(w) for cell, w in zip(cells, widths)) + " |"
+
+    rule = "|" + "|".join([":" + "-" * (widths[0] + 1)] + [":" + "-" * w + ":" for w in widths[1:]]) + "|"
+    return "\n".join([line(rows[0]), rule, *map(line, rows[1:])]) + "\n\n" + "\n\n".join(table.notes) + "\n"
+
+
+def _latex_escape(text: str) -> str:
+    return "".join(LATEX_SPECIAL.get(ch, ch) for ch in text)
+
+
+def to_latex(table: ModelTable) -> str:
+    """A booktabs tabular (one l column, one c column per fit); the notes span the width below."""
+    width = len(table.header)
+    lines = [rf"\begin{{tabular}}{{l{'c' * (width - 1)}}}", r"\toprule"]
+    for i, section in enumerate(table.sections()):
+        if i:
+            lines.append(r"\midrule")
+        lines += [" & ".join(map(_latex_escape, row)) + r" \\" for row in section]
+    lines.append(r"\bottomrule")
+    lines += [rf"\multicolumn{{{width}}}{{l}}{{{_latex_escape(note)}}} \\" for note in table.notes]
+    lines.append(r"\end{tabular}")
+    return "\n".join(lines) + "\n"
+
+
+def to_csv(table: ModelTable) -> str:
+    """The grid as CSV rows (standard error rows have an empty first cell), then one row per note."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerows(row for section in table.sections() for row in section)
+    writer.writerows([note] for note in table.notes)
+    return buf.getvalue()
+
+
+def to_rich(table: ModelTable) -> Table:
+    """A rich table for the terminal, the footer set apart from the coefficients; notes as the caption."""
+    out = Table(box=box.SIMPLE_HEAD, show_edge=False, header_style="bold", caption=Text("\n".join(table.notes)))
+    out.add_column(Text(table.header[0]))
+    for name in table.header[1:]:
+        out.add_column(Text(name), justify="center")
+    for i, row in enumerate(table.body):
+        out.add_row(*map(Text, row), end_section=i == len(table.body) - 1)
+    for row in table.footer:
+        out.add_row(*map(Text, row))
+    return out
+
+
+RENDERERS: dict[str, Callable[[ModelTable], str | Table]] = {
+    "terminal": to_rich,
+    "markdown": to_markdown,
+    "latex": to_latex,
+    "csv": to_csv,
+}
+
+
+def render(table: ModelTable, fmt: str) -> str | Table:
+    """The table in ``fmt``: ``terminal`` (a rich renderable), ``markdown``, ``latex`` or ``csv``."""
+    try:
+        renderer = RENDERERS[fmt]
+    except KeyError:
+        raise BigPanelError(f"unknown table format {fmt!r}; choose one of {', '.join(RENDERERS)}") from None
+    return renderer(table)

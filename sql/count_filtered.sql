@@ -1,0 +1,2 @@
+-- Rows after the user's filter (before listwise deletion).
+SELECT count(*) AS n FROM bp_filtered
