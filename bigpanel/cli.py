@@ -3,19 +3,29 @@
 from __future__ import annotations
 
 import contextlib
+import functools
+import inspect
+import json
 import sys
 import traceback
 from pathlib import Path
-from typing import Iterator, List, Optional
+from typing import Callable, Iterator, List, Optional
 
 import typer
+from rich import box
 from rich.console import Console
+from rich.table import Table
 
+from .bench import bench_renderable, compare_engines
 from .demo import write_demo
 from .errors import BigPanelError
 from .files import write_parquet, write_text
 from .estimate import fit as run_fit
+from .describe import describe_panel, describe_renderable
+from .plots import plot_effects, plot_periods
 from .report import fit_renderable
+from .tables import build_table, load_fits
+from .tables import render as render_table
 
 app = typer.Typer(
     help=(
@@ -70,8 +80,7 @@ def _safe_name(name: str) -> str:
     return "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in name)
 
 
-@app.command("fit")
-def fit_command(
+def _model_options(
     source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
     formula: Optional[str] = typer.Argument(None, help="Model as 'y ~ x1 + x2' (or use --y and --x)."),
     y: Optional[str] = typer.Option(None, "--y", help="Outcome column."),
@@ -81,61 +90,184 @@ def fit_command(
     vcov: Optional[str] = typer.Option(None, "--vcov", help="iid, hc1 or cluster (default: cluster if --cluster, else iid)."),
     where: Optional[str] = typer.Option(None, "--where", help="Row filter: one SQL boolean expression over the source's columns."),
     table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
-    json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
-    save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
-    effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),
     tol: float = typer.Option(1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns."),
     max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations."),
     keep_singletons: bool = typer.Option(False, "--keep-singletons", help="Keep rows alone in a fixed-effect level."),
     memory_limit: Optional[str] = typer.Option(None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills."),
     temp_dir: Optional[str] = typer.Option(None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit."),
     threads: Optional[int] = typer.Option(None, "--threads", help="DuckDB worker threads (default: all cores)."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
     debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+) -> None:
+    """The model options shared by every command that fits (their declarations live here once)."""
+
+
+_SHARED = inspect.signature(_model_options).parameters
+
+
+def model_command(fn: Callable[..., None]) -> Callable[..., None]:
+    """Give ``fn(model, **own)`` the shared model options; ``model`` holds them as ``fit`` keywords."""
+    own = [p for p in inspect.signature(fn).parameters.values() if p.name != "model"]
+
+    @functools.wraps(fn)
+    def wrapper(**kwargs: object) -> None:
+        shared = {name: kwargs.pop(name) for name in _SHARED}
+        with guarded(bool(shared.pop("debug"))):
+            shared["x"] = shared["x"] or None
+            shared["drop_singletons"] = not shared.pop("keep_singletons")
+            fn(model=shared, **kwargs)
+
+    params = list(_SHARED.values()) + own
+    wrapper.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
+    wrapper.__annotations__ = {p.name: p.annotation for p in params}
+    return wrapper
+
+
+@app.command("fit")
+@model_command
+def fit_command(
+    model: dict,
+    engine: str = typer.Option("duckdb", "--engine", help="duckdb (data stay in the engine) or memory (load into numpy)."),
+    json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
+    save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
+    effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week --cluster store
     """
-    with guarded(debug):
-        with progress(quiet or json_out) as on_step:
-            res = run_fit(
-                source,
-                formula,
-                y=y,
-                x=x or None,
-                fe=fe,
-                cluster=cluster,
-                vcov=vcov,
-                where=where,
-                table=table,
-                tol=tol,
-                max_iter=max_iter,
-                drop_singletons=not keep_singletons,
-                memory_limit=memory_limit,
-                temp_dir=temp_dir,
-                threads=threads,
-                on_step=on_step,
-            )
-        if save is not None:
-            write_text(save, res.to_json())
+    with progress(quiet or json_out) as on_step:
+        res = run_fit(**model, engine=engine, on_step=on_step)
+    if save is not None:
+        write_text(save, res.to_json())
+    if effects_out is not None:
+        for name, tab in res.effects.items():
+            write_parquet(Path(effects_out) / f"effects_{_safe_name(name)}.parquet", tab)
+    if json_out:
+        sys.stdout.write(res.to_json() + "\n")
+    else:
+        out.print(fit_renderable(res))
         if effects_out is not None:
-            for name, tab in res.effects.items():
-                write_parquet(Path(effects_out) / f"effects_{_safe_name(name)}.parquet", tab)
+            for name, s in res.effects_summary().items():
+                out.print(
+                    f"effects of {name}: {s['levels']:,} levels, mean {s['mean']:.4g}, sd {s['sd'] or 0:.4g}, "
+                    f"min {s['min']:.4g}, max {s['max']:.4g} -> {effects_out}/effects_{_safe_name(name)}.parquet",
+                    highlight=False,
+                )
+    if not res.solver["converged"]:
+        raise typer.Exit(3)
+
+
+@app.command("effects")
+@model_command
+def effects_command(
+    model: dict,
+    out_dir: Path = typer.Option(..., "--out", help="Folder for one Parquet file per effect (level, effect, rows)."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the effects' histograms to this PNG (needs matplotlib)."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
+) -> None:
+    """Fit the model and export the estimated fixed effects of every dimension, with a summary.
+
+    Normalisation: one effect holds the intercept (mean_g(y) - mean_g(x)'b); with more, effect 2 has
+    row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
+    Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
+    """
+    with progress(quiet) as on_step:
+        res = run_fit(**model, on_step=on_step)
+    table = Table(box=box.SIMPLE_HEAD, title="estimated effects", title_justify="left")
+    for col in ("effect", "levels", "mean", "sd", "min", "max", "file"):
+        table.add_column(col, justify="left" if col in ("effect", "file") else "right")
+    for name, tab in res.effects.items():
+        path = Path(out_dir) / f"effects_{_safe_name(name)}.parquet"
+        write_parquet(path, tab)
+        s = res.effects_summary()[name]
+        sd = f"{s['sd']:.4g}" if s["sd"] is not None else ""
+        table.add_row(name, f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}", str(path))
+    if plot is not None:
+        plot_effects(res.effects, plot)
+    out.print(table)
+    if plot is not None:
+        out.print(f"histograms: {plot}", highlight=False)
+
+
+@app.command("bench")
+@model_command
+def bench_command(
+    model: dict,
+    json_out: bool = typer.Option(False, "--json", help="Print the comparison as JSON."),
+) -> None:
+    """Fit the model in DuckDB and in memory on the same data; compare time, peak memory and estimates.
+
+    Each run is a fresh child process, so peak memory is its own. Example:
+    bigpanel bench sales.parquet 'log_units ~ log_price + promo' --fe store --where "store <= 50"
+    """
+    report = compare_engines(model)
+    if json_out:
+        sys.stdout.write(json.dumps(report, indent=2) + "\n")
+    else:
+        out.print(bench_renderable(report))
+
+
+@app.command("describe")
+def describe_command(
+    source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
+    id: str = typer.Option(..., "--id", help="Unit identifier column (worker, firm, store...)."),
+    time: str = typer.Option(..., "--time", help="Period column (year, quarter, week...)."),
+    effects: Optional[List[str]] = typer.Option(
+        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them."
+    ),
+    table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Draw the distribution of periods per unit to this PNG."),
+    json_out: bool = typer.Option(False, "--json", help="Print the description as JSON."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+) -> None:
+    """Describe the panel before any model: shape, balance, gaps, duplicated keys, missing values,
+    time-invariant columns, and connected components of two effects.
+
+    Example: bigpanel describe sales.parquet --id store --time week --effects store --effects product --plot periods.png
+    """
+    with guarded(debug):
+        if effects is not None and len(effects) != 2:
+            raise BigPanelError(f"--effects takes exactly two columns (got {len(effects)}): --effects a --effects b")
+        with progress(quiet or json_out) as on_step:
+            desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None, on_step=on_step)
+        if plot is not None:
+            plot_periods(desc, plot)
         if json_out:
-            sys.stdout.write(res.to_json() + "\n")
+            sys.stdout.write(json.dumps(desc.to_dict(), indent=2) + "\n")
         else:
-            out.print(fit_renderable(res))
-            if effects_out is not None:
-                summ = res.effects_summary()
-                for name, s in summ.items():
-                    out.print(
-                        f"effects of {name}: {s['levels']:,} levels, mean {s['mean']:.4g}, sd {s['sd'] or 0:.4g}, "
-                        f"min {s['min']:.4g}, max {s['max']:.4g} -> {effects_out}/effects_{_safe_name(name)}.parquet",
-                        highlight=False,
-                    )
-        if not res.solver["converged"]:
-            raise typer.Exit(3)
+            out.print(describe_renderable(desc))
+            if plot is not None:
+                out.print(f"periods per unit: {plot}", highlight=False)
+
+
+@app.command("table")
+def table_command(
+    fits: List[Path] = typer.Argument(..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json')."),
+    to: str = typer.Option("terminal", "--to", help="terminal, markdown, latex (booktabs) or csv."),
+    stars: bool = typer.Option(False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1)."),
+    digits: int = typer.Option(4, "--digits", help="Decimals shown for estimates and standard errors."),
+    label: Optional[List[str]] = typer.Option(None, "--label", help="Column heading; repeat once per fit."),
+    out_file: Optional[Path] = typer.Option(None, "--out", help="Write the table to this file instead of the terminal."),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+) -> None:
+    """Lay saved fits side by side: slopes with standard errors beneath, N, effects, variance, within R2.
+
+    Example: bigpanel table one.json two.json three.json --to latex --out table.tex
+    """
+    with guarded(debug):
+        table = build_table(load_fits([str(f) for f in fits]), stars=stars, digits=digits, labels=label or None)
+        rendered = render_table(table, to)
+        if out_file is not None:
+            if not isinstance(rendered, str):
+                raise BigPanelError("--out needs a file format: use --to markdown, latex or csv")
+            write_text(out_file, rendered)
+            out.print(f"wrote {out_file}", highlight=False)
+        elif isinstance(rendered, str):
+            sys.stdout.write(rendered)
+        else:
+            out.print(rendered)
 
 
 @app.command("demo")

@@ -13,7 +13,6 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import asdict, dataclass
-from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
@@ -26,7 +25,6 @@ from scipy.sparse.csgraph import connected_components
 
 from .engine import Engine
 from .errors import BigPanelError
-from .files import atomic_path
 from .source import Source, connect, open_source
 from .spec import _NUMERIC, _check_column
 from .sqltext import ident, join, render
@@ -341,24 +339,3 @@ def describe_renderable(desc: PanelDescription) -> Group:
     if not desc.warnings:
         parts.append(Text("none"))
     return Group(*parts)
-
-
-def plot_periods(desc: PanelDescription, path: str | Path) -> None:
-    """Draw the number of units by number of distinct periods as a bar chart PNG at ``path``."""
-    try:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-        from matplotlib.ticker import MaxNLocator
-    except ImportError:
-        raise BigPanelError("--plot needs matplotlib: pip install 'bigpanel[plot]'") from None
-    periods, units = zip(*desc.period_histogram)
-    fig = Figure(figsize=(7, 4), layout="constrained")
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
-    ax.bar(periods, units, width=0.8, color="#4c72b0")
-    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
-    ax.set_xlabel(f"distinct periods ({desc.time}) per unit")
-    ax.set_ylabel(f"units ({desc.id})")
-    ax.set_title(f"periods per unit: {desc.units:,} units, {desc.periods:,} periods")
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=120)

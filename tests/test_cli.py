@@ -122,3 +122,38 @@ def test_help_explains_options():
     assert out.exit_code == 0
     for word in ["--fe", "--cluster", "--vcov", "--where", "--effects-out", "--memory-limit", "Example"]:
         assert word in out.stdout
+
+
+def test_table_command_formats(panel_path, tmp_path):
+    _, path = panel_path
+    files = []
+    for i, extra in enumerate([[], ["--fe", "period", "--cluster", "unit"]]):
+        f = tmp_path / f"m{i}.json"
+        assert run("fit", path, "y ~ x1 + x3", "--fe", "unit", *extra, "--save", str(f), "-q").exit_code == 0
+        files.append(str(f))
+    out = run("table", *files, "--to", "markdown")
+    assert out.exit_code == 0 and "| x1" in out.stdout and "period effects" in out.stdout
+    tex = tmp_path / "t.tex"
+    out = run("table", *files, "--to", "latex", "--out", str(tex))
+    assert out.exit_code == 0 and "\\toprule" in tex.read_text()
+    out = run("table", *files, "--to", "pdf")
+    assert out.exit_code == 2 and "pdf" in out.output
+
+
+def test_effects_command_writes_files_and_plot(panel_path, tmp_path):
+    _, path = panel_path
+    out = run("effects", path, "y ~ x1 + x3", "--fe", "unit", "--fe", "period", "--out", str(tmp_path / "fx"),
+              "--plot", str(tmp_path / "fx.png"))
+    assert out.exit_code == 0, out.output
+    assert (tmp_path / "fx" / "effects_unit.parquet").exists()
+    assert (tmp_path / "fx.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_bench_command_compares_engines(panel_path):
+    _, path = panel_path
+    out = run("bench", path, "y ~ x1 + x3", "--fe", "unit", "--json")
+    assert out.exit_code == 0, out.output
+    doc = json.loads(out.stdout)
+    assert set(doc["runs"]) == {"scan", "duckdb", "memory"}
+    assert all(r["ok"] for r in doc["runs"].values())
+    assert doc["max_abs_coef_diff"] < 1e-9
