@@ -169,7 +169,8 @@ def _pairs(m: int) -> list[tuple[int, int]]:
 def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
     """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
 
-    With one effect the pass also takes each level's centred co-moments
+    Per cell: the row count and sums of the shifted columns; with two or more
+    effects also their sums of squares. With one effect the pass instead takes each level's centred co-moments
     n_g * covar_pop_g(v_i, v_j), computed by DuckDB's numerically stable
     streaming aggregate; their sum over levels is the demeaned cross-product
     matrix, so no further pass is needed for the slopes.
@@ -178,9 +179,10 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
     m = len(spec.value_aliases)
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
     sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
-    sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
     if k == 1:
         sums += [f"covar_pop(v{i}, v{j}) * count(*) AS c{i}_{j}" for i, j in _pairs(m)]
+    else:
+        sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
     if spec.cluster:
         sums += ["min(cl) AS cl_min", "max(cl) AS cl_max"]
     else:
@@ -238,7 +240,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         sql = render(
             "cell_stats",
             codes=codes,
-            sums=join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)] + co_cols, ", "),
+            sums=join([f"c.s{j}" for j in range(m)] + (co_cols or [f"c.q{j}" for j in range(m)]), ", "),
             joins=joins,
             order=join([f"c{d + 1}" for d in dims], ", "),
         )
@@ -246,12 +248,14 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         code = {d: tab.column(f"c{d + 1}").to_numpy() for d in dims}
         n = tab.column("n").to_numpy().astype(float)
         s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
-        if dims == _sets(spec)[0]:
-            sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
         if co_cols:
             comoments = np.zeros((len(n), m, m))
             for i, j in _pairs(m):
                 comoments[:, i, j] = comoments[:, j, i] = tab.column(f"c{i}_{j}").to_numpy()
+            # sum of t^2 = sum over levels of (within co-moment + s^2 / n): positive terms, no cancellation
+            sumsq = np.einsum("gjj->j", comoments) + (s**2 / n[:, None]).sum(axis=0)
+        elif dims == _sets(spec)[0]:
+            sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
         for d in dims:
             if rhs[d] is None:
                 g = len(counts[d])
