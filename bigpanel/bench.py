@@ -22,22 +22,24 @@ from .sqltext import ident, join, render
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     """One aggregate pass over the model's columns: sums of values, minimum of keys."""
     from .estimate import _as_list
-    from .source import connect, open_source
+    from .source import open_session
     from .spec import build_spec, parse_formula
 
     y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], _as_list(model["x"])))
-    con = connect(model.get("memory_limit"), model.get("temp_dir"), model.get("threads"))
+    eng, src = open_session(
+        model["source"], model.get("table"), memory_limit=model.get("memory_limit"),
+        temp_dir=model.get("temp_dir"), threads=model.get("threads"),
+    )
     try:
-        src = open_source(con, model["source"], model.get("table"))
         spec = build_spec(src, y, x, _as_list(model["fe"]), model.get("cluster"), model.get("vcov"), model.get("where"))
         aggs = [f"sum(CAST({ident(c)} AS DOUBLE)) AS s{i}" for i, c in enumerate([spec.y, *spec.x])]
         keys = [c for cols in spec.fe for c in cols] + ([spec.cluster] if spec.cluster else [])
         aggs += [f"min({ident(c)}) AS k{i}" for i, c in enumerate(dict.fromkeys(keys))]
         where = f"({spec.where})" if spec.where else "TRUE"
-        row = con.execute(render("scan_floor", aggregates=join(aggs), where=where)).fetchall()[0]
-        return {"nobs": int(row[0]), "raw_passes": 1}
+        row = eng.one("scan", render("scan_floor", aggregates=join(aggs), where=where), raw=True)
+        return {"nobs": int(row["n"]), "raw_passes": eng.raw_passes}
     finally:
-        con.close()
+        eng.close()
 
 
 def _fit(model: dict[str, Any], engine: str) -> dict[str, Any]:

@@ -25,7 +25,7 @@ from scipy.sparse.csgraph import connected_components
 
 from .engine import Engine
 from .errors import BigPanelError
-from .source import Source, connect, open_source
+from .source import Source, open_session
 from .spec import _NUMERIC, _check_column
 from .sqltext import ident, join, render
 
@@ -192,14 +192,14 @@ def describe_panel(
     levels of ``a`` and ``b`` that share a row (the C in P = G_1 + G_2 - C).
     ``memory_limit``, ``temp_dir`` and ``threads`` are DuckDB's settings.
     """
-    con = connect(memory_limit, temp_dir, threads)
+    eng, src = open_session(
+        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step
+    )
     try:
-        src = open_source(con, source, table)
         _check_columns(src, id, time, effects)
         names, kinds = list(src.columns), list(src.columns.values())
         numeric = [j for j, (name, kind) in enumerate(src.columns.items())
                    if name not in (id, time) and _NUMERIC.match(kind)]
-        eng = Engine(con, on_step=on_step)
         columns = join([f"{ident(name)} AS {_col(j)}" for j, name in enumerate(names)])
         eng.execute("name columns", render("describe_view", id=ident(id), time=ident(time), columns=columns))
         counts = _count_missing(eng, kinds)
@@ -210,7 +210,7 @@ def describe_panel(
         graph = _effect_graph(eng, names, effects) if effects else None
         raw_passes = eng.raw_passes
     finally:
-        con.close()
+        eng.close()
     rows = int(counts["n_rows"])
     missing_key = rows - int(shape["rows_keyed"])
     q25, median, q75 = (float(q) for q in shape["periods_quartiles"])

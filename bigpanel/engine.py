@@ -17,15 +17,53 @@ from .errors import BigPanelError
 from .sqltext import ident, render
 
 
+class EngineError(BigPanelError):
+    """A statement failed in the engine; ``detail`` holds the engine's own first line."""
+
+    def __init__(self, label: str, detail: str, engine: str) -> None:
+        super().__init__(f"{label} failed in {engine}: {detail}")
+        self.detail = detail
+
+
 @dataclass
 class Engine:
-    """Run SQL on one connection; keep the raw-pass count, per-step timings and the statements."""
+    """Run SQL on one connection; keep the raw-pass count, per-step timings and the statements.
 
-    con: duckdb.DuckDBPyConnection
+    This class talks to DuckDB. Another engine subclasses it and overrides the
+    primitives ``_execute``, ``_fetch``, ``_put``, ``count_statements`` and
+    ``close``, translating the DuckDB-dialect templates on the way.
+    """
+
+    con: Any
     on_step: Callable[[str], None] | None = None
     raw_passes: int = 0
     timings: dict[str, float] = field(default_factory=dict)
     statements: list[str] = field(default_factory=list)
+    name: str = "DuckDB"
+
+    def _execute(self, sql: str, params: dict) -> None:
+        self.con.execute(sql, params).fetchall()
+
+    def _fetch(self, sql: str, params: dict) -> pa.Table:
+        return self.con.sql(sql, params=params or None).to_arrow_table()
+
+    def _put(self, name: str, table: pa.Table) -> None:
+        view = f"{name}_arrow"
+        self.con.register(view, table)
+        try:
+            self._execute(render("store_arrow", table=ident(name), view=ident(view)), {})
+        finally:
+            self.con.unregister(view)
+
+    def count_statements(self, sql: str) -> int:
+        """How many statements ``sql`` holds (to refuse smuggled ones)."""
+        try:
+            return len(self.con.extract_statements(sql))
+        except duckdb.Error as exc:
+            raise EngineError("parsing", _first_line(exc), self.name) from None
+
+    def close(self) -> None:
+        self.con.close()
 
     def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any]) -> Any:
         self.statements.append(sql)
@@ -37,8 +75,7 @@ class Engine:
         except duckdb.InterruptException:
             raise KeyboardInterrupt from None
         except duckdb.Error as exc:
-            lines = str(exc).strip().splitlines()
-            raise BigPanelError(f"{label} failed in DuckDB: {lines[0] if lines else exc}") from None
+            raise EngineError(label, _first_line(exc), self.name) from None
         self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
         if raw:
             self.raw_passes += 1
@@ -46,28 +83,21 @@ class Engine:
 
     def execute(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> None:
         """Run a statement whose result is not needed."""
-        self._run(label, raw, sql, lambda: self.con.execute(sql, params or {}).fetchall())
-
-    def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
-        """Run a query returning one row; return it as a dict."""
-
-        def fetch() -> dict:
-            cur = self.con.execute(sql, params or {})
-            names = [d[0] for d in cur.description]
-            row = cur.fetchall()[0]
-            return dict(zip(names, row))
-
-        return self._run(label, raw, sql, fetch)
+        self._run(label, raw, sql, lambda: self._execute(sql, params or {}))
 
     def arrow(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> pa.Table:
         """Run a query returning a (small) table as Arrow."""
-        return self._run(label, raw, sql, lambda: self.con.sql(sql, params=params or None).to_arrow_table())
+        return self._run(label, raw, sql, lambda: self._fetch(sql, params or {}))
+
+    def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
+        """Run a query returning one row; return it as a dict."""
+        return self.arrow(label, sql, params, raw).slice(0, 1).to_pylist()[0]
 
     def put_table(self, name: str, table: pa.Table) -> None:
-        """Copy a small Arrow table into a temporary DuckDB table ``name``."""
-        view = f"{name}_arrow"
-        self.con.register(view, table)
-        try:
-            self.execute(f"store {name}", render("store_arrow", table=ident(name), view=ident(view)))
-        finally:
-            self.con.unregister(view)
+        """Copy a small Arrow table into a temporary table ``name``."""
+        self._run(f"store {name}", False, f"-- upload {name}", lambda: self._put(name, table))
+
+
+def _first_line(exc: BaseException) -> str:
+    lines = str(exc).strip().splitlines()
+    return lines[0] if lines else type(exc).__name__

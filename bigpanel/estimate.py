@@ -15,14 +15,13 @@ import numpy as np
 
 from .dof import count_absorbed
 from .effects import effect_tables, recover
-from .engine import Engine
 from .errors import BigPanelError
 from .inference import infer
 from .memory import MemoryBackend
 from .project import components, solve_effects
 from .results import FitResult
 from .solve import ILL_CONDITIONED, solve_slopes
-from .source import connect, open_source
+from .source import open_session
 from .sqlpath import SqlBackend
 from .spec import build_spec, check_where, parse_formula
 
@@ -84,13 +83,13 @@ def fit(
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
-    con = connect(memory_limit, temp_dir, threads)
+    eng, src = open_session(
+        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step
+    )
     try:
-        src = open_source(con, source, table)
         spec = build_spec(src, y, xs, _as_list(fe), cluster, vcov, where)
         if spec.where:
-            check_where(con, spec.where)
-        eng = Engine(con, on_step=on_step)
+            check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
         first = back.start()
         red = back.reduce(drop_singletons)
@@ -130,7 +129,7 @@ def fit(
         fx = recover(proj, red.counts, slopes.keep, slopes.beta, first.shift, labels)
         effects = effect_tables(spec, back.level_keys, fx, red.counts)
     finally:
-        con.close()
+        eng.close()
 
     q = mom.q
     tss = float(mom.sumsq_t[0] - mom.sum_t[0] ** 2 / n)

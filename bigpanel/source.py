@@ -10,9 +10,11 @@ import glob as globlib
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 import duckdb
 
+from .engine import Engine
 from .errors import BigPanelError
 from .sqltext import ident, literal, render
 
@@ -121,3 +123,25 @@ def open_source(
     if not columns:
         raise BigPanelError(f"{location} has no columns")
     return Source(location=location, kind=kind, table=table, columns=columns)
+
+
+def open_session(
+    location: str,
+    table: str | None = None,
+    *,
+    memory_limit: str | None = None,
+    temp_dir: str | None = None,
+    threads: int | None = None,
+    on_step: Callable[[str], None] | None = None,
+) -> tuple[Engine, Source]:
+    """An engine holding the view ``bp_source`` over ``location``, and the source's schema.
+
+    The caller closes the engine.
+    """
+    con = connect(memory_limit, temp_dir, threads)
+    try:
+        src = open_source(con, location, table)
+    except BaseException:
+        con.close()
+        raise
+    return Engine(con, on_step=on_step), src

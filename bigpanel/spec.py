@@ -12,10 +12,10 @@ import difflib
 import re
 from dataclasses import dataclass
 
-import duckdb
-
 from .errors import BigPanelError
+from .engine import Engine, EngineError
 from .source import Source
+from .sqltext import render
 
 VCOV_TYPES = ("iid", "hc1", "cluster")
 _NUMERIC = re.compile(
@@ -134,21 +134,16 @@ def build_spec(
     return Spec(y=y, x=tuple(x), fe=effects, cluster=cluster, vcov=vcov, where=where)
 
 
-def check_where(con: duckdb.DuckDBPyConnection, where: str) -> None:
+def check_where(eng: Engine, where: str) -> None:
     """Accept ``where`` only as one boolean expression over the source's columns."""
-    probe = f"SELECT count(*) FROM (SELECT * FROM bp_source LIMIT 0) AS s WHERE ({where})"
+    probe = render("check_where", where=f"({where})")
     try:
-        statements = con.extract_statements(probe)
-    except duckdb.Error as exc:
-        raise BigPanelError(f"--where {where!r} is not a valid expression: {_first(exc)}") from None
-    if len(statements) != 1:
+        statements = eng.count_statements(probe)
+    except EngineError as exc:
+        raise BigPanelError(f"--where {where!r} is not a valid expression: {exc.detail}") from None
+    if statements != 1:
         raise BigPanelError(f"--where {where!r} must be a single expression, not several statements")
     try:
-        con.execute(probe).fetchall()
-    except duckdb.Error as exc:
-        raise BigPanelError(f"--where {where!r} is not a valid filter: {_first(exc)}") from None
-
-
-def _first(exc: BaseException) -> str:
-    lines = str(exc).strip().splitlines()
-    return lines[0] if lines else type(exc).__name__
+        eng.execute("check the filter", probe)
+    except EngineError as exc:
+        raise BigPanelError(f"--where {where!r} is not a valid filter: {exc.detail}") from None

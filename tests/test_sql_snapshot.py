@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 
 import bigpanel
-import bigpanel.estimate as fit_module
+import bigpanel.source as source_module
 from bigpanel.engine import Engine
 
 SNAPSHOT = Path(__file__).parent / "snapshots" / "two_way_cluster.sql"
@@ -34,7 +34,7 @@ def test_generated_sql_matches_snapshot(to_parquet, monkeypatch):
             super().__init__(*args, **kwargs)
             engines.append(self)
 
-    monkeypatch.setattr(fit_module, "Engine", Recording)
+    monkeypatch.setattr(source_module, "Engine", Recording)
     bigpanel.fit(to_parquet(df), y="y", x=["select"], fe=["shop id", 'wk"'], cluster="area")
     text = "\n;\n".join(engines[0].statements) + "\n"
     if os.environ.get("BIGPANEL_UPDATE_SNAPSHOTS"):
