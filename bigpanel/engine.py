@@ -48,6 +48,7 @@ class Engine:
         return self.con.sql(sql, params=params or None).to_arrow_table()
 
     def _put(self, name: str, table: pa.Table) -> None:
+        """Upload ``table`` as the temporary table ``name`` (the statement shown is ``store_arrow``)."""
         view = f"{name}_arrow"
         self.con.register(view, table)
         try:
@@ -95,7 +96,8 @@ class Engine:
 
     def put_table(self, name: str, table: pa.Table) -> None:
         """Copy a small Arrow table into a temporary table ``name``."""
-        self._run(f"store {name}", False, f"-- upload {name}", lambda: self._put(name, table))
+        shown = render("store_arrow", table=ident(name), view=ident(f"{name}_arrow"))
+        self._run(f"store {name}", False, shown, lambda: self._put(name, table))
 
 
 def _first_line(exc: BaseException) -> str:

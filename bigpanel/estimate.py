@@ -26,7 +26,7 @@ from .sqlpath import SqlBackend
 from .spec import build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
-ENGINES = {"duckdb": SqlBackend, "memory": MemoryBackend}
+ENGINES = {"duckdb": SqlBackend, "spark": SqlBackend, "memory": MemoryBackend}
 
 
 def _as_list(value: str | Sequence[str] | None) -> list[str]:
@@ -55,6 +55,7 @@ def fit(
     temp_dir: str | None = None,
     threads: int | None = None,
     engine: str = "duckdb",
+    spark_master: str | None = None,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -68,7 +69,9 @@ def fit(
     ``drop_singletons=False``. See :mod:`bigpanel.inference` and
     :mod:`bigpanel.dof` for the variance formulas and degrees of freedom.
     ``engine="memory"`` loads the used columns into numpy and fits the same
-    model there (the reference for checking the SQL path on a sample).
+    model there (the reference for checking the SQL path on a sample);
+    ``engine="spark"`` runs the same SQL on Spark (``spark_master``, default
+    local mode); a ``postgresql://`` source runs it on PostgreSQL.
     """
     started = time.perf_counter()
     if formula is not None:
@@ -84,7 +87,14 @@ def fit(
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     eng, src = open_session(
-        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step
+        source,
+        table,
+        backend="spark" if engine == "spark" else "duckdb",
+        spark_master=spark_master,
+        memory_limit=memory_limit,
+        temp_dir=temp_dir,
+        threads=threads,
+        on_step=on_step,
     )
     try:
         spec = build_spec(src, y, xs, _as_list(fe), cluster, vcov, where)

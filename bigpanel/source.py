@@ -129,6 +129,8 @@ def open_session(
     location: str,
     table: str | None = None,
     *,
+    backend: str = "duckdb",
+    spark_master: str | None = None,
     memory_limit: str | None = None,
     temp_dir: str | None = None,
     threads: int | None = None,
@@ -136,8 +138,18 @@ def open_session(
 ) -> tuple[Engine, Source]:
     """An engine holding the view ``bp_source`` over ``location``, and the source's schema.
 
-    The caller closes the engine.
+    A ``postgresql://`` location opens PostgreSQL (``table`` names the table);
+    ``backend="spark"`` opens Spark SQL; otherwise DuckDB, in process. The caller
+    closes the engine.
     """
+    if str(location).startswith(("postgresql://", "postgres://")):
+        from .postgres import open_postgres
+
+        return open_postgres(str(location), table, on_step=on_step)
+    if backend == "spark":
+        from .spark import open_spark
+
+        return open_spark(str(location), table, master=spark_master, on_step=on_step)
     con = connect(memory_limit, temp_dir, threads)
     try:
         src = open_source(con, location, table)

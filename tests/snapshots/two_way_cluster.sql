@@ -118,9 +118,15 @@ SELECT f1_1 FROM bp_lev_1 ORDER BY code
 SELECT f2_1 FROM bp_lev_2 ORDER BY code
 
 ;
--- upload bp_alpha_1
+-- Copy a registered Arrow table (level effects) into a temporary table.
+CREATE OR REPLACE TEMP TABLE "bp_alpha_1" AS
+SELECT * FROM "bp_alpha_1_arrow"
+
 ;
--- upload bp_alpha_2
+-- Copy a registered Arrow table (level effects) into a temporary table.
+CREATE OR REPLACE TEMP TABLE "bp_alpha_2" AS
+SELECT * FROM "bp_alpha_2_arrow"
+
 ;
 -- The demeaned columns: each value minus its shift and the solved effects of
 -- every dimension, joined back row by row (e0 is the outcome, ej regressor j),
