@@ -30,8 +30,7 @@ class Engine:
     """Run SQL on one connection; keep the raw-pass count, per-step timings and the statements.
 
     This class talks to DuckDB. Another engine subclasses it and overrides the
-    primitives ``_execute``, ``_fetch``, ``_put``, ``count_statements`` and
-    ``close``, translating the DuckDB-dialect templates on the way.
+    primitives ``_execute``, ``_fetch``, ``_put`` and ``close``, translating the DuckDB-dialect templates on the way.
     """
 
     con: Any
@@ -55,13 +54,6 @@ class Engine:
             self._execute(render("store_arrow", table=ident(name), view=ident(view)), {})
         finally:
             self.con.unregister(view)
-
-    def count_statements(self, sql: str) -> int:
-        """How many statements ``sql`` holds (to refuse smuggled ones)."""
-        try:
-            return len(self.con.extract_statements(sql))
-        except duckdb.Error as exc:
-            raise EngineError("parsing", _first_line(exc), self.name) from None
 
     def close(self) -> None:
         self.con.close()

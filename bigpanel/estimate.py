@@ -151,8 +151,9 @@ def fit(
         )
     if slopes.condition > ILL_CONDITIONED:
         warnings.append(
-            f"the demeaned regressors are nearly collinear (condition number {slopes.condition:.2e}); "
-            "estimates may be imprecise"
+            f"the demeaned regressors are nearly collinear (condition number {slopes.condition:.2e} of the "
+            f"scaled regressors; about {max(0, int(16 - 2 * np.log10(slopes.condition)))} significant digits "
+            "survive in the slopes)"
         )
     if n_clusters is not None and n_clusters < FEW_CLUSTERS:
         warnings.append(f"only {n_clusters} clusters: cluster-robust errors can be unreliable with few clusters")

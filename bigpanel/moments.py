@@ -2,7 +2,9 @@
 
 The solved effects are joined back to the rows, so every demeaned value
 x~ = (x - shift) - sum_d a_d[level] is formed per row and products are summed
-afterwards; no moment is ever formed as sum(x y) - sum(x) sum(y) / n.
+afterwards; no moment is ever formed as sum(x y) - sum(x) sum(y) / n. The sums
+are compensated (DuckDB's ``fsum``), so their rounding error does not grow with
+the number of rows and does not depend on the order the threads add in.
 """
 
 from __future__ import annotations
@@ -59,10 +61,10 @@ class Moments:
 
 def cross_products(eng: Engine, m: int) -> Moments:
     """Pass 3: the :class:`Moments` of the demeaned view."""
-    sums = [f"sum(e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
-    sums += [f"sum(e{i}) AS se_{i}" for i in range(m)]
-    sums += [f"sum(t{i}) AS st_{i}" for i in range(m)]
-    sums += [f"sum(t{i} * t{i}) AS tt_{i}" for i in range(m)]
+    sums = [f"fsum(e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
+    sums += [f"fsum(e{i}) AS se_{i}" for i in range(m)]
+    sums += [f"fsum(t{i}) AS st_{i}" for i in range(m)]
+    sums += [f"fsum(t{i} * t{i}) AS tt_{i}" for i in range(m)]
     row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     q = np.zeros((m, m))
     for i in range(m):
@@ -87,7 +89,7 @@ def meat_hc(eng: Engine, keep: list[int], beta: np.ndarray) -> np.ndarray:
     """Pass 4 (HC1): sum_i u_i^2 x~_i x~_i' over the kept regressors."""
     _store_coef(eng, keep, beta)
     resid, carry = _resid_parts(keep, beta)
-    sums = [f"sum(u * u * e{i} * e{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
+    sums = [f"fsum(u * u * e{i} * e{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
     row = eng.one("pass 4: robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
     return _square(row, keep)
 
@@ -97,7 +99,7 @@ def meat_cluster(eng: Engine, keep: list[int], beta: np.ndarray) -> tuple[int, n
     _store_coef(eng, keep, beta)
     resid, carry = _resid_parts(keep, beta)
     scores = join(["cl"] + [f"sum(u * e{j}) AS g{j}" for j in keep])
-    sums = [f"sum(g{i} * g{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
+    sums = [f"fsum(g{i} * g{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
     sql = render("meat_cluster", sums=join(sums), scores=scores, resid=resid, carry=carry)
     row = eng.one("pass 4: cluster scores", sql, raw=True)
     return int(row["n_clusters"]), _square(row, keep)

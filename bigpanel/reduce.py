@@ -56,8 +56,6 @@ class Reduction:
     n_complete: int
     n_obs: int
     rounds: int
-    comoments: np.ndarray | None = None
-    cluster_codes: np.ndarray | None = None
 
     @property
     def singletons(self) -> int:
@@ -73,8 +71,12 @@ def _complete(spec: Spec) -> str:
     return " AND ".join(parts)
 
 
-def create_views(eng: Engine, spec: Spec) -> None:
-    """The views ``bp_filtered`` (used columns, internal names) and ``bp_sample``."""
+def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
+    """``bp_filtered`` (used columns, internal names) and the view ``bp_sample``.
+
+    ``materialize`` makes ``bp_filtered`` a table, read once from the source: for
+    CSV, whose every scan would otherwise parse the text again.
+    """
     columns = [f"CAST({ident(spec.y)} AS DOUBLE) AS v0"]
     columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
     for d, cols in enumerate(spec.fe):
@@ -82,13 +84,18 @@ def create_views(eng: Engine, spec: Spec) -> None:
     if spec.cluster:
         columns.append(f"{ident(spec.cluster)} AS cl")
     where = f"({spec.where})" if spec.where else "TRUE"
-    eng.execute("filter view", render("filtered", columns=join(columns), where=where))
+    kind = "TABLE" if materialize else "VIEW"
+    eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where), raw=materialize)
     eng.execute("sample view", render("sample", complete=_complete(spec)))
 
 
 def start(eng: Engine, spec: Spec, scans_to_count: bool) -> Start:
-    """Row counts (a metadata lookup for unfiltered Parquet) and the shifts, stored as ``bp_shift``."""
-    n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans_to_count or bool(spec.where))["n"])
+    """Row counts and the shifts, stored as ``bp_shift``.
+
+    Counting is a metadata lookup for unfiltered Parquet or a materialised CSV;
+    ``scans_to_count`` says when it reads the rows instead (a filter on Parquet).
+    """
+    n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans_to_count)["n"])
     n_source = int(eng.one("count source", render("count_source"))["n"]) if spec.where else n_filtered
     if n_filtered == 0:
         raise BigPanelError(
@@ -99,7 +106,9 @@ def start(eng: Engine, spec: Spec, scans_to_count: bool) -> Start:
     if row["m0"] is None:
         bad = incomplete(eng, spec)
         worst = max(bad, key=lambda c: bad[c])
-        raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {bad[worst]} rows")
+        raise BigPanelError(
+            f"no complete rows: column {worst!r} is missing or not finite in {bad[worst]:,} of {n_filtered:,} rows"
+        )
     shift = np.array([row[f"m{j}"] for j in range(len(spec.value_aliases))], dtype=float)
     put_one_row(eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(shift)})
     return Start(n_source, n_filtered, shift)
@@ -162,27 +171,16 @@ def _single_levels(eng: Engine, spec: Spec) -> int:
     )
 
 
-def _pairs(m: int) -> list[tuple[int, int]]:
-    return [(i, j) for i in range(m) for j in range(i, m)]
-
-
 def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
     """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
 
-    Per cell: the row count and sums of the shifted columns; with two or more
-    effects also their sums of squares. With one effect the pass instead takes each level's centred co-moments
-    n_g * covar_pop_g(v_i, v_j), computed by DuckDB's numerically stable
-    streaming aggregate; their sum over levels is the demeaned cross-product
-    matrix, so no further pass is needed for the slopes.
+    Per cell: the row count and the sums and sums of squares of the shifted columns.
     """
     k = len(spec.fe)
     m = len(spec.value_aliases)
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
     sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
-    if k == 1:
-        sums += [f"covar_pop(v{i}, v{j}) * count(*) AS c{i}_{j}" for i, j in _pairs(m)]
-    else:
-        sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
+    sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
     if spec.cluster:
         sums += ["min(cl) AS cl_min", "max(cl) AS cl_max"]
     else:
@@ -213,25 +211,22 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
     return _fetch(eng, spec, n_complete, rounds)
 
 
-def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, bool, np.ndarray | None]:
-    tab = eng.arrow("level counts", render("level_table", columns="n, nested, cl_value", table=f"bp_lev_{d + 1}"))
+def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, bool]:
+    tab = eng.arrow("level counts", render("level_table", columns="n, nested", table=f"bp_lev_{d + 1}"))
     counts = tab.column("n").to_numpy().astype(float)
     nested = bool(spec.cluster) and bool(pc.all(tab.column("nested")).as_py())
-    cluster = pc.dictionary_encode(tab.column("cl_value")).combine_chunks().indices.to_numpy() if nested else None
-    return counts, nested, cluster
+    return counts, nested
 
 
 def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
     k = len(spec.fe)
     m = len(spec.value_aliases)
-    counts, nested, clusters = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
+    counts, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
     for d in range(k):
         if len(counts[d]) == 0:
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
     rhs: list[np.ndarray | None] = [None] * k
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
-    comoments = None
-    co_cols = [f"c.c{i}_{j}" for i, j in _pairs(m)] if k == 1 else []
     for dims in _sets(spec):
         codes = join([f"l{d + 1}.code AS c{d + 1}" for d in dims], ", ")
         joins = "\n".join(
@@ -240,7 +235,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         sql = render(
             "cell_stats",
             codes=codes,
-            sums=join([f"c.s{j}" for j in range(m)] + (co_cols or [f"c.q{j}" for j in range(m)]), ", "),
+            sums=join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", "),
             joins=joins,
             order=join([f"c{d + 1}" for d in dims], ", "),
         )
@@ -248,13 +243,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         code = {d: tab.column(f"c{d + 1}").to_numpy() for d in dims}
         n = tab.column("n").to_numpy().astype(float)
         s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
-        if co_cols:
-            comoments = np.zeros((len(n), m, m))
-            for i, j in _pairs(m):
-                comoments[:, i, j] = comoments[:, j, i] = tab.column(f"c{i}_{j}").to_numpy()
-            # sum of t^2 = sum over levels of (within co-moment + s^2 / n): positive terms, no cancellation
-            sumsq = np.einsum("gjj->j", comoments) + (s**2 / n[:, None]).sum(axis=0)
-        elif dims == _sets(spec)[0]:
+        if dims == _sets(spec)[0]:
             sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
         for d in dims:
             if rhs[d] is None:
@@ -272,6 +261,4 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
         n_complete=n_complete,
         n_obs=int(counts[0].sum()),
         rounds=rounds,
-        comoments=comoments,
-        cluster_codes=clusters[0],
     )

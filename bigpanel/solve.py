@@ -6,7 +6,7 @@ of its total sum of squares around the mean: far above rounding noise (about
 1e-32 for one effect, below 1e-24 after the projections' stopping rule) and far
 below any within variation worth estimating. A regressor is *collinear* when,
 in the order given, it is explained by the regressors already kept up to a
-residual share below 1e-10 of its demeaned sum of squares. The slopes solve
+residual share below 1e-12 of its demeaned sum of squares. The slopes solve
 (X~'X~) b = X~'y~ on the kept columns, scaled to unit diagonal, by an SVD-based
 least-squares solver; the condition number reported is that of the scaled X~.
 """
@@ -19,8 +19,8 @@ import numpy as np
 from scipy import linalg
 
 ABSORBED_SHARE = 1e-18
-COLLINEAR_SHARE = 1e-10
-ILL_CONDITIONED = 1e7
+COLLINEAR_SHARE = 1e-12
+ILL_CONDITIONED = 1e5  # cond(X~) above this: cond(X~'X~) > 1e10, the normal equations keep < 6 digits
 
 
 @dataclass(frozen=True)

@@ -88,6 +88,26 @@ def _parquet_files(location: str) -> list[str]:
     return [location]
 
 
+def _check_not_empty(path: str) -> None:
+    if os.path.getsize(path) == 0:
+        raise BigPanelError(f"file {path} is empty")
+
+
+def _check_same_schema(con: duckdb.DuckDBPyConnection, files: list[str], paths: str) -> None:
+    """All files of a glob must hold the same columns (names and types), or nothing is read."""
+    rows = con.execute(render("parquet_schemas", paths=paths)).fetchall()
+    schemas: dict[str, list[tuple[str, str]]] = {}
+    for file_name, name, kind in rows:
+        schemas.setdefault(file_name, []).append((name, kind))
+    first = files[0]
+    for f in files[1:]:
+        if schemas.get(f) != schemas.get(first):
+            mine, theirs = dict(schemas.get(f, [])), dict(schemas.get(first, []))
+            diff = sorted(set(mine.items()) ^ set(theirs.items()))
+            detail = ", ".join(f"{n} ({t})" for n, t in diff[:4])
+            raise BigPanelError(f"Parquet files differ in their columns: {f} vs {first} ({detail})")
+
+
 def open_source(
     con: duckdb.DuckDBPyConnection, location: str, table: str | None = None
 ) -> Source:
@@ -97,12 +117,24 @@ def open_source(
     try:
         if kind == "parquet":
             files = _parquet_files(location)
+            for f in files:
+                _check_not_empty(f)
             paths = "[" + ", ".join(literal(f) for f in files) + "]"
+            if len(files) > 1:
+                _check_same_schema(con, files, paths)
             con.execute(render("source_parquet", paths=paths)).fetchall()
         elif kind == "csv":
             if not os.path.exists(location):
                 raise BigPanelError(f"file not found: {location}")
-            con.execute(render("source_csv", path=literal(location))).fetchall()
+            _check_not_empty(location)
+            delim = "\t" if location.lower().endswith((".tsv", ".tsv.gz")) else ","
+            try:
+                con.execute(render("source_csv", path=literal(location), delim=literal(delim))).fetchall()
+            except duckdb.Error as exc:
+                raise BigPanelError(
+                    f"cannot read CSV {location}: some rows do not have the header's number of fields, or the "
+                    f"file is not {'tab' if delim == chr(9) else 'comma'}-separated ({_first_line(exc)})"
+                ) from None
         else:
             if not os.path.exists(location):
                 raise BigPanelError(f"database file not found: {location}")

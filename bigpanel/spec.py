@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import difflib
 import re
+
+import duckdb
 from dataclasses import dataclass
 
 from .errors import BigPanelError
@@ -129,21 +131,27 @@ def build_spec(
         raise BigPanelError(f"--cluster {cluster} conflicts with --vcov {vcov}: drop one of them")
     if cluster:
         _check_column(cluster, source, "cluster")
-    if where is not None and not where.strip():
-        where = None
+    if where is not None:
+        where = canonical_where(where) if where.strip() else None
     return Spec(y=y, x=tuple(x), fe=effects, cluster=cluster, vcov=vcov, where=where)
 
 
+def canonical_where(where: str) -> str:
+    """Parse ``where`` as exactly one SQL expression and return DuckDB's own rendering of it.
+
+    Only the re-rendered expression is ever placed in a query, so text that closes
+    the parenthesis, comments out the rest or adds a statement cannot get through.
+    """
+    try:
+        return str(duckdb.SQLExpression(where))
+    except duckdb.Error as exc:
+        detail = str(exc).strip().splitlines()[0]
+        raise BigPanelError(f"--where {where!r} must be a single SQL expression ({detail})") from None
+
+
 def check_where(eng: Engine, where: str) -> None:
-    """Accept ``where`` only as one boolean expression over the source's columns."""
-    probe = render("check_where", where=f"({where})")
+    """Bind the (canonical) filter against the source's columns without reading a row."""
     try:
-        statements = eng.count_statements(probe)
-    except EngineError as exc:
-        raise BigPanelError(f"--where {where!r} is not a valid expression: {exc.detail}") from None
-    if statements != 1:
-        raise BigPanelError(f"--where {where!r} must be a single expression, not several statements")
-    try:
-        eng.execute("check the filter", probe)
+        eng.execute("check the filter", render("check_where", where=f"({where})"))
     except EngineError as exc:
         raise BigPanelError(f"--where {where!r} is not a valid filter: {exc.detail}") from None

@@ -24,7 +24,7 @@ class SqlBackend:
         self.red: Reduction | None = None
         self.alpha: list[np.ndarray] = []
         self.demeaned_view = False
-        create_views(eng, spec)
+        create_views(eng, spec, materialize=source_kind == "csv")
 
     @property
     def raw_passes(self) -> int:
@@ -35,7 +35,7 @@ class SqlBackend:
         return self.eng.timings
 
     def start(self) -> Start:
-        return start(self.eng, self.spec, scans_to_count=self.source_kind == "csv")
+        return start(self.eng, self.spec, scans_to_count=bool(self.spec.where) and self.source_kind != "csv")
 
     def reduce(self, drop_singletons: bool) -> Reduction:
         self.red = reduce_cells(self.eng, self.spec, drop_singletons)
@@ -52,12 +52,7 @@ class SqlBackend:
             self.demeaned_view = True
 
     def moments(self, alpha: list[np.ndarray]) -> Moments:
-        """One effect: the sum of the levels' co-moments (no pass). More: pass 3."""
         self.alpha = alpha
-        red = self.red
-        if red.comoments is not None:
-            m = red.comoments.shape[1]
-            return Moments(red.n_obs, red.comoments.sum(axis=0), np.zeros(m), red.rhs[0].sum(axis=0), red.sumsq)
         self._demeaned()
         return cross_products(self.eng, len(self.spec.value_aliases))
 
@@ -66,15 +61,6 @@ class SqlBackend:
         return meat_hc(self.eng, keep, beta)
 
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
-        """One effect nested in the cluster: scores from the levels' co-moments (no pass)."""
-        red = self.red
-        if red.comoments is not None and red.cluster_codes is not None:
-            c = red.comoments
-            scores = c[:, keep, 0] - c[:, keep][:, :, keep] @ beta
-            n_clusters = int(red.cluster_codes.max()) + 1
-            by_cluster = np.zeros((n_clusters, len(keep)))
-            np.add.at(by_cluster, red.cluster_codes, scores)
-            return n_clusters, by_cluster.T @ by_cluster
         self._demeaned()
         return meat_cluster(self.eng, keep, beta)
 

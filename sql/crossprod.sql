@@ -1,4 +1,5 @@
--- Final pass: the cross-products of the demeaned columns, row by row.
+-- Final pass: the cross-products of the demeaned columns, row by row, with
+-- compensated sums.
 SELECT count(*) AS n,
        {{sums}}
 FROM bp_tilde

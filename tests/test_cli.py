@@ -91,7 +91,7 @@ def test_demo_writes_panel_with_known_truth(tmp_path):
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "one"], "cluster column takes a single value"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "unit", "--vcov", "hc1"], "conflicts with --vcov hc1"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--vcov", "hc9"], "unknown variance type 'hc9'"),
-        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "1=1); DROP TABLE t; SELECT (1"], "single expression"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "1=1); DROP TABLE t; SELECT (1"], "must be a single SQL expression"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "nosuchcol > 2"], "not a valid filter"),
         (["fit", "{p}", "y x1", "--fe", "unit"], "needs exactly one '~'"),
         (["fit", "{p}", "y ~ one", "--fe", "unit"], "every regressor is absorbed"),

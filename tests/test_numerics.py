@@ -76,3 +76,48 @@ def test_time_invariant_and_collinear_are_dropped(to_parquet):
     ref = lsdv(df, "y", ["x1", "x2"], ["g"])
     assert res.names == ["x1", "x2"]
     assert rel(res.coef, ref.params[:2]) < 1e-8
+
+
+def _demeaned_lstsq(df, y, xs, g):
+    """Reference: numpy least squares on columns explicitly demeaned by group in float64."""
+    means = df.groupby(g)[[y, *xs]].transform("mean")
+    xt = (df[xs] - means[xs]).to_numpy()
+    yt = (df[y] - means[y]).to_numpy()
+    b, *_ = np.linalg.lstsq(xt, yt, rcond=None)
+    return b
+
+
+def test_regressors_differing_in_scale_by_1e8(to_parquet):
+    rng = np.random.default_rng(21)
+    g = np.repeat(np.arange(50), 20)
+    df = pd.DataFrame({"g": g, "small": rng.normal(size=len(g)) * 1e-4, "large": rng.normal(size=len(g)) * 1e4})
+    df["y"] = 300.0 * df["small"] + 2e-6 * df["large"] + rng.normal(size=50)[g] + rng.normal(size=len(g)) * 0.01
+    res = bigpanel.fit(to_parquet(df), "y ~ small + large", fe="g")
+    assert rel(res.coef, _demeaned_lstsq(df, "y", ["small", "large"], "g")) < 1e-6
+    ref = lsdv(df, "y", ["small", "large"], ["g"])
+    assert rel(res.std_error, ref.bse[:2]) < 1e-6
+
+
+def test_nearly_collinear_regressor_is_reported(to_parquet):
+    # x2 = x1 + 2e-5 noise: the scaled cross-product matrix X~'X~ has condition number near 1e10
+    # (that of X~ near 1e5). Reference: numpy least squares (SVD) on the explicitly demeaned data.
+    rng = np.random.default_rng(22)
+    g = np.repeat(np.arange(40), 25)
+    x1 = rng.normal(size=len(g))
+    df = pd.DataFrame({"g": g, "x1": x1, "x2": x1 + 2e-5 * rng.normal(size=len(g))})
+    df["y"] = df["x1"] + 2 * df["x2"] + rng.normal(size=40)[g] + 1e-6 * rng.normal(size=len(g))
+    res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe="g")
+    assert 1e4 < res.solver["condition_number"] < 1e6
+    assert any("nearly collinear" in w for w in res.warnings)
+    assert rel(res.coef, _demeaned_lstsq(df, "y", ["x1", "x2"], "g")) < 1e-6
+
+
+def test_very_unbalanced_panel(to_parquet):
+    # One unit holds half of the rows; reference: statsmodels LSDV.
+    rng = np.random.default_rng(23)
+    g = np.concatenate([np.zeros(2000, dtype=int), np.repeat(np.arange(1, 401), 5)])
+    df = pd.DataFrame({"g": g, "x": rng.normal(size=len(g))})
+    df["y"] = 0.5 * df["x"] + rng.normal(size=401)[g] + rng.normal(size=len(g))
+    res = bigpanel.fit(to_parquet(df), "y ~ x", fe="g", vcov="hc1")
+    ref = lsdv(df, "y", ["x"], ["g"], cov_type="HC1")
+    assert rel(res.coef, ref.params[:1]) < 1e-8 and rel(res.std_error, ref.bse[:1]) < 1e-8

@@ -1,5 +1,6 @@
 -- Used columns under internal names, after the user's row filter.
 -- The only statement that names user columns; each is a quoted identifier.
+-- A view over Parquet and tables; a table (parsed once) over CSV.
 CREATE OR REPLACE TEMP VIEW bp_filtered AS
 SELECT CAST("y" AS DOUBLE) AS v0,
        CAST("select" AS DOUBLE) AS v1,
@@ -52,14 +53,13 @@ GROUP BY GROUPING SETS ((f1_1, f2_1))
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count, whether all its rows share one cluster value, and that value.
+-- count, and whether all its rows share one cluster value.
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
        n,
-       nested,
-       cl_value
-FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested, min(cl_min) AS cl_value
+       nested
+FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f1_1
@@ -67,14 +67,13 @@ FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested, min(cl_min)
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count, whether all its rows share one cluster value, and that value.
+-- count, and whether all its rows share one cluster value.
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
        n,
-       nested,
-       cl_value
-FROM (SELECT f2_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested, min(cl_min) AS cl_value
+       nested
+FROM (SELECT f2_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f2_1
@@ -94,11 +93,11 @@ SELECT count(*) AS n_single FROM bp_lev_2 WHERE n = 1
 
 ;
 -- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT n, nested, cl_value FROM bp_lev_1 ORDER BY code
+SELECT n, nested FROM bp_lev_1 ORDER BY code
 
 ;
 -- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT n, nested, cl_value FROM bp_lev_2 ORDER BY code
+SELECT n, nested FROM bp_lev_2 ORDER BY code
 
 ;
 -- One grouping set of the cells with integer level codes, for numpy.
@@ -142,17 +141,18 @@ JOIN bp_alpha_1 AS a1 USING (f1_1)
 JOIN bp_alpha_2 AS a2 USING (f2_1)
 
 ;
--- Final pass: the cross-products of the demeaned columns, row by row.
+-- Final pass: the cross-products of the demeaned columns, row by row, with
+-- compensated sums.
 SELECT count(*) AS n,
-       sum(e0 * e0) AS q_0_0,
-       sum(e0 * e1) AS q_0_1,
-       sum(e1 * e1) AS q_1_1,
-       sum(e0) AS se_0,
-       sum(e1) AS se_1,
-       sum(t0) AS st_0,
-       sum(t1) AS st_1,
-       sum(t0 * t0) AS tt_0,
-       sum(t1 * t1) AS tt_1
+       fsum(e0 * e0) AS q_0_0,
+       fsum(e0 * e1) AS q_0_1,
+       fsum(e1 * e1) AS q_1_1,
+       fsum(e0) AS se_0,
+       fsum(e1) AS se_1,
+       fsum(t0) AS st_0,
+       fsum(t1) AS st_1,
+       fsum(t0 * t0) AS tt_0,
+       fsum(t1 * t1) AS tt_1
 FROM bp_tilde
 
 ;
@@ -164,7 +164,7 @@ SELECT CAST($b1 AS DOUBLE) AS b1
 -- Cluster-robust meat: scores g_c = sum over the rows of cluster c of u x~,
 -- then sum over clusters of g_c g_c'.
 SELECT count(*) AS n_clusters,
-       sum(g1 * g1) AS h_1_1
+       fsum(g1 * g1) AS h_1_1
 FROM (SELECT cl,
        sum(u * e1) AS g1
       FROM (SELECT cl, e0 - (b.b1 * e1) AS u, e1
