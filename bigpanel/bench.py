@@ -31,9 +31,11 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
         temp_dir=model.get("temp_dir"), threads=model.get("threads"),
     )
     try:
-        spec = build_spec(src, y, x, _as_list(model["fe"]), model.get("cluster"), model.get("vcov"), model.get("where"))
+        spec = build_spec(
+            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("vcov"), model.get("where")
+        )
         aggs = [f"sum(CAST({ident(c)} AS DOUBLE)) AS s{i}" for i, c in enumerate([spec.y, *spec.x])]
-        keys = [c for cols in spec.fe for c in cols] + ([spec.cluster] if spec.cluster else [])
+        keys = [c for cols in spec.fe for c in cols] + list(spec.cluster)
         aggs += [f"min({ident(c)}) AS k{i}" for i, c in enumerate(dict.fromkeys(keys))]
         where = f"({spec.where})" if spec.where else "TRUE"
         row = eng.one("scan", render("scan_floor", aggregates=join(aggs), where=where), raw=True)

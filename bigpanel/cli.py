@@ -86,7 +86,9 @@ def _model_options(
     y: Optional[str] = typer.Option(None, "--y", help="Outcome column."),
     x: Optional[List[str]] = typer.Option(None, "--x", help="Regressor column; repeat for more."),
     fe: List[str] = typer.Option(..., "--fe", help="Fixed-effect column; repeat for more; 'a:b' is one effect per pair."),
-    cluster: Optional[str] = typer.Option(None, "--cluster", help="Cluster column for cluster-robust (CR1) errors."),
+    cluster: Optional[List[str]] = typer.Option(
+        None, "--cluster", help="Cluster column for cluster-robust (CR1) errors; repeat for multi-way clustering."
+    ),
     vcov: Optional[str] = typer.Option(None, "--vcov", help="iid, hc1 or cluster (default: cluster if --cluster, else iid)."),
     where: Optional[str] = typer.Option(None, "--where", help="Row filter: one SQL boolean expression over the source's columns."),
     table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),

@@ -11,9 +11,11 @@ With G_d levels of effect d, the intercept plus p_d parameters per effect:
   parameters too many, which widens the errors slightly).
 
 P = 1 + sum_d p_d enters the residual degrees of freedom N - K - P. For
-cluster-robust errors, an effect nested in the cluster (each of its levels lies
-in one cluster) is not counted: P_c = 1 + sum of p_d over the effects that are
-not nested.
+cluster-robust errors, an effect nested in the clustering (each of its levels
+lies in one cluster) is not counted: P_c = 1 + sum of p_d over the effects that
+are not nested. With several cluster columns, each term of the
+inclusion-exclusion sum clusters by a combination of columns, and an effect is
+nested in a combination when it is nested in every column of it.
 """
 
 from __future__ import annotations
@@ -27,16 +29,21 @@ class Absorbed:
 
     per_effect: list[int]
     total: int
-    cluster_total: int
     components: int | None
+    nested: list[list[bool]]
+
+    def cluster_total(self, columns: tuple[int, ...]) -> int:
+        """P_c for clustering by the combination of cluster columns ``columns``."""
+        return 1 + sum(p for p, flags in zip(self.per_effect, self.nested) if not all(flags[j] for j in columns))
 
 
-def count_absorbed(levels: list[int], components: int | None, nested: list[bool]) -> Absorbed:
-    """Apply the counting rule to level counts, components of effects 1-2 and nesting flags."""
+def count_absorbed(levels: list[int], components: int | None, nested: list[list[bool]]) -> Absorbed:
+    """Apply the counting rule to level counts, components of effects 1-2 and nesting flags.
+
+    ``nested[d][j]`` says whether effect d is nested in cluster column j.
+    """
     per = [levels[0] - 1]
     if len(levels) >= 2:
         per.append(levels[1] - int(components))
     per += [g - 1 for g in levels[2:]]
-    total = 1 + sum(per)
-    cluster_total = 1 + sum(p for p, inside in zip(per, nested) if not inside)
-    return Absorbed(per_effect=per, total=total, cluster_total=cluster_total, components=components)
+    return Absorbed(per_effect=per, total=1 + sum(per), components=components, nested=nested)

@@ -44,7 +44,7 @@ def fit(
     y: str | None = None,
     x: str | Sequence[str] | None = None,
     fe: str | Sequence[str] = (),
-    cluster: str | None = None,
+    cluster: str | Sequence[str] | None = None,
     vcov: str | None = None,
     where: str | None = None,
     table: str | None = None,
@@ -63,7 +63,8 @@ def fit(
     ``source`` is a Parquet file, folder or glob, a CSV file, or a DuckDB file with
     ``table``. Either ``formula`` (``"y ~ x1 + x2"``) or ``y`` and ``x`` name the
     variables; ``fe`` lists effect columns (``"a:b"`` for one effect per pair).
-    ``vcov`` is ``iid`` (default), ``hc1`` or ``cluster`` (CR1 on ``cluster``).
+    ``vcov`` is ``iid`` (default), ``hc1`` or ``cluster`` (CR1 on ``cluster``, one
+    column or several for multi-way clustering).
     Rows with a missing or non-finite used value are dropped listwise; rows alone
     in a level of any effect (singletons) are dropped unless
     ``drop_singletons=False``. See :mod:`bigpanel.inference` and
@@ -97,7 +98,7 @@ def fit(
         on_step=on_step,
     )
     try:
-        spec = build_spec(src, y, xs, _as_list(fe), cluster, vcov, where)
+        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), vcov, where)
         if spec.where:
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
@@ -120,21 +121,21 @@ def fit(
                 "every regressor is absorbed by the fixed effects or collinear: "
                 + ", ".join(names_all[j] for j, _ in slopes.dropped)
             )
-        meat, n_clusters = None, None
+        meat, terms = None, []
         if spec.vcov == "hc1":
             meat = back.meat_hc(slopes.keep, slopes.beta)
         elif spec.vcov == "cluster":
-            n_clusters, meat = back.meat_cluster(slopes.keep, slopes.beta)
+            terms = back.meat_cluster(slopes.keep, slopes.beta)
         inf = infer(
             slopes.beta,
             slopes.bread,
             slopes.rss,
             n,
-            absorbed.total,
+            absorbed,
             spec.vcov,
             meat=meat,
-            n_clusters=n_clusters,
-            absorbed_cluster=absorbed.cluster_total,
+            cluster_terms=terms,
+            cluster_names=spec.cluster,
         )
         fx = recover(proj, red.counts, slopes.keep, slopes.beta, first.shift, labels)
         effects = effect_tables(spec, back.level_keys, fx, red.counts)
@@ -155,15 +156,22 @@ def fit(
             f"scaled regressors; about {max(0, int(16 - 2 * np.log10(slopes.condition)))} significant digits "
             "survive in the slopes)"
         )
-    if n_clusters is not None and n_clusters < FEW_CLUSTERS:
-        warnings.append(f"only {n_clusters} clusters: cluster-robust errors can be unreliable with few clusters")
+    counts = {spec.cluster[t.columns[0]]: t.n_clusters for t in terms if len(t.columns) == 1}
+    n_clusters = min(counts.values()) if counts else None
+    for name, g in counts.items():
+        if g < FEW_CLUSTERS:
+            warnings.append(f"only {g} clusters in {name}: cluster-robust errors can be unreliable with few clusters")
+    if inf.psd_fixed:
+        warnings.append(
+            "the multi-way cluster variance was not positive semi-definite; its negative eigenvalues were set to zero"
+        )
     fe_info = [
         {
             "name": name,
             "columns": list(cols),
             "levels": int(len(red.counts[d])),
             "parameters": int(absorbed.per_effect[d] + (1 if d == 0 else 0)),
-            "nested_in_cluster": bool(red.nested[d]) if spec.cluster else None,
+            "nested_in_cluster": all(red.nested[d]) if spec.cluster else None,
         }
         for d, (name, cols) in enumerate(zip(spec.fe_names, spec.fe))
     ]
@@ -178,8 +186,10 @@ def fit(
         ci_low=inf.ci_low,
         ci_high=inf.ci_high,
         vcov_type=spec.vcov,
-        cluster=spec.cluster,
+        cluster=" x ".join(spec.cluster) or None,
         n_clusters=n_clusters,
+        cluster_counts=counts,
+        psd_fixed=inf.psd_fixed,
         df=inf.df,
         small_sample=inf.small_sample,
         nobs=n,

@@ -9,6 +9,12 @@ With N rows, K kept slopes and P absorbed effect parameters (see
   g_c = sum_{i in c} u_i x~_i, G clusters; P_c counts the absorbed parameters of
   effects not nested in the cluster, plus one for the intercept when some are
   nested; t tests on G - 1 df.
+* ``cluster`` on two or more columns (Cameron, Gelbach and Miller's
+  inclusion-exclusion): V = sum over non-empty sets S of cluster columns of
+  (-1)^(|S|+1) V_S, where V_S is the CR1 matrix clustering by the combination S
+  (with its own G_S and P_c(S)); t tests on min_j G_j - 1 df. When V is not
+  positive semi-definite its negative eigenvalues are set to zero, and the
+  result says so.
 
 The F statistic tests that all slopes are zero: (b' V^-1 b) / K on (K, df).
 For ``iid`` this equals the classical ((TSS_within - RSS) / K) / s^2.
@@ -21,7 +27,17 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, stats
 
+from .dof import Absorbed
 from .errors import BigPanelError
+
+
+@dataclass(frozen=True)
+class ClusterTerm:
+    """Scores summed by one combination of cluster columns (indices into the cluster list)."""
+
+    columns: tuple[int, ...]
+    n_clusters: int
+    meat: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -40,6 +56,7 @@ class Inference:
     f_p: float
     sigma: float
     small_sample: float
+    psd_fixed: bool = False
 
 
 def infer(
@@ -47,19 +64,19 @@ def infer(
     bread: np.ndarray,
     rss: float,
     n: int,
-    absorbed: int,
+    absorbed: Absorbed,
     vcov: str,
     meat: np.ndarray | None = None,
-    n_clusters: int | None = None,
-    absorbed_cluster: int | None = None,
+    cluster_terms: list[ClusterTerm] | None = None,
+    cluster_names: tuple[str, ...] = (),
     level: float = 0.95,
 ) -> Inference:
     """Standard errors, t and p values, intervals and the F test; see the module docstring."""
     k = len(beta)
-    df_resid = n - k - absorbed
+    df_resid = n - k - absorbed.total
     if df_resid <= 0:
         raise BigPanelError(
-            f"no residual degrees of freedom: {n} rows, {k} slopes and {absorbed} absorbed effect parameters"
+            f"no residual degrees of freedom: {n} rows, {k} slopes and {absorbed.total} absorbed effect parameters"
         )
     sigma2 = rss / df_resid
     if vcov == "iid":
@@ -71,13 +88,27 @@ def infer(
         v = factor * bread @ meat @ bread
         df = float(df_resid)
     else:
-        g = int(n_clusters)
-        if g < 2:
-            raise BigPanelError("the cluster column takes a single value: cluster-robust errors need two or more")
-        factor = (g / (g - 1)) * ((n - 1) / (n - k - absorbed_cluster))
-        v = factor * bread @ meat @ bread
-        df = float(g - 1)
+        v = np.zeros_like(bread)
+        factor = 1.0
+        for term in cluster_terms or []:
+            g = term.n_clusters
+            if g < 2:
+                name = " x ".join(cluster_names[j] for j in term.columns)
+                raise BigPanelError(
+                    f"cluster column {name!r} takes a single value: cluster-robust errors need two or more clusters"
+                )
+            c = (g / (g - 1)) * ((n - 1) / (n - k - absorbed.cluster_total(term.columns)))
+            v += (-1) ** (len(term.columns) + 1) * c * bread @ term.meat @ bread
+            if len(cluster_terms) == 1:
+                factor = c
+        df = float(min(t.n_clusters for t in cluster_terms if len(t.columns) == 1) - 1)
     v = (v + v.T) / 2.0
+    psd_fixed = False
+    if vcov == "cluster" and len(cluster_terms or []) > 1:
+        eig, vec = np.linalg.eigh(v)
+        if eig.min() < 0:
+            v = (vec * np.maximum(eig, 0.0)) @ vec.T
+            psd_fixed = True
     se = np.sqrt(np.maximum(np.diag(v), 0.0))
     with np.errstate(divide="ignore", invalid="ignore"):
         t = beta / se
@@ -101,4 +132,5 @@ def infer(
         f_p=f_p,
         sigma=float(np.sqrt(sigma2)),
         small_sample=float(factor if vcov != "iid" else 1.0),
+        psd_fixed=psd_fixed,
     )

@@ -18,7 +18,8 @@ from scipy import sparse
 
 from .engine import Engine
 from .errors import BigPanelError
-from .moments import Moments
+from .inference import ClusterTerm
+from .moments import Moments, cluster_sets
 from .reduce import Reduction, Start, create_views
 from .spec import Spec
 from .sqltext import render
@@ -74,8 +75,7 @@ class MemoryBackend:
             incomplete[name] = max(incomplete.get(name, 0), int((~ok_values[:, j]).sum()))
         complete = ok_values.all(axis=1)
         key_cols = [(name, a) for d, cols in enumerate(spec.fe) for name, a in zip(cols, spec.key_aliases(d))]
-        if spec.cluster:
-            key_cols.append((spec.cluster, "cl"))
+        key_cols += list(zip(spec.cluster, spec.cluster_aliases))
         for name, alias in key_cols:
             null = tab.column(alias).is_null().to_numpy(zero_copy_only=False)
             incomplete[name] = max(incomplete.get(name, 0), int(null.sum()))
@@ -136,16 +136,17 @@ class MemoryBackend:
                 ones = np.ones(len(self.t))
                 shape = (len(counts[d]), len(counts[e]))
                 cross[(d, e)] = sparse.csr_matrix((ones, (self.codes[d], self.codes[e])), shape=shape)
-        nested = [False] * k
-        if spec.cluster:
-            cl, _ = _codes([self.rows.column("cl")])
-            self.cluster = cl
-            for d, c in enumerate(self.codes):
+        self.clusters = [_codes([self.rows.column(a)])[0] for a in spec.cluster_aliases]
+        nested = []
+        for d, c in enumerate(self.codes):
+            flags = []
+            for cl in self.clusters:
                 lo = np.full(len(counts[d]), np.iinfo(np.int64).max)
                 hi = np.full(len(counts[d]), -1)
                 np.minimum.at(lo, c, cl)
                 np.maximum.at(hi, c, cl)
-                nested[d] = bool((lo == hi).all())
+                flags.append(bool((lo == hi).all()))
+            nested.append(flags)
         return Reduction(counts, rhs, cross, nested, (self.t**2).sum(axis=0), len(keep), len(self.t), rounds)
 
     def moments(self, alpha: list[np.ndarray]) -> Moments:
@@ -164,11 +165,16 @@ class MemoryBackend:
         w = x * u[:, None]
         return w.T @ w
 
-    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
+    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
         u, x = self._resid(keep, beta)
-        g = int(self.cluster.max()) + 1
-        scores = np.column_stack([np.bincount(self.cluster, weights=u * x[:, j], minlength=g) for j in range(x.shape[1])])
-        return g, scores.T @ scores
+        terms = []
+        for cols in cluster_sets(len(self.clusters)):
+            _, codes = np.unique(np.column_stack([self.clusters[j] for j in cols]), axis=0, return_inverse=True)
+            codes = codes.ravel()
+            g = int(codes.max()) + 1
+            scores = np.column_stack([np.bincount(codes, weights=u * x[:, j], minlength=g) for j in range(x.shape[1])])
+            terms.append(ClusterTerm(cols, g, scores.T @ scores))
+        return terms
 
     def level_keys(self, d: int) -> pa.Table:
         return self.keys[d]

@@ -13,8 +13,10 @@ import numpy as np
 import pyarrow as pa
 
 from dataclasses import dataclass
+from itertools import combinations
 
 from .engine import Engine
+from .inference import ClusterTerm
 from .reduce import put_one_row
 from .spec import Spec
 from .sqltext import join, render
@@ -37,8 +39,7 @@ def create_tilde(eng: Engine, spec: Spec) -> None:
         effects = " - ".join(f"a{d + 1}.a{j}" for d in range(k))
         cols.append(f"{v} - s.m{j} - {effects} AS e{j}")
         cols.append(f"{v} - s.m{j} AS t{j}")
-    if spec.cluster:
-        cols.append("cl")
+    cols += spec.cluster_aliases
     joins = "\n".join(
         f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
     )
@@ -94,15 +95,30 @@ def meat_hc(eng: Engine, keep: list[int], beta: np.ndarray) -> np.ndarray:
     return _square(row, keep)
 
 
-def meat_cluster(eng: Engine, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
-    """Pass 4 (cluster): sum over clusters of g_c g_c', g_c = sum_{i in c} u_i x~_i."""
+def cluster_sets(n: int) -> list[tuple[int, ...]]:
+    """Every non-empty combination of ``n`` cluster columns (the terms of inclusion-exclusion)."""
+    return [c for r in range(1, n + 1) for c in combinations(range(n), r)]
+
+
+def meat_cluster(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
+    """Pass 4 (cluster): for every combination S of cluster columns, sum over its clusters
+    of g_c g_c' with g_c = sum_{i in c} u_i x~_i; one scan with grouping sets."""
     _store_coef(eng, keep, beta)
     resid, carry = _resid_parts(keep, beta)
-    scores = join(["cl"] + [f"sum(u * e{j}) AS g{j}" for j in keep])
+    names = spec.cluster_aliases
+    sets = cluster_sets(len(names))
+    scores = join([f"sum(u * e{j}) AS g{j}" for j in keep])
     sums = [f"fsum(g{i} * g{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
-    sql = render("meat_cluster", sums=join(sums), scores=scores, resid=resid, carry=carry)
-    row = eng.one("pass 4: cluster scores", sql, raw=True)
-    return int(row["n_clusters"]), _square(row, keep)
+    groups = join(["(" + ", ".join(names[j] for j in s) + ")" for s in sets], ", ")
+    sql = render("meat_cluster", sums=join(sums), scores=scores, resid=resid, carry=carry,
+                 clusters=", ".join(names), sets=groups)
+    tab = eng.arrow("pass 4: cluster scores", sql, raw=True)
+    width = len(names)
+    terms = []
+    for row in tab.to_pylist():
+        cols = tuple(j for j in range(width) if not (row["gid"] >> (width - 1 - j)) & 1)
+        terms.append(ClusterTerm(cols, int(row["n_clusters"]), _square(row, keep)))
+    return sorted(terms, key=lambda t: (len(t.columns), t.columns))
 
 
 def _square(row: dict, keep: list[int]) -> np.ndarray:

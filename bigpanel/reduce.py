@@ -42,7 +42,8 @@ class Start:
 class Reduction:
     """Group-level statistics of the estimation sample.
 
-    ``counts[d]`` holds the rows per level of effect d, ``rhs[d]`` the sums of
+    ``nested[d][j]`` says whether each level of effect d lies in one value of
+    cluster column j. ``counts[d]`` holds the rows per level of effect d, ``rhs[d]`` the sums of
     each shifted value column per level (levels x columns), ``cross[(d, e)]``
     the sparse table of rows per pair of levels of effects d < e, and
     ``sumsq`` each shifted column's sum of squares over the sample.
@@ -51,7 +52,7 @@ class Reduction:
     counts: list[np.ndarray]
     rhs: list[np.ndarray]
     cross: dict[tuple[int, int], sparse.csr_matrix]
-    nested: list[bool]
+    nested: list[list[bool]]
     sumsq: np.ndarray
     n_complete: int
     n_obs: int
@@ -66,8 +67,7 @@ def _complete(spec: Spec) -> str:
     parts = [f"isfinite({v})" for v in spec.value_aliases]
     for d in range(len(spec.fe)):
         parts += [f"{k} IS NOT NULL" for k in spec.key_aliases(d)]
-    if spec.cluster:
-        parts.append("cl IS NOT NULL")
+    parts += [f"{c} IS NOT NULL" for c in spec.cluster_aliases]
     return " AND ".join(parts)
 
 
@@ -81,8 +81,7 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
     for d, cols in enumerate(spec.fe):
         columns += [f"{ident(c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
-    if spec.cluster:
-        columns.append(f"{ident(spec.cluster)} AS cl")
+    columns += [f"{ident(c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
     where = f"({spec.where})" if spec.where else "TRUE"
     kind = "TABLE" if materialize else "VIEW"
     eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where), raw=materialize)
@@ -122,8 +121,7 @@ def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
         aggs.append(f"sum(CASE WHEN isfinite(v{j}) THEN 0 ELSE 1 END) AS bad_v{j}")
         checks.append((name, f"bad_v{j}"))
     keys = [(name, a) for d, cols in enumerate(spec.fe) for name, a in zip(cols, spec.key_aliases(d))]
-    if spec.cluster:
-        keys.append((spec.cluster, "cl"))
+    keys += list(zip(spec.cluster, spec.cluster_aliases))
     for name, alias in keys:
         aggs.append(f"sum(CASE WHEN {alias} IS NULL THEN 1 ELSE 0 END) AS bad_{alias}")
         checks.append((name, f"bad_{alias}"))
@@ -181,10 +179,8 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
     sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
     sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
-    if spec.cluster:
-        sums += ["min(cl) AS cl_min", "max(cl) AS cl_max"]
-    else:
-        sums += ["CAST(NULL AS INTEGER) AS cl_min", "CAST(NULL AS INTEGER) AS cl_max"]
+    for c in spec.cluster_aliases:
+        sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
     sets = join(["(" + ", ".join(a for d in s for a in spec.key_aliases(d)) + ")" for s in _sets(spec)], ", ")
     filters = ""
     rounds = 0
@@ -211,10 +207,15 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
     return _fetch(eng, spec, n_complete, rounds)
 
 
-def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, bool]:
-    tab = eng.arrow("level counts", render("level_table", columns="n, nested", table=f"bp_lev_{d + 1}"))
+def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, list[bool]]:
+    """Row counts of effect d's levels, and for each cluster column whether d is nested in it."""
+    tab = eng.arrow("level counts", render("level_table", columns="n", table=f"bp_lev_{d + 1}"))
     counts = tab.column("n").to_numpy().astype(float)
-    nested = bool(spec.cluster) and bool(pc.all(tab.column("nested")).as_py())
+    keys = ", ".join(spec.key_aliases(d))
+    nested = []
+    for c in spec.cluster_aliases:
+        sql = render("nested", low=f"{c}_min", high=f"{c}_max", keys=keys, table=f"bp_lev_{d + 1}")
+        nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, _home_set(spec, d))})["nested"]))
     return counts, nested
 
 

@@ -71,7 +71,8 @@ def fit_renderable(res: FitResult) -> Group:
     lines.append(VCOV_LABEL[res.vcov_type])
     if res.cluster:
         nested = [d["name"] for d in res.fe if d["nested_in_cluster"]]
-        lines.append(f" by {res.cluster} ({_n(res.n_clusters)} clusters)")
+        per = ", ".join(f"{_n(g)} {c}" for c, g in res.cluster_counts.items())
+        lines.append(f" by {res.cluster} ({per} clusters)")
         if nested:
             lines.append(f"; nested in the cluster: {', '.join(nested)}")
     lines.append(f"; t on {_n(res.df)} df")

@@ -39,6 +39,8 @@ class FitResult:
     vcov_type: str
     cluster: str | None
     n_clusters: int | None
+    cluster_counts: dict[str, int]
+    psd_fixed: bool
     df: float
     small_sample: float
     nobs: int
@@ -118,6 +120,8 @@ class FitResult:
                 "small_sample_factor": _num(self.small_sample),
                 "cluster": self.cluster,
                 "clusters": self.n_clusters,
+                "clusters_per_column": self.cluster_counts,
+                "eigenvalue_fix": self.psd_fixed,
             },
             "fixed_effects": self.fe,
             "absorbed_parameters": self.absorbed,

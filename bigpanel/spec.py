@@ -3,7 +3,7 @@
 A spec maps every user column to a short internal name so that only one SQL
 statement (the ``bp_filtered`` view) ever mentions user identifiers, quoted:
 the outcome is ``v0``, regressor j is ``vj``, column j of effect d is ``fd_j``
-and the cluster column is ``cl``.
+and cluster column j is ``clj``.
 """
 
 from __future__ import annotations
@@ -37,7 +37,7 @@ class Spec:
     y: str
     x: tuple[str, ...]
     fe: tuple[tuple[str, ...], ...]
-    cluster: str | None
+    cluster: tuple[str, ...]
     vcov: str
     where: str | None
 
@@ -49,6 +49,11 @@ class Spec:
     def key_aliases(self, d: int) -> list[str]:
         """Internal names of the columns of effect ``d`` (0-based)."""
         return [f"f{d + 1}_{j + 1}" for j in range(len(self.fe[d]))]
+
+    @property
+    def cluster_aliases(self) -> list[str]:
+        """Internal names of the cluster columns: ``cl1``, ``cl2``, ..."""
+        return [f"cl{j + 1}" for j in range(len(self.cluster))]
 
     @property
     def value_aliases(self) -> list[str]:
@@ -91,7 +96,7 @@ def build_spec(
     y: str,
     x: list[str],
     fe: list[str],
-    cluster: str | None = None,
+    cluster: list[str] | None = None,
     vcov: str | None = None,
     where: str | None = None,
 ) -> Spec:
@@ -127,13 +132,16 @@ def build_spec(
         raise BigPanelError(f"unknown variance type {vcov!r}: choose one of {', '.join(VCOV_TYPES)}")
     if vcov == "cluster" and not cluster:
         raise BigPanelError("--vcov cluster needs a --cluster column")
+    cluster = list(cluster or [])
     if cluster and vcov != "cluster":
-        raise BigPanelError(f"--cluster {cluster} conflicts with --vcov {vcov}: drop one of them")
-    if cluster:
-        _check_column(cluster, source, "cluster")
+        raise BigPanelError(f"--cluster {', '.join(cluster)} conflicts with --vcov {vcov}: drop one of them")
+    if len(set(cluster)) != len(cluster):
+        raise BigPanelError("the same cluster column is listed twice")
+    for name in cluster:
+        _check_column(name, source, "cluster")
     if where is not None:
         where = canonical_where(where) if where.strip() else None
-    return Spec(y=y, x=tuple(x), fe=effects, cluster=cluster, vcov=vcov, where=where)
+    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where)
 
 
 def canonical_where(where: str) -> str:

@@ -6,6 +6,7 @@ import numpy as np
 import pyarrow as pa
 
 from .engine import Engine
+from .inference import ClusterTerm
 from .moments import Moments, create_tilde, cross_products, meat_cluster, meat_hc, store_effects
 from .reduce import Reduction, Start, create_views, incomplete, reduce_cells, start
 from .spec import Spec
@@ -60,9 +61,9 @@ class SqlBackend:
         self._demeaned()
         return meat_hc(self.eng, keep, beta)
 
-    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> tuple[int, np.ndarray]:
+    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
         self._demeaned()
-        return meat_cluster(self.eng, keep, beta)
+        return meat_cluster(self.eng, self.spec, keep, beta)
 
     def level_keys(self, d: int) -> pa.Table:
         sql = render("level_table", columns=join(self.spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")

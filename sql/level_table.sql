@@ -1,2 +1,2 @@
--- The levels of one effect in code order (keys, row count, nesting flag).
+-- The levels of one effect in code order (keys or row counts).
 SELECT {{columns}} FROM {{table}} ORDER BY code

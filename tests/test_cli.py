@@ -88,7 +88,7 @@ def test_demo_writes_panel_with_known_truth(tmp_path):
         (["fit", "{p}", "y ~ name", "--fe", "unit"], "column 'name' has type VARCHAR"),
         (["fit", "{p}", "y ~ x1", "--fe", "nope"], "fixed-effect column 'nope' not found"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "x1 > 1e9"], "the filter 'x1 > 1e9' keeps none"),
-        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "one"], "cluster column takes a single value"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "one"], "cluster column 'one' takes a single value"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "unit", "--vcov", "hc1"], "conflicts with --vcov hc1"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--vcov", "hc9"], "unknown variance type 'hc9'"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "1=1); DROP TABLE t; SELECT (1"], "must be a single SQL expression"),

@@ -6,7 +6,7 @@ SELECT CAST("y" AS DOUBLE) AS v0,
        CAST("select" AS DOUBLE) AS v1,
        "shop id" AS f1_1,
        "wk""" AS f2_1,
-       "area" AS cl
+       "area" AS cl1
 FROM bp_source
 WHERE TRUE
 
@@ -15,7 +15,7 @@ WHERE TRUE
 CREATE OR REPLACE TEMP VIEW bp_sample AS
 SELECT *
 FROM bp_filtered
-WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl IS NOT NULL
+WHERE isfinite(v0) AND isfinite(v1) AND f1_1 IS NOT NULL AND f2_1 IS NOT NULL AND cl1 IS NOT NULL
 
 ;
 -- Rows after the user's filter (before listwise deletion).
@@ -36,8 +36,8 @@ SELECT CAST($m0 AS DOUBLE) AS m0,
 ;
 -- Pass 2: the group-level sufficient statistics. One scan groups the sample by
 -- each effect (one effect) or by each pair of effects (two or more): row count
--- and the sum of every shifted value column per cell, and the cluster's range
--- per cell (to tell whether an effect is nested in the cluster).
+-- and the sums and squares of every shifted value column per cell, and each
+-- cluster column's range per cell (to tell whether an effect is nested in it).
 CREATE OR REPLACE TEMP TABLE bp_cells AS
 SELECT f1_1, f2_1,
        GROUPING(f1_1, f2_1) AS gid,
@@ -46,34 +46,30 @@ SELECT f1_1, f2_1,
        sum(v1 - s.m1) AS s1,
        sum((v0 - s.m0) * (v0 - s.m0)) AS q0,
        sum((v1 - s.m1) * (v1 - s.m1)) AS q1,
-       min(cl) AS cl_min,
-       max(cl) AS cl_max
+       min(cl1) AS cl1_min,
+       max(cl1) AS cl1_max
 FROM bp_sample CROSS JOIN bp_shift AS s
 GROUP BY GROUPING SETS ((f1_1, f2_1))
 
 ;
--- The levels of one effect with a dense integer code in key order, the row
--- count, and whether all its rows share one cluster value.
+-- The levels of one effect with a dense integer code in key order and the row count.
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
-       n,
-       nested
-FROM (SELECT f1_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
+       n
+FROM (SELECT f1_1, sum(n) AS n
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f1_1
       HAVING sum(n) >= $min_count) AS lv
 
 ;
--- The levels of one effect with a dense integer code in key order, the row
--- count, and whether all its rows share one cluster value.
+-- The levels of one effect with a dense integer code in key order and the row count.
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
-       n,
-       nested
-FROM (SELECT f2_1, sum(n) AS n, min(cl_min) = max(cl_max) AS nested
+       n
+FROM (SELECT f2_1, sum(n) AS n
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f2_1
@@ -92,12 +88,28 @@ SELECT count(*) AS n_single FROM bp_lev_1 WHERE n = 1
 SELECT count(*) AS n_single FROM bp_lev_2 WHERE n = 1
 
 ;
--- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT n, nested FROM bp_lev_1 ORDER BY code
+-- The levels of one effect in code order (keys or row counts).
+SELECT n FROM bp_lev_1 ORDER BY code
 
 ;
--- The levels of one effect in code order (keys, row count, nesting flag).
-SELECT n, nested FROM bp_lev_2 ORDER BY code
+-- Whether every kept level of one effect lies in a single value of a cluster column.
+SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
+FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
+      FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
+      WHERE c.gid = $gid
+      GROUP BY f1_1) AS lv
+
+;
+-- The levels of one effect in code order (keys or row counts).
+SELECT n FROM bp_lev_2 ORDER BY code
+
+;
+-- Whether every kept level of one effect lies in a single value of a cluster column.
+SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
+FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
+      FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
+      WHERE c.gid = $gid
+      GROUP BY f2_1) AS lv
 
 ;
 -- One grouping set of the cells with integer level codes, for numpy.
@@ -109,11 +121,11 @@ WHERE c.gid = $gid
 ORDER BY c1, c2
 
 ;
--- The levels of one effect in code order (keys, row count, nesting flag).
+-- The levels of one effect in code order (keys or row counts).
 SELECT f1_1 FROM bp_lev_1 ORDER BY code
 
 ;
--- The levels of one effect in code order (keys, row count, nesting flag).
+-- The levels of one effect in code order (keys or row counts).
 SELECT f2_1 FROM bp_lev_2 ORDER BY code
 
 ;
@@ -135,7 +147,7 @@ SELECT v0 - s.m0 - a1.a0 - a2.a0 AS e0,
        v0 - s.m0 AS t0,
        v1 - s.m1 - a1.a1 - a2.a1 AS e1,
        v1 - s.m1 AS t1,
-       cl
+       cl1
 FROM bp_sample CROSS JOIN bp_shift AS s
 JOIN bp_alpha_1 AS a1 USING (f1_1)
 JOIN bp_alpha_2 AS a2 USING (f2_1)
@@ -161,21 +173,25 @@ CREATE OR REPLACE TEMP TABLE bp_coef AS
 SELECT CAST($b1 AS DOUBLE) AS b1
 
 ;
--- Cluster-robust meat: scores g_c = sum over the rows of cluster c of u x~,
--- then sum over clusters of g_c g_c'.
-SELECT count(*) AS n_clusters,
+-- Cluster-robust meat: for every combination of cluster columns (grouping
+-- sets), scores g_c = sum over the rows of cluster c of u x~, then the sum over
+-- clusters of g_c g_c'. One scan serves every term of inclusion-exclusion.
+SELECT gid,
+       count(*) AS n_clusters,
        fsum(g1 * g1) AS h_1_1
-FROM (SELECT cl,
-       sum(u * e1) AS g1
-      FROM (SELECT cl, e0 - (b.b1 * e1) AS u, e1
+FROM (SELECT GROUPING(cl1) AS gid,
+             sum(u * e1) AS g1
+      FROM (SELECT cl1, e0 - (b.b1 * e1) AS u, e1
             FROM bp_tilde CROSS JOIN bp_coef AS b) AS r
-      GROUP BY cl) AS g
+      GROUP BY GROUPING SETS ((cl1))) AS g
+GROUP BY gid
+ORDER BY gid
 
 ;
--- The levels of one effect in code order (keys, row count, nesting flag).
+-- The levels of one effect in code order (keys or row counts).
 SELECT f1_1 FROM bp_lev_1 ORDER BY code
 
 ;
--- The levels of one effect in code order (keys, row count, nesting flag).
+-- The levels of one effect in code order (keys or row counts).
 SELECT f2_1 FROM bp_lev_2 ORDER BY code
 
