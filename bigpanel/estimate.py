@@ -114,7 +114,8 @@ def fit(
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
         mom = back.moments(proj.alpha)
         n = mom.n
-        slopes = solve_slopes(mom.q, n, mom.sum_t, mom.sumsq_t)
+        sum_t = red.rhs[0].sum(axis=0)
+        slopes = solve_slopes(mom.q, n, sum_t, red.sumsq)
         names_all = [spec.y, *spec.x]
         if not slopes.keep:
             raise BigPanelError(
@@ -143,7 +144,8 @@ def fit(
         eng.close()
 
     q = mom.q
-    tss = float(mom.sumsq_t[0] - mom.sum_t[0] ** 2 / n)
+    tss = float(red.sumsq[0] - sum_t[0] ** 2 / n)
+    sum_e = sum_t - sum(c @ a for c, a in zip(red.counts, proj.alpha))  # D'(t - D a), summed
     warnings: list[str] = []
     if not proj.converged:
         warnings.append(
@@ -221,7 +223,7 @@ def fit(
             "tol": tol,
             "converged": proj.converged,
             "condition_number": slopes.condition,
-            "max_mean_demeaned": float(np.max(np.abs(mom.sum_e) / np.sqrt(n * np.maximum(mom.sumsq_t, 1e-300)))),
+            "max_mean_demeaned": float(np.max(np.abs(sum_e) / np.sqrt(n * np.maximum(red.sumsq, 1e-300)))),
             "raw_passes": back.raw_passes,
             "singleton_rounds": red.rounds,
             "seconds": round(time.perf_counter() - started, 4),

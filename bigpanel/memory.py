@@ -154,7 +154,7 @@ class MemoryBackend:
         for c, a in zip(self.codes, alpha):
             e -= a[c]
         self.e = e
-        return Moments(len(e), e.T @ e, e.sum(axis=0), self.t.sum(axis=0), (self.t**2).sum(axis=0))
+        return Moments(len(e), e.T @ e)
 
     def _resid(self, keep: list[int], beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         x = self.e[:, keep]

@@ -32,13 +32,12 @@ def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) ->
 
 
 def create_tilde(eng: Engine, spec: Spec) -> None:
-    """The view ``bp_tilde`` of demeaned (e_j) and shifted (t_j) columns."""
+    """The view ``bp_tilde`` of the demeaned columns e_j (and the cluster columns)."""
     k = len(spec.fe)
     cols = []
     for j, v in enumerate(spec.value_aliases):
         effects = " - ".join(f"a{d + 1}.a{j}" for d in range(k))
         cols.append(f"{v} - s.m{j} - {effects} AS e{j}")
-        cols.append(f"{v} - s.m{j} AS t{j}")
     cols += spec.cluster_aliases
     joins = "\n".join(
         f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
@@ -48,33 +47,24 @@ def create_tilde(eng: Engine, spec: Spec) -> None:
 
 @dataclass(frozen=True)
 class Moments:
-    """Row-level sums over the sample: N, E'E of the demeaned columns, sum of e, sum and sum of squares of t.
+    """Row-level sums over the sample: N and E'E of the demeaned columns.
 
-    Column 0 is the outcome, 1..K the regressors; e is demeaned, t only shifted.
+    Column 0 is the outcome, 1..K the regressors.
     """
 
     n: int
     q: np.ndarray
-    sum_e: np.ndarray
-    sum_t: np.ndarray
-    sumsq_t: np.ndarray
 
 
 def cross_products(eng: Engine, m: int) -> Moments:
     """Pass 3: the :class:`Moments` of the demeaned view."""
     sums = [f"fsum(e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
-    sums += [f"fsum(e{i}) AS se_{i}" for i in range(m)]
-    sums += [f"fsum(t{i}) AS st_{i}" for i in range(m)]
-    sums += [f"fsum(t{i} * t{i}) AS tt_{i}" for i in range(m)]
     row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     q = np.zeros((m, m))
     for i in range(m):
         for j in range(i, m):
             q[i, j] = q[j, i] = row[f"q_{i}_{j}"]
-    se = np.array([row[f"se_{i}"] for i in range(m)], dtype=float)
-    st = np.array([row[f"st_{i}"] for i in range(m)], dtype=float)
-    tt = np.array([row[f"tt_{i}"] for i in range(m)], dtype=float)
-    return Moments(int(row["n"]), q, se, st, tt)
+    return Moments(int(row["n"]), q)
 
 
 def _resid_parts(keep: list[int], beta: np.ndarray) -> tuple[str, str]:

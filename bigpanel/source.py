@@ -46,9 +46,11 @@ def connect(
     if threads:
         config["threads"] = int(threads)
     try:
-        return duckdb.connect(":memory:", config=config)
+        con = duckdb.connect(":memory:", config=config)
     except duckdb.Error as exc:
         raise BigPanelError(f"bad engine setting ({_first_line(exc)})") from None
+    con.execute(render("session_settings")).fetchall()
+    return con
 
 
 def _first_line(exc: BaseException) -> str:

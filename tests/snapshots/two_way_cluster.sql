@@ -140,13 +140,10 @@ SELECT * FROM "bp_alpha_2_arrow"
 
 ;
 -- The demeaned columns: each value minus its shift and the solved effects of
--- every dimension, joined back row by row (e0 is the outcome, ej regressor j),
--- plus the shifted columns tj for total sums of squares.
+-- every dimension, joined back row by row (e0 is the outcome, ej regressor j).
 CREATE OR REPLACE TEMP VIEW bp_tilde AS
 SELECT v0 - s.m0 - a1.a0 - a2.a0 AS e0,
-       v0 - s.m0 AS t0,
        v1 - s.m1 - a1.a1 - a2.a1 AS e1,
-       v1 - s.m1 AS t1,
        cl1
 FROM bp_sample CROSS JOIN bp_shift AS s
 JOIN bp_alpha_1 AS a1 USING (f1_1)
@@ -158,13 +155,7 @@ JOIN bp_alpha_2 AS a2 USING (f2_1)
 SELECT count(*) AS n,
        fsum(e0 * e0) AS q_0_0,
        fsum(e0 * e1) AS q_0_1,
-       fsum(e1 * e1) AS q_1_1,
-       fsum(e0) AS se_0,
-       fsum(e1) AS se_1,
-       fsum(t0) AS st_0,
-       fsum(t1) AS st_1,
-       fsum(t0 * t0) AS tt_0,
-       fsum(t1 * t1) AS tt_1
+       fsum(e1 * e1) AS q_1_1
 FROM bp_tilde
 
 ;
