@@ -132,6 +132,11 @@ def fit_command(
         "duckdb", "--engine", help="duckdb (default; data stay in the engine), spark (Spark SQL) or memory (load into numpy)."
     ),
     spark_master: Optional[str] = typer.Option(None, "--spark-master", help="Spark master URL for --engine spark (default local[*])."),
+    estimator: str = typer.Option(
+        "within", "--estimator", help="within (fixed effects, default), between, fd (first differences) or random (GLS)."
+    ),
+    time: Optional[str] = typer.Option(None, "--time", help="Period column that orders rows within a unit (for --estimator fd)."),
+    hausman: bool = typer.Option(False, "--hausman", help="With --estimator random: Hausman test against the within fit."),
     json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
     save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
     effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),
@@ -142,7 +147,10 @@ def fit_command(
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week --cluster store
     """
     with progress(quiet or json_out) as on_step:
-        res = run_fit(**model, engine=engine, spark_master=spark_master, on_step=on_step)
+        res = run_fit(
+            **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
+            on_step=on_step,
+        )
     if save is not None:
         write_text(save, res.to_json())
     if effects_out is not None:

@@ -34,7 +34,12 @@ class Absorbed:
 
     def cluster_total(self, columns: tuple[int, ...]) -> int:
         """P_c for clustering by the combination of cluster columns ``columns``."""
+        if not self.per_effect:
+            return 0  # no absorbed effects: the intercept, if any, is among the K regressors
         return 1 + sum(p for p, flags in zip(self.per_effect, self.nested) if not all(flags[j] for j in columns))
+
+
+NO_EFFECTS = Absorbed(per_effect=[], total=0, components=None, nested=[])
 
 
 def count_absorbed(levels: list[int], components: int | None, nested: list[list[bool]]) -> Absorbed:

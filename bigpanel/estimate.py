@@ -7,8 +7,8 @@ alternating projections on the level tables -> pass 3 (demeaned cross-products)
 
 from __future__ import annotations
 
-import time
 from collections.abc import Sequence
+from time import perf_counter
 from typing import Callable
 
 import numpy as np
@@ -16,6 +16,8 @@ import numpy as np
 from .dof import count_absorbed
 from .effects import effect_tables, recover
 from .errors import BigPanelError
+from .family import ESTIMATORS, hausman_test, run_family
+from .reduce import incomplete
 from .inference import infer
 from .memory import MemoryBackend
 from .project import components, solve_effects
@@ -56,6 +58,9 @@ def fit(
     threads: int | None = None,
     engine: str = "duckdb",
     spark_master: str | None = None,
+    estimator: str = "within",
+    time: str | None = None,
+    hausman: bool = False,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -73,8 +78,12 @@ def fit(
     model there (the reference for checking the SQL path on a sample);
     ``engine="spark"`` runs the same SQL on Spark (``spark_master``, default
     local mode); a ``postgresql://`` source runs it on PostgreSQL.
+    ``estimator`` is ``within`` (default), ``between``, ``fd`` (first differences
+    along ``time``) or ``random`` (GLS, Swamy-Arora; ``hausman=True`` adds the
+    test against the within fit); for those, the one ``fe`` column is the unit.
+    See :mod:`bigpanel.family`.
     """
-    started = time.perf_counter()
+    started = perf_counter()
     if formula is not None:
         if y is not None or x is not None:
             raise BigPanelError("give either a formula or --y/--x, not both")
@@ -87,6 +96,18 @@ def fit(
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
+    if estimator not in ESTIMATORS:
+        raise BigPanelError(f"unknown estimator {estimator!r}: choose one of {', '.join(ESTIMATORS)}")
+    if hausman and estimator != "random":
+        raise BigPanelError("--hausman compares fixed and random effects: use it with --estimator random")
+    if estimator != "within":
+        return _fit_family(
+            estimator, source, y, xs, _as_list(fe), _as_list(cluster), vcov, where, table, time, hausman,
+            engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads),
+            on_step, started,
+        )
+    if time is not None:
+        raise BigPanelError("--time orders rows for --estimator fd; the within estimator does not use it")
     eng, src = open_session(
         source,
         table,
@@ -107,9 +128,9 @@ def fit(
         lost = back.incomplete() if red.n_complete < first.n_filtered else {}
         if on_step:
             on_step("alternating projections on the level tables")
-        t0 = time.perf_counter()
+        t0 = perf_counter()
         proj = solve_effects(red, tol=tol, max_iter=max_iter)
-        eng.timings["projections (numpy)"] = time.perf_counter() - t0
+        eng.timings["projections (numpy)"] = perf_counter() - t0
         n_comp, labels = components(red) if len(spec.fe) >= 2 else (None, None)
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
         mom = back.moments(proj.alpha)
@@ -226,11 +247,101 @@ def fit(
             "max_mean_demeaned": float(np.max(np.abs(sum_e) / np.sqrt(n * np.maximum(red.sumsq, 1e-300)))),
             "raw_passes": back.raw_passes,
             "singleton_rounds": red.rounds,
-            "seconds": round(time.perf_counter() - started, 4),
+            "seconds": round(perf_counter() - started, 4),
         },
         effects=effects,
         source=str(source),
         where=spec.where,
         warnings=warnings,
         timings=dict(back.timings),
+    )
+
+
+def _fit_family(
+    estimator: str,
+    source: str,
+    y: str,
+    xs: list[str],
+    fe: list[str],
+    cluster: list[str],
+    vcov: str | None,
+    where: str | None,
+    table: str | None,
+    time: str | None,
+    hausman: bool,
+    engine: str,
+    settings: dict,
+    on_step: Callable[[str], None] | None,
+    started: float,
+) -> FitResult:
+    """Between, first-difference and random-effects fits (see :mod:`bigpanel.family`)."""
+    if engine == "memory":
+        raise BigPanelError(f"--estimator {estimator} runs in the SQL engines only, not with --engine memory")
+    within = None
+    if estimator == "random":
+        within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, drop_singletons=False, engine=engine,
+                     on_step=on_step, **settings)
+    backend = "spark" if engine == "spark" else "duckdb"
+    eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
+    try:
+        spec = build_spec(src, y, xs, fe, cluster, vcov, where, time=time)
+        if spec.where:
+            check_where(eng, spec.where)
+        fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)
+        sample_rows = fam.extras.pop("sample_rows")
+        lost = incomplete(eng, spec) if sample_rows < first.n_filtered else {}
+        passes = eng.raw_passes
+        timings = dict(eng.timings)
+    finally:
+        eng.close()
+    extras = dict(fam.extras)
+    warnings: list[str] = []
+    if hausman and within is not None:
+        extras["hausman"] = hausman_test(within, fam, spec.vcov)
+    counts = {}
+    if within is not None:
+        counts["units"] = within.fe[0]["levels"]
+    inf = fam.inf
+    return FitResult(
+        outcome=spec.y,
+        names=fam.names,
+        coef=fam.coef,
+        std_error=inf.std_error,
+        vcov=inf.vcov,
+        t=inf.t,
+        p=inf.p,
+        ci_low=inf.ci_low,
+        ci_high=inf.ci_high,
+        vcov_type=spec.vcov,
+        cluster=" x ".join(spec.cluster) or None,
+        n_clusters=min(fam.cluster_counts.values()) if fam.cluster_counts else None,
+        cluster_counts=fam.cluster_counts,
+        psd_fixed=inf.psd_fixed,
+        df=inf.df,
+        small_sample=inf.small_sample,
+        nobs=fam.nobs,
+        fe=[{"name": spec.fe_names[0], "columns": list(spec.fe[0]), "levels": extras.get("units", counts.get("units")),
+             "parameters": 0, "nested_in_cluster": None, "role": "unit"}],
+        absorbed=0,
+        components=None,
+        r2_within=float("nan"),
+        r2_overall=fam.r2,
+        rss=fam.rss,
+        sigma=inf.sigma,
+        df_resid=int(fam.df_resid),
+        f_stat=inf.f_stat,
+        f_df=inf.f_df,
+        f_p=inf.f_p,
+        rows={"source": first.n_source, "after_filter": first.n_filtered, "incomplete": {k: v for k, v in lost.items() if v},
+              "dropped_incomplete": first.n_filtered - sample_rows, "dropped_singletons": 0, "used": fam.nobs},
+        dropped=fam.dropped,
+        solver={"engine": engine, "path": estimator, "iterations": 0, "change": 0.0, "tol": None, "converged": True,
+                "condition_number": None, "raw_passes": passes, "seconds": round(perf_counter() - started, 4)},
+        effects={},
+        source=str(source),
+        where=spec.where,
+        warnings=warnings,
+        timings=timings,
+        estimator=estimator,
+        extras=extras,
     )

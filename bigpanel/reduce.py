@@ -68,6 +68,8 @@ def _complete(spec: Spec) -> str:
     for d in range(len(spec.fe)):
         parts += [f"{k} IS NOT NULL" for k in spec.key_aliases(d)]
     parts += [f"{c} IS NOT NULL" for c in spec.cluster_aliases]
+    if spec.time:
+        parts.append("tm IS NOT NULL")
     return " AND ".join(parts)
 
 
@@ -82,6 +84,8 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     for d, cols in enumerate(spec.fe):
         columns += [f"{ident(c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
     columns += [f"{ident(c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
+    if spec.time:
+        columns.append(f"{ident(spec.time)} AS tm")
     where = f"({spec.where})" if spec.where else "TRUE"
     kind = "TABLE" if materialize else "VIEW"
     eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where), raw=materialize)
@@ -122,6 +126,8 @@ def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
         checks.append((name, f"bad_v{j}"))
     keys = [(name, a) for d, cols in enumerate(spec.fe) for name, a in zip(cols, spec.key_aliases(d))]
     keys += list(zip(spec.cluster, spec.cluster_aliases))
+    if spec.time:
+        keys.append((spec.time, "tm"))
     for name, alias in keys:
         aggs.append(f"sum(CASE WHEN {alias} IS NULL THEN 1 ELSE 0 END) AS bad_{alias}")
         checks.append((name, f"bad_{alias}"))

@@ -35,8 +35,11 @@ def fit_renderable(res: FitResult) -> Group:
     head = Text()
     head.append(f"{res.estimator} estimate  ", style="bold")
     head.append(res.formula, style="bold magenta")
-    effects = " + ".join(f"{d['name']} ({_n(d['levels'])} levels)" for d in res.fe)
-    head.append(f"\nabsorbing  {effects}", style="dim")
+    if res.estimator == "within":
+        effects = " + ".join(f"{d['name']} ({_n(d['levels'])} levels)" for d in res.fe)
+        head.append(f"\nabsorbing  {effects}", style="dim")
+    else:
+        head.append(f"\nunit  {res.fe[0]['name']}", style="dim")
 
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
     table.add_column("regressor")
@@ -77,20 +80,48 @@ def fit_renderable(res: FitResult) -> Group:
             lines.append(f"; nested in the cluster: {', '.join(nested)}")
     lines.append(f"; t on {_n(res.df)} df")
     lines.append("\nfit       ", style="bold")
+    r2 = f"within R2 {res.r2_within:.4f}; overall R2" if res.estimator == "within" else "R2 of the transformed regression"
     lines.append(
-        f"within R2 {res.r2_within:.4f}; overall R2 {res.r2_overall:.4f}; residual s.e. {_g(res.sigma, 4)} "
+        f"{r2} {res.r2_overall:.4f}; residual s.e. {_g(res.sigma, 4)} "
         f"on {_n(res.df_resid)} df; F({_n(res.f_df[0])}, {_n(res.f_df[1])}) = {res.f_stat:.4g}, p {_p(res.f_p)}"
     )
-    lines.append("\neffects   ", style="bold")
-    comp = f" in {res.components} connected components" if res.components else ""
-    lines.append(f"{_n(res.absorbed)} absorbed parameters{comp}")
     s = res.solver
-    lines.append("\nsolver    ", style="bold")
-    conv = "converged" if s["converged"] else "NOT CONVERGED"
-    lines.append(
-        f"{s['path']}; {s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv}); "
-        f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s"
-    )
+    if res.estimator == "within":
+        lines.append("\neffects   ", style="bold")
+        comp = f" in {res.components} connected components" if res.components else ""
+        lines.append(f"{_n(res.absorbed)} absorbed parameters{comp}")
+        lines.append("\nsolver    ", style="bold")
+        conv = "converged" if s["converged"] else "NOT CONVERGED"
+        lines.append(
+            f"{s['path']}; {s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv}); "
+            f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s"
+        )
+    else:
+        lines.append("\nsolver    ", style="bold")
+        lines.append(f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")
+    re_ = res.extras.get("random_effects")
+    if re_:
+        lines.append("\ncomponents", style="bold")
+        th = re_["theta"]
+        lines.append(
+            f" {re_['method']}: sigma_u {_g(re_['sigma_u'], 4)}, sigma_e {_g(re_['sigma_e'], 4)}; theta "
+            + (f"{th['min']:.4f}" if th["min"] == th["max"] else f"{th['min']:.4f} to {th['max']:.4f}")
+            + ("; sigma_u^2 was negative and is set to 0" if re_["sigma_u_clipped_at_zero"] else "")
+        )
+    hs = res.extras.get("hausman")
+    if hs:
+        lines.append("\nhausman   ", style="bold")
+        lines.append(f"chi2({hs['df']}) = {hs['statistic']:.4g}, p {_p(hs['p_value'])} on {', '.join(hs['regressors'])}")
+        for key in ("note", "caution"):
+            if key in hs:
+                lines.append(f"; {hs[key]}", style="yellow")
+    fd = res.extras.get("first_difference")
+    if fd:
+        lines.append("\ndiffs     ", style="bold")
+        lines.append(
+            f"{_n(fd['usable'])} over consecutive periods; {_n(fd['dropped_gaps'])} across a gap dropped; "
+            f"{_n(fd['first_rows'])} first rows of a unit"
+        )
     if res.dropped:
         lines.append("\ndropped   ", style="bold yellow")
         lines.append("; ".join(f"{d['name']} ({d['reason']})" for d in res.dropped), style="yellow")

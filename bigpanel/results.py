@@ -64,6 +64,7 @@ class FitResult:
     warnings: list[str] = field(default_factory=list)
     timings: dict[str, float] = field(default_factory=dict)
     estimator: str = "within"
+    extras: dict[str, Any] = field(default_factory=dict)
 
     @property
     def params(self) -> dict[str, float]:
@@ -142,6 +143,7 @@ class FitResult:
             "effects_summary": self.effects_summary(),
             "warnings": self.warnings,
             "timings": {k: round(v, 4) for k, v in self.timings.items()},
+            **self.extras,
         }
 
     def to_json(self, indent: int | None = 2) -> str:

