@@ -6,7 +6,8 @@ Normalisation: with one effect, level g gets mean_g(y) - mean_g(x)'b (the
 intercept is inside). With two or more, effect 2 has a row-weighted mean of
 zero within every connected component of effects 1 and 2, effects 3 and up have
 a row-weighted mean of zero, and effect 1 carries the intercept; the fitted
-values do not depend on this choice.
+values do not depend on this choice. (When the projections ran in the engine,
+the components are not known and effect 2 is centred like effects 3 and up.)
 """
 
 from __future__ import annotations
@@ -40,7 +41,7 @@ def recover(
         centre = wsum / np.where(wcnt > 0, wcnt, 1.0)
         fx[1] = fx[1] - centre[lab2]
         fx[0] = fx[0] + centre[lab1]
-    for d in range(2, len(fx)):
+    for d in range(1 if labels is None else 2, len(fx)):
         centre = float(np.average(fx[d], weights=counts[d]))
         fx[d] = fx[d] - centre
         fx[0] = fx[0] + centre

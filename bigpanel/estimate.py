@@ -7,6 +7,7 @@ alternating projections on the level tables -> pass 3 (demeaned cross-products)
 
 from __future__ import annotations
 
+import os
 from collections.abc import Sequence
 from time import perf_counter
 from typing import Callable
@@ -20,7 +21,7 @@ from .family import ESTIMATORS, hausman_test, run_family
 from .reduce import incomplete
 from .inference import infer
 from .memory import MemoryBackend
-from .project import components, solve_effects
+from .project import components
 from .results import FitResult
 from .solve import ILL_CONDITIONED, solve_slopes
 from .source import open_session
@@ -61,6 +62,7 @@ def fit(
     estimator: str = "within",
     time: str | None = None,
     hausman: bool = False,
+    cell_budget: int | None = None,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -81,7 +83,9 @@ def fit(
     ``estimator`` is ``within`` (default), ``between``, ``fd`` (first differences
     along ``time``) or ``random`` (GLS, Swamy-Arora; ``hausman=True`` adds the
     test against the within fit); for those, the one ``fe`` column is the unit.
-    See :mod:`bigpanel.family`.
+    See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
+    machine's memory) bounds the pair tables fetched to numpy; above it the
+    projections run inside the engine (:mod:`bigpanel.sweeps`).
     """
     started = perf_counter()
     if formula is not None:
@@ -124,14 +128,20 @@ def fit(
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
         first = back.start()
-        red = back.reduce(drop_singletons)
+        red = back.reduce(drop_singletons, cell_budget or _default_budget())
         lost = back.incomplete() if red.n_complete < first.n_filtered else {}
         if on_step:
             on_step("alternating projections on the level tables")
         t0 = perf_counter()
-        proj = solve_effects(red, tol=tol, max_iter=max_iter)
+        proj = back.project(red, tol, max_iter)
         eng.timings["projections (numpy)"] = perf_counter() - t0
-        n_comp, labels = components(red) if len(spec.fe) >= 2 else (None, None)
+        in_engine = red.cross is None
+        if len(spec.fe) >= 2:
+            # in-engine path: the pair tables stay in the engine; one component is assumed
+            # (conservative: P may count C - 1 parameters too many)
+            n_comp, labels = (1, None) if in_engine else components(red)
+        else:
+            n_comp, labels = None, None
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
         mom = back.moments(proj.alpha)
         n = mom.n
@@ -238,7 +248,8 @@ def fit(
         dropped=[{"name": names_all[j], "reason": why} for j, why in slopes.dropped],
         solver={
             "engine": engine,
-            "path": "group-level statistics" if len(spec.fe) > 1 else "exact one-way demeaning",
+            "path": ("in-engine sweeps (pair tables over the memory budget)" if in_engine
+                     else "group-level statistics" if len(spec.fe) > 1 else "exact one-way demeaning"),
             "iterations": proj.iterations,
             "change": proj.change,
             "tol": tol,
@@ -255,6 +266,11 @@ def fit(
         warnings=warnings,
         timings=dict(back.timings),
     )
+
+
+def _default_budget() -> int:
+    """A quarter of the machine's physical memory, in bytes."""
+    return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") // 4
 
 
 def _fit_family(

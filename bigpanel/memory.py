@@ -20,6 +20,7 @@ from .engine import Engine
 from .errors import BigPanelError
 from .inference import ClusterTerm
 from .moments import Moments, cluster_sets
+from .project import Projection, solve_effects
 from .reduce import Reduction, Start, create_views
 from .spec import Spec
 from .sqltext import render
@@ -99,7 +100,10 @@ class MemoryBackend:
     def incomplete(self) -> dict[str, int]:
         return self.bad
 
-    def reduce(self, drop_singletons: bool) -> Reduction:
+    def project(self, red: Reduction, tol: float, max_iter: int) -> Projection:
+        return solve_effects(red, tol=tol, max_iter=max_iter)
+
+    def reduce(self, drop_singletons: bool, cell_budget: int) -> Reduction:
         spec = self.spec
         k = len(spec.fe)
         codes, self.keys = [], []

@@ -45,13 +45,15 @@ class Reduction:
     ``nested[d][j]`` says whether each level of effect d lies in one value of
     cluster column j. ``counts[d]`` holds the rows per level of effect d, ``rhs[d]`` the sums of
     each shifted value column per level (levels x columns), ``cross[(d, e)]``
-    the sparse table of rows per pair of levels of effects d < e, and
+    the sparse table of rows per pair of levels of effects d < e (None when
+    the pair tables exceed the memory budget: the projections then run in the
+    engine, see :mod:`bigpanel.sweeps`), and
     ``sumsq`` each shifted column's sum of squares over the sample.
     """
 
     counts: list[np.ndarray]
     rhs: list[np.ndarray]
-    cross: dict[tuple[int, int], sparse.csr_matrix]
+    cross: dict[tuple[int, int], sparse.csr_matrix] | None
     nested: list[list[bool]]
     sumsq: np.ndarray
     n_complete: int
@@ -175,7 +177,7 @@ def _single_levels(eng: Engine, spec: Spec) -> int:
     )
 
 
-def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
+def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, cell_budget: int) -> Reduction:
     """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
 
     Per cell: the row count and the sums and sums of squares of the shifted columns.
@@ -210,7 +212,7 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool) -> Reduction:
         filters = "".join(
             f"\nJOIN bp_lev_{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
         )
-    return _fetch(eng, spec, n_complete, rounds)
+    return _fetch(eng, spec, n_complete, rounds, cell_budget)
 
 
 def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, list[bool]]:
@@ -225,13 +227,28 @@ def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, list[boo
     return counts, nested
 
 
-def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int) -> Reduction:
+def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray]:
+    """Effect d's per-level sums (levels x columns) and the columns' total sums of squares."""
+    m = len(spec.value_aliases)
+    sums = join([f"sum(c.s{j}) AS s{j}" for j in range(m)] + [f"sum(c.q{j}) AS q{j}" for j in range(m)], ", ")
+    sql = render("level_sums", sums=sums, table=f"bp_lev_{d + 1}", keys=", ".join(spec.key_aliases(d)))
+    tab = eng.arrow("level sums", sql, {"gid": _gid(spec, _home_set(spec, d))})
+    rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
+    return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
+
+
+def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, cell_budget: int) -> Reduction:
     k = len(spec.fe)
     m = len(spec.value_aliases)
     counts, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
     for d in range(k):
         if len(counts[d]) == 0:
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
+    n_cells = int(eng.one("cell count", render("cell_count"))["n"])
+    if k >= 2 and n_cells * 8 * (2 * m + 3) > cell_budget:
+        sums = [_level_sums(eng, spec, d) for d in range(k)]
+        return Reduction(list(counts), [s[0] for s in sums], None, list(nested), sums[0][1], n_complete,
+                         int(counts[0].sum()), rounds)
     rhs: list[np.ndarray | None] = [None] * k
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
     for dims in _sets(spec):

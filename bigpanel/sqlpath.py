@@ -6,6 +6,8 @@ import numpy as np
 import pyarrow as pa
 
 from .engine import Engine
+from .project import Projection, solve_effects
+from .sweeps import sweep_in_engine
 from .inference import ClusterTerm
 from .moments import Moments, create_tilde, cross_products, meat_cluster, meat_hc, store_effects
 from .reduce import Reduction, Start, create_views, incomplete, reduce_cells, start
@@ -38,9 +40,16 @@ class SqlBackend:
     def start(self) -> Start:
         return start(self.eng, self.spec, scans_to_count=bool(self.spec.where) and self.source_kind != "csv")
 
-    def reduce(self, drop_singletons: bool) -> Reduction:
-        self.red = reduce_cells(self.eng, self.spec, drop_singletons)
+    def reduce(self, drop_singletons: bool, cell_budget: int) -> Reduction:
+        self.red = reduce_cells(self.eng, self.spec, drop_singletons, cell_budget)
         return self.red
+
+    def project(self, red: Reduction, tol: float, max_iter: int) -> Projection:
+        """On the level tables in numpy, or in the engine when the pair tables stayed there."""
+        if red.cross is None:
+            keys = [self.level_keys(d) for d in range(len(red.counts))]
+            return sweep_in_engine(self.eng, self.spec, red, keys, tol, max_iter)
+        return solve_effects(red, tol=tol, max_iter=max_iter)
 
     def incomplete(self) -> dict[str, int]:
         return incomplete(self.eng, self.spec)

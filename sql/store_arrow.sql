@@ -1,3 +1,3 @@
--- Copy a registered Arrow table (level effects) into a temporary table.
+-- Copy a small table, or a registered Arrow table, into a temporary table.
 CREATE OR REPLACE TEMP TABLE {{table}} AS
 SELECT * FROM {{view}}

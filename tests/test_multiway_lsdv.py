@@ -110,3 +110,21 @@ def test_chain_graph_converges(to_parquet):
     assert res.solver["iterations"] < 1000
     assert rel(res.coef, ref.params[:2]) < 1e-6
     assert rel(res.std_error, ref.bse[:2]) < 1e-6
+
+
+@pytest.mark.parametrize("fe", [["worker", "firm"], ["worker", "firm", "year"]])
+def test_in_engine_sweeps_when_pairs_exceed_the_budget(to_parquet, fe):
+    # A budget of one byte forces the in-engine path; one connected block so that its
+    # conservative one-component count is exact. Reference: statsmodels LSDV, and the
+    # group-level path itself.
+    df = mobility_panel(seed=9)
+    df = df[df["worker"] < 100].reset_index(drop=True)
+    path = to_parquet(df)
+    slow = bigpanel.fit(path, y="y", x=X, fe=fe, cell_budget=1, vcov="hc1", tol=1e-12)
+    fast = bigpanel.fit(path, y="y", x=X, fe=fe, vcov="hc1")
+    assert slow.solver["path"].startswith("in-engine") and slow.solver["converged"]
+    assert slow.solver["raw_passes"] > fast.solver["raw_passes"]
+    sample = drop_singletons(df, fe)
+    ref = lsdv(sample, "y", X, fe, cov_type="HC1")
+    assert rel(slow.coef, ref.params[:2]) < 1e-6 and rel(slow.std_error, ref.bse[:2]) < 1e-6
+    assert rel(slow.coef, fast.coef) < 1e-6

@@ -112,6 +112,10 @@ FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
       GROUP BY f2_1) AS lv
 
 ;
+-- How many cells the reduction produced (all grouping sets).
+SELECT count(*) AS n FROM bp_cells
+
+;
 -- One grouping set of the cells with integer level codes, for numpy.
 SELECT l1.code AS c1, l2.code AS c2, c.n, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
@@ -129,12 +133,12 @@ SELECT f1_1 FROM bp_lev_1 ORDER BY code
 SELECT f2_1 FROM bp_lev_2 ORDER BY code
 
 ;
--- Copy a registered Arrow table (level effects) into a temporary table.
+-- Copy a small table, or a registered Arrow table, into a temporary table.
 CREATE OR REPLACE TEMP TABLE "bp_alpha_1" AS
 SELECT * FROM "bp_alpha_1_arrow"
 
 ;
--- Copy a registered Arrow table (level effects) into a temporary table.
+-- Copy a small table, or a registered Arrow table, into a temporary table.
 CREATE OR REPLACE TEMP TABLE "bp_alpha_2" AS
 SELECT * FROM "bp_alpha_2_arrow"
 

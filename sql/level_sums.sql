@@ -1,0 +1,8 @@
+-- Per level of one effect (in code order): the sums and squares of the shifted
+-- columns, from the cells of a grouping set that holds the effect.
+SELECT l.code, {{sums}}
+FROM bp_cells AS c
+JOIN {{table}} AS l USING ({{keys}})
+WHERE c.gid = $gid
+GROUP BY l.code
+ORDER BY l.code
