@@ -137,6 +137,7 @@ def fit_command(
     ),
     time: Optional[str] = typer.Option(None, "--time", help="Period column that orders rows within a unit (for --estimator fd)."),
     hausman: bool = typer.Option(False, "--hausman", help="With --estimator random: Hausman test against the within fit."),
+    weights: Optional[str] = typer.Option(None, "--weights", help="Column of analytic weights (within estimator)."),
     json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
     save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
     effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),
@@ -149,7 +150,7 @@ def fit_command(
     with progress(quiet or json_out) as on_step:
         res = run_fit(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
-            on_step=on_step,
+            weights=weights, on_step=on_step,
         )
     if save is not None:
         write_text(save, res.to_json())

@@ -63,6 +63,7 @@ def fit(
     time: str | None = None,
     hausman: bool = False,
     cell_budget: int | None = None,
+    weights: str | None = None,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -85,7 +86,10 @@ def fit(
     test against the within fit); for those, the one ``fe`` column is the unit.
     See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
     machine's memory) bounds the pair tables fetched to numpy; above it the
-    projections run inside the engine (:mod:`bigpanel.sweeps`).
+    projections run inside the engine (:mod:`bigpanel.sweeps`). ``weights`` names
+    a column of analytic weights (within only for now): the effects are weighted
+    level means and every moment is weighted; rows with a missing or
+    non-positive weight are dropped and counted.
     """
     started = perf_counter()
     if formula is not None:
@@ -106,7 +110,7 @@ def fit(
         raise BigPanelError("--hausman compares fixed and random effects: use it with --estimator random")
     if estimator != "within":
         return _fit_family(
-            estimator, source, y, xs, _as_list(fe), _as_list(cluster), vcov, where, table, time, hausman,
+            estimator, source, y, xs, _as_list(fe), _as_list(cluster), vcov, where, table, time, hausman, weights,
             engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads),
             on_step, started,
         )
@@ -123,7 +127,7 @@ def fit(
         on_step=on_step,
     )
     try:
-        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), vcov, where)
+        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), vcov, where, weights=weights)
         if spec.where:
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
@@ -146,7 +150,8 @@ def fit(
         mom = back.moments(proj.alpha)
         n = mom.n
         sum_t = red.rhs[0].sum(axis=0)
-        slopes = solve_slopes(mom.q, n, sum_t, red.sumsq)
+        total_weight = float(red.counts[0].sum())
+        slopes = solve_slopes(mom.q, total_weight, sum_t, red.sumsq)
         names_all = [spec.y, *spec.x]
         if not slopes.keep:
             raise BigPanelError(
@@ -170,12 +175,12 @@ def fit(
             cluster_names=spec.cluster,
         )
         fx = recover(proj, red.counts, slopes.keep, slopes.beta, first.shift, labels)
-        effects = effect_tables(spec, back.level_keys, fx, red.counts)
+        effects = effect_tables(spec, back.level_keys, fx, red.rows)
     finally:
         eng.close()
 
     q = mom.q
-    tss = float(red.sumsq[0] - sum_t[0] ** 2 / n)
+    tss = float(red.sumsq[0] - sum_t[0] ** 2 / total_weight)
     sum_e = sum_t - sum(c @ a for c, a in zip(red.counts, proj.alpha))  # D'(t - D a), summed
     warnings: list[str] = []
     if not proj.converged:
@@ -285,6 +290,7 @@ def _fit_family(
     table: str | None,
     time: str | None,
     hausman: bool,
+    weights: str | None,
     engine: str,
     settings: dict,
     on_step: Callable[[str], None] | None,
@@ -300,7 +306,7 @@ def _fit_family(
     backend = "spark" if engine == "spark" else "duckdb"
     eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
     try:
-        spec = build_spec(src, y, xs, fe, cluster, vcov, where, time=time)
+        spec = build_spec(src, y, xs, fe, cluster, vcov, where, time=time, weights=weights)
         if spec.where:
             check_where(eng, spec.where)
         fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)

@@ -67,7 +67,7 @@ class FamilyFit:
 def _inference(spec: Spec, eng: Engine, keep: list[int], slopes: Any, n: int) -> tuple[Inference, list[ClusterTerm]]:
     meat, terms = None, []
     if spec.vcov == "hc1":
-        meat = meat_hc(eng, keep, slopes.beta)
+        meat = meat_hc(eng, spec, keep, slopes.beta)
     elif spec.vcov == "cluster":
         terms = meat_cluster(eng, spec, keep, slopes.beta)
     inf = infer(slopes.beta, slopes.bread, slopes.rss, n, NO_EFFECTS, spec.vcov, meat=meat,
@@ -234,6 +234,8 @@ def run_family(
     eng: Engine, spec: Spec, source_kind: str, estimator: str, sigma_e2: float | None
 ) -> tuple[FamilyFit, Start]:
     """Open the views, take the shifts, and run ``estimator`` (between, fd or random)."""
+    if spec.weights:
+        raise BigPanelError(f"--weights is not available for --estimator {estimator} yet, only for within")
     if len(spec.fe) != 1 or len(spec.fe[0]) != 1:
         raise BigPanelError(f"--estimator {estimator} takes exactly one --fe column: the unit")
     create_views(eng, spec, materialize=source_kind == "csv")

@@ -86,11 +86,19 @@ class MemoryBackend:
             raise BigPanelError(
                 "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
             )
+        self.w = np.ones(len(values))
+        if spec.weights:
+            w = tab.column("w").to_numpy(zero_copy_only=False).astype(float)
+            good = np.isfinite(w) & (w > 0)
+            incomplete[spec.weights] = int((~good).sum())
+            complete &= good
+            self.w = np.where(good, w, 0.0)
         self.bad = incomplete
         if not complete.any():
             worst = max(incomplete, key=lambda c: incomplete[c])
             raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {incomplete[worst]} rows")
         self.values = values[complete]
+        self.w = self.w[complete]
         self.rows = tab.filter(pa.array(complete))
         shift = self.values[:1000].mean(axis=0)
         self.t = self.values - shift
@@ -126,20 +134,23 @@ class MemoryBackend:
         if not keep.any():
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[0]!r} holds a single row (singletons)")
         self.t = self.t[keep]
+        self.w = self.w[keep]
         self.rows = self.rows.filter(pa.array(keep))
         self.codes = []
         for d in range(k):
             used, inverse = np.unique(codes[d][keep], return_inverse=True)
             self.codes.append(inverse.astype(np.int64))
             self.keys[d] = self.keys[d].take(pa.array(used))
-        counts = [np.bincount(c).astype(float) for c in self.codes]
-        rhs = [np.column_stack([np.bincount(c, weights=self.t[:, j]) for j in range(self.t.shape[1])]) for c in self.codes]
+        w = self.w
+        rows = [np.bincount(c) for c in self.codes]
+        counts = [np.bincount(c, weights=w) for c in self.codes]
+        rhs = [np.column_stack([np.bincount(c, weights=w * self.t[:, j]) for j in range(self.t.shape[1])])
+               for c in self.codes]
         cross = {}
         for d in range(k):
             for e in range(d + 1, k):
-                ones = np.ones(len(self.t))
                 shape = (len(counts[d]), len(counts[e]))
-                cross[(d, e)] = sparse.csr_matrix((ones, (self.codes[d], self.codes[e])), shape=shape)
+                cross[(d, e)] = sparse.csr_matrix((w, (self.codes[d], self.codes[e])), shape=shape)
         self.clusters = [_codes([self.rows.column(a)])[0] for a in spec.cluster_aliases]
         nested = []
         for d, c in enumerate(self.codes):
@@ -151,18 +162,19 @@ class MemoryBackend:
                 np.maximum.at(hi, c, cl)
                 flags.append(bool((lo == hi).all()))
             nested.append(flags)
-        return Reduction(counts, rhs, cross, nested, (self.t**2).sum(axis=0), len(keep), len(self.t), rounds)
+        sumsq = (w[:, None] * self.t**2).sum(axis=0)
+        return Reduction(counts, rows, rhs, cross, nested, sumsq, len(keep), len(self.t), rounds)
 
     def moments(self, alpha: list[np.ndarray]) -> Moments:
         e = self.t.copy()
         for c, a in zip(self.codes, alpha):
             e -= a[c]
         self.e = e
-        return Moments(len(e), e.T @ e)
+        return Moments(len(e), (e * self.w[:, None]).T @ e)
 
     def _resid(self, keep: list[int], beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         x = self.e[:, keep]
-        return self.e[:, 0] - x @ beta, x
+        return (self.e[:, 0] - x @ beta) * self.w, x
 
     def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
         u, x = self._resid(keep, beta)

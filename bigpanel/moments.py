@@ -39,6 +39,8 @@ def create_tilde(eng: Engine, spec: Spec) -> None:
         effects = " - ".join(f"a{d + 1}.a{j}" for d in range(k))
         cols.append(f"{v} - s.m{j} - {effects} AS e{j}")
     cols += spec.cluster_aliases
+    if spec.weights:
+        cols.append("w")
     joins = "\n".join(
         f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
     )
@@ -56,9 +58,9 @@ class Moments:
     q: np.ndarray
 
 
-def cross_products(eng: Engine, m: int) -> Moments:
-    """Pass 3: the :class:`Moments` of the demeaned view."""
-    sums = [f"fsum(e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
+def cross_products(eng: Engine, m: int, w: str = "") -> Moments:
+    """Pass 3: the :class:`Moments` of the demeaned view (weighted when ``w`` is ``"w * "``)."""
+    sums = [f"fsum({w}e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
     row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     q = np.zeros((m, m))
     for i in range(m):
@@ -67,19 +69,21 @@ def cross_products(eng: Engine, m: int) -> Moments:
     return Moments(int(row["n"]), q)
 
 
-def _resid_parts(keep: list[int], beta: np.ndarray) -> tuple[str, str]:
+def _resid_parts(keep: list[int], weighted: bool) -> tuple[str, str]:
+    """The residual u (times the weight, when weighted) and the columns the meat needs."""
     fit = " + ".join(f"b.b{j} * e{j}" for j in keep)
-    return f"e0 - ({fit})", ", ".join(f"e{j}" for j in keep)
+    resid = f"(e0 - ({fit}))" + (" * w" if weighted else "")
+    return resid, ", ".join(f"e{j}" for j in keep)
 
 
 def _store_coef(eng: Engine, keep: list[int], beta: np.ndarray) -> None:
     put_one_row(eng, "bp_coef", {f"b{j}": float(b) for j, b in zip(keep, beta)})
 
 
-def meat_hc(eng: Engine, keep: list[int], beta: np.ndarray) -> np.ndarray:
-    """Pass 4 (HC1): sum_i u_i^2 x~_i x~_i' over the kept regressors."""
+def meat_hc(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> np.ndarray:
+    """Pass 4 (HC1): sum_i (w_i u_i)^2 x~_i x~_i' over the kept regressors (w = 1 unweighted)."""
     _store_coef(eng, keep, beta)
-    resid, carry = _resid_parts(keep, beta)
+    resid, carry = _resid_parts(keep, bool(spec.weights))
     sums = [f"fsum(u * u * e{i} * e{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
     row = eng.one("pass 4: robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
     return _square(row, keep)
@@ -92,9 +96,9 @@ def cluster_sets(n: int) -> list[tuple[int, ...]]:
 
 def meat_cluster(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
     """Pass 4 (cluster): for every combination S of cluster columns, sum over its clusters
-    of g_c g_c' with g_c = sum_{i in c} u_i x~_i; one scan with grouping sets."""
+    of g_c g_c' with g_c = sum_{i in c} w_i u_i x~_i; one scan with grouping sets."""
     _store_coef(eng, keep, beta)
-    resid, carry = _resid_parts(keep, beta)
+    resid, carry = _resid_parts(keep, bool(spec.weights))
     names = spec.cluster_aliases
     sets = cluster_sets(len(names))
     scores = join([f"sum(u * e{j}) AS g{j}" for j in keep])

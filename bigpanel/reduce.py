@@ -43,7 +43,8 @@ class Reduction:
     """Group-level statistics of the estimation sample.
 
     ``nested[d][j]`` says whether each level of effect d lies in one value of
-    cluster column j. ``counts[d]`` holds the rows per level of effect d, ``rhs[d]`` the sums of
+    cluster column j. ``counts[d]`` holds the weight (the row count when
+    unweighted) of each level of effect d and ``rows[d]`` its rows, ``rhs[d]`` the weighted sums of
     each shifted value column per level (levels x columns), ``cross[(d, e)]``
     the sparse table of rows per pair of levels of effects d < e (None when
     the pair tables exceed the memory budget: the projections then run in the
@@ -52,6 +53,7 @@ class Reduction:
     """
 
     counts: list[np.ndarray]
+    rows: list[np.ndarray]
     rhs: list[np.ndarray]
     cross: dict[tuple[int, int], sparse.csr_matrix] | None
     nested: list[list[bool]]
@@ -72,6 +74,8 @@ def _complete(spec: Spec) -> str:
     parts += [f"{c} IS NOT NULL" for c in spec.cluster_aliases]
     if spec.time:
         parts.append("tm IS NOT NULL")
+    if spec.weights:
+        parts.append("isfinite(w) AND w > 0")
     return " AND ".join(parts)
 
 
@@ -88,6 +92,8 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     columns += [f"{ident(c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
     if spec.time:
         columns.append(f"{ident(spec.time)} AS tm")
+    if spec.weights:
+        columns.append(f"CAST({ident(spec.weights)} AS DOUBLE) AS w")
     where = f"({spec.where})" if spec.where else "TRUE"
     kind = "TABLE" if materialize else "VIEW"
     eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where), raw=materialize)
@@ -130,6 +136,9 @@ def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
     keys += list(zip(spec.cluster, spec.cluster_aliases))
     if spec.time:
         keys.append((spec.time, "tm"))
+    if spec.weights:
+        aggs.append("sum(CASE WHEN isfinite(w) AND w > 0 THEN 0 ELSE 1 END) AS bad_w")
+        checks.append((spec.weights, "bad_w"))
     for name, alias in keys:
         aggs.append(f"sum(CASE WHEN {alias} IS NULL THEN 1 ELSE 0 END) AS bad_{alias}")
         checks.append((name, f"bad_{alias}"))
@@ -185,8 +194,10 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, cell_budget: in
     k = len(spec.fe)
     m = len(spec.value_aliases)
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
-    sums = [f"sum({v} - s.m{j}) AS s{j}" for j, v in enumerate(spec.value_aliases)]
-    sums += [f"sum(({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
+    w = spec.w
+    sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]
+    sums += [f"sum({w}({v} - s.m{j})) AS s{j}" for j, v in enumerate(spec.value_aliases)]
+    sums += [f"sum({w}({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
     for c in spec.cluster_aliases:
         sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
     sets = join(["(" + ", ".join(a for d in s for a in spec.key_aliases(d)) + ")" for s in _sets(spec)], ", ")
@@ -215,16 +226,17 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, cell_budget: in
     return _fetch(eng, spec, n_complete, rounds, cell_budget)
 
 
-def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, list[bool]]:
-    """Row counts of effect d's levels, and for each cluster column whether d is nested in it."""
-    tab = eng.arrow("level counts", render("level_table", columns="n", table=f"bp_lev_{d + 1}"))
-    counts = tab.column("n").to_numpy().astype(float)
+def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
+    """Weights and row counts of effect d's levels, and for each cluster column whether d is nested in it."""
+    tab = eng.arrow("level counts", render("level_table", columns="nw, n", table=f"bp_lev_{d + 1}"))
+    weights = tab.column("nw").to_numpy().astype(float)
+    rows = tab.column("n").to_numpy().astype(np.int64)
     keys = ", ".join(spec.key_aliases(d))
     nested = []
     for c in spec.cluster_aliases:
         sql = render("nested", low=f"{c}_min", high=f"{c}_max", keys=keys, table=f"bp_lev_{d + 1}")
         nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, _home_set(spec, d))})["nested"]))
-    return counts, nested
+    return weights, rows, nested
 
 
 def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray]:
@@ -240,15 +252,15 @@ def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray
 def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, cell_budget: int) -> Reduction:
     k = len(spec.fe)
     m = len(spec.value_aliases)
-    counts, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
+    counts, rows, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
     for d in range(k):
         if len(counts[d]) == 0:
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
     n_cells = int(eng.one("cell count", render("cell_count"))["n"])
     if k >= 2 and n_cells * 8 * (2 * m + 3) > cell_budget:
         sums = [_level_sums(eng, spec, d) for d in range(k)]
-        return Reduction(list(counts), [s[0] for s in sums], None, list(nested), sums[0][1], n_complete,
-                         int(counts[0].sum()), rounds)
+        return Reduction(list(counts), list(rows), [s[0] for s in sums], None, list(nested), sums[0][1],
+                         n_complete, int(rows[0].sum()), rounds)
     rhs: list[np.ndarray | None] = [None] * k
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
     for dims in _sets(spec):
@@ -259,13 +271,13 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, cell_budget: i
         sql = render(
             "cell_stats",
             codes=codes,
-            sums=join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", "),
+            sums=join(["c.nw"] + [f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", "),
             joins=joins,
             order=join([f"c{d + 1}" for d in dims], ", "),
         )
         tab = eng.arrow("fetch cells", sql, {"gid": _gid(spec, dims)})
         code = {d: tab.column(f"c{d + 1}").to_numpy() for d in dims}
-        n = tab.column("n").to_numpy().astype(float)
+        n = tab.column("nw").to_numpy().astype(float)
         s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
         if dims == _sets(spec)[0]:
             sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
@@ -278,11 +290,12 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, cell_budget: i
             cross[dims] = sparse.csr_matrix((n, (code[d], code[e])), shape=(len(counts[d]), len(counts[e])))
     return Reduction(
         counts=list(counts),
+        rows=list(rows),
         rhs=[r for r in rhs if r is not None],
         cross=cross,
         nested=list(nested),
         sumsq=sumsq,
         n_complete=n_complete,
-        n_obs=int(counts[0].sum()),
+        n_obs=int(rows[0].sum()),
         rounds=rounds,
     )

@@ -41,6 +41,12 @@ class Spec:
     vcov: str
     where: str | None
     time: str | None = None
+    weights: str | None = None
+
+    @property
+    def w(self) -> str:
+        """The factor that weights a row's contribution in SQL: ``w * `` or nothing."""
+        return "w * " if self.weights else ""
 
     @property
     def fe_names(self) -> list[str]:
@@ -101,6 +107,7 @@ def build_spec(
     vcov: str | None = None,
     where: str | None = None,
     time: str | None = None,
+    weights: str | None = None,
 ) -> Spec:
     """Check names, types and options; return the spec or raise a one-line error."""
     if not x:
@@ -145,7 +152,12 @@ def build_spec(
         where = canonical_where(where) if where.strip() else None
     if time is not None:
         _check_column(time, source, "time")
-    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where, time=time)
+    if weights is not None:
+        _check_column(weights, source, "weights")
+        if not _NUMERIC.match(source.columns[weights]):
+            raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
+    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where, time=time,
+                weights=weights)
 
 
 def canonical_where(where: str) -> str:

@@ -64,11 +64,11 @@ class SqlBackend:
     def moments(self, alpha: list[np.ndarray]) -> Moments:
         self.alpha = alpha
         self._demeaned()
-        return cross_products(self.eng, len(self.spec.value_aliases))
+        return cross_products(self.eng, len(self.spec.value_aliases), self.spec.w)
 
     def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
         self._demeaned()
-        return meat_hc(self.eng, keep, beta)
+        return meat_hc(self.eng, self.spec, keep, beta)
 
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
         self._demeaned()

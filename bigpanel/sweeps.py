@@ -48,7 +48,8 @@ def sweep_in_engine(eng: Engine, spec: Spec, red: Reduction, keys: list[pa.Table
         moved = np.zeros(m)
         for d in range(k):
             others = [e for e in range(k) if e != d]
-            means = [f"avg({v} - s.m{j}" + "".join(f" - a{e + 1}.a{j}" for e in others) + f") AS a{j}"
+            wsum = "sum(w)" if spec.weights else "count(*)"
+            means = [f"sum({spec.w}({v} - s.m{j}" + "".join(f" - a{e + 1}.a{j}" for e in others) + f")) / {wsum} AS a{j}"
                      for j, v in enumerate(spec.value_aliases)]
             joins = "\n".join(f"JOIN bp_alpha_{e + 1} AS a{e + 1} USING ({', '.join(spec.key_aliases(e))})"
                               for e in others)

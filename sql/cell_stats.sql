@@ -1,5 +1,5 @@
 -- One grouping set of the cells with integer level codes, for numpy.
-SELECT {{codes}}, c.n, {{sums}}
+SELECT {{codes}}, {{sums}}
 FROM bp_cells AS c
 {{joins}}
 WHERE c.gid = $gid

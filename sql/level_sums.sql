@@ -1,4 +1,4 @@
--- Per level of one effect (in code order): the sums and squares of the shifted
+-- Per level of one effect (in code order): the weighted sums and squares of the shifted
 -- columns, from the cells of a grouping set that holds the effect.
 SELECT l.code, {{sums}}
 FROM bp_cells AS c

@@ -42,8 +42,9 @@ CREATE OR REPLACE TEMP TABLE bp_cells AS
 SELECT f1_1, f2_1,
        GROUPING(f1_1, f2_1) AS gid,
        count(*) AS n,
-       sum(v0 - s.m0) AS s0,
-       sum(v1 - s.m1) AS s1,
+       count(*) AS nw,
+       sum((v0 - s.m0)) AS s0,
+       sum((v1 - s.m1)) AS s1,
        sum((v0 - s.m0) * (v0 - s.m0)) AS q0,
        sum((v1 - s.m1) * (v1 - s.m1)) AS q1,
        min(cl1) AS cl1_min,
@@ -52,24 +53,28 @@ FROM bp_sample CROSS JOIN bp_shift AS s
 GROUP BY GROUPING SETS ((f1_1, f2_1))
 
 ;
--- The levels of one effect with a dense integer code in key order and the row count.
+-- The levels of one effect with a dense integer code in key order, the row
+-- count and the total weight (the row count again when unweighted).
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
-       n
-FROM (SELECT f1_1, sum(n) AS n
+       n,
+       nw
+FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f1_1
       HAVING sum(n) >= $min_count) AS lv
 
 ;
--- The levels of one effect with a dense integer code in key order and the row count.
+-- The levels of one effect with a dense integer code in key order, the row
+-- count and the total weight (the row count again when unweighted).
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
-       n
-FROM (SELECT f2_1, sum(n) AS n
+       n,
+       nw
+FROM (SELECT f2_1, sum(n) AS n, sum(nw) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f2_1
@@ -89,7 +94,7 @@ SELECT count(*) AS n_single FROM bp_lev_2 WHERE n = 1
 
 ;
 -- The levels of one effect in code order (keys or row counts).
-SELECT n FROM bp_lev_1 ORDER BY code
+SELECT nw, n FROM bp_lev_1 ORDER BY code
 
 ;
 -- Whether every kept level of one effect lies in a single value of a cluster column.
@@ -101,7 +106,7 @@ FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
 
 ;
 -- The levels of one effect in code order (keys or row counts).
-SELECT n FROM bp_lev_2 ORDER BY code
+SELECT nw, n FROM bp_lev_2 ORDER BY code
 
 ;
 -- Whether every kept level of one effect lies in a single value of a cluster column.
@@ -117,7 +122,7 @@ SELECT count(*) AS n FROM bp_cells
 
 ;
 -- One grouping set of the cells with integer level codes, for numpy.
-SELECT l1.code AS c1, l2.code AS c2, c.n, c.s0, c.s1, c.q0, c.q1
+SELECT l1.code AS c1, l2.code AS c2, c.nw, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
 JOIN bp_lev_1 AS l1 USING (f1_1)
 JOIN bp_lev_2 AS l2 USING (f2_1)
@@ -176,7 +181,7 @@ SELECT gid,
        fsum(g1 * g1) AS h_1_1
 FROM (SELECT GROUPING(cl1) AS gid,
              sum(u * e1) AS g1
-      FROM (SELECT cl1, e0 - (b.b1 * e1) AS u, e1
+      FROM (SELECT cl1, (e0 - (b.b1 * e1)) AS u, e1
             FROM bp_tilde CROSS JOIN bp_coef AS b) AS r
       GROUP BY GROUPING SETS ((cl1))) AS g
 GROUP BY gid
