@@ -19,7 +19,7 @@ from .effects import effect_tables, recover
 from .errors import BigPanelError
 from .family import ESTIMATORS, hausman_test, run_family
 from .reduce import incomplete
-from .inference import infer
+from .inference import Inference, infer
 from .memory import MemoryBackend
 from .project import components
 from .results import FitResult
@@ -217,19 +217,11 @@ def fit(
         outcome=spec.y,
         names=[names_all[j] for j in slopes.keep],
         coef=slopes.beta,
-        std_error=inf.std_error,
-        vcov=inf.vcov,
-        t=inf.t,
-        p=inf.p,
-        ci_low=inf.ci_low,
-        ci_high=inf.ci_high,
+        **_inference_fields(inf),
         vcov_type=spec.vcov,
         cluster=" x ".join(spec.cluster) or None,
         n_clusters=n_clusters,
         cluster_counts=counts,
-        psd_fixed=inf.psd_fixed,
-        df=inf.df,
-        small_sample=inf.small_sample,
         nobs=n,
         fe=fe_info,
         absorbed=absorbed.total,
@@ -237,11 +229,7 @@ def fit(
         r2_within=1.0 - slopes.rss / q[0, 0] if q[0, 0] > 0 else float("nan"),
         r2_overall=1.0 - slopes.rss / tss if tss > 0 else float("nan"),
         rss=slopes.rss,
-        sigma=inf.sigma,
         df_resid=int(n - len(slopes.keep) - absorbed.total),
-        f_stat=inf.f_stat,
-        f_df=inf.f_df,
-        f_p=inf.f_p,
         rows={
             "source": first.n_source,
             "after_filter": first.n_filtered,
@@ -271,6 +259,15 @@ def fit(
         warnings=warnings,
         timings=dict(back.timings),
     )
+
+
+def _inference_fields(inf: Inference) -> dict:
+    """The result fields that come straight from the inference step."""
+    return {
+        "std_error": inf.std_error, "vcov": inf.vcov, "t": inf.t, "p": inf.p, "ci_low": inf.ci_low,
+        "ci_high": inf.ci_high, "df": inf.df, "small_sample": inf.small_sample, "sigma": inf.sigma,
+        "f_stat": inf.f_stat, "f_df": inf.f_df, "f_p": inf.f_p, "psd_fixed": inf.psd_fixed,
+    }
 
 
 def _default_budget() -> int:
@@ -328,19 +325,11 @@ def _fit_family(
         outcome=spec.y,
         names=fam.names,
         coef=fam.coef,
-        std_error=inf.std_error,
-        vcov=inf.vcov,
-        t=inf.t,
-        p=inf.p,
-        ci_low=inf.ci_low,
-        ci_high=inf.ci_high,
+        **_inference_fields(inf),
         vcov_type=spec.vcov,
         cluster=" x ".join(spec.cluster) or None,
         n_clusters=min(fam.cluster_counts.values()) if fam.cluster_counts else None,
         cluster_counts=fam.cluster_counts,
-        psd_fixed=inf.psd_fixed,
-        df=inf.df,
-        small_sample=inf.small_sample,
         nobs=fam.nobs,
         fe=[{"name": spec.fe_names[0], "columns": list(spec.fe[0]), "levels": extras.get("units", counts.get("units")),
              "parameters": 0, "nested_in_cluster": None, "role": "unit"}],
@@ -349,11 +338,7 @@ def _fit_family(
         r2_within=float("nan"),
         r2_overall=fam.r2,
         rss=fam.rss,
-        sigma=inf.sigma,
         df_resid=int(fam.df_resid),
-        f_stat=inf.f_stat,
-        f_df=inf.f_df,
-        f_p=inf.f_p,
         rows={"source": first.n_source, "after_filter": first.n_filtered, "incomplete": {k: v for k, v in lost.items() if v},
               "dropped_incomplete": first.n_filtered - sample_rows, "dropped_singletons": 0, "used": fam.nobs},
         dropped=fam.dropped,

@@ -82,3 +82,17 @@ def make_panel(seed: int, n_units: int = 60, n_periods: int = 12, k: int = 3, ke
     df["region"] = df["unit"] % 7
     df["sector"] = rng.integers(0, 9, len(df))
     return df[rng.random(len(df)) < keep].reset_index(drop=True)
+
+
+@pytest.fixture(scope="session")
+def grunfeld(tmp_path_factory):
+    """Grunfeld's investment data as statsmodels ships it (11 firms), restricted to the
+    textbook sample of 10 firms (without American Steel), and its Parquet path."""
+    from statsmodels.datasets import grunfeld
+
+    df = grunfeld.load_pandas().data
+    df = df[df["firm"] != "American Steel"].reset_index(drop=True)
+    df["year"] = df["year"].astype(int)
+    path = tmp_path_factory.mktemp("grunfeld") / "grunfeld.parquet"
+    df.to_parquet(path)
+    return df, str(path)

@@ -10,19 +10,6 @@ import bigpanel
 from conftest import rel
 
 
-@pytest.fixture(scope="module")
-def grunfeld(tmp_path_factory):
-    # statsmodels ships Grunfeld's data; the textbook sample drops American Steel.
-    from statsmodels.datasets import grunfeld
-
-    df = grunfeld.load_pandas().data
-    df = df[df["firm"] != "American Steel"].reset_index(drop=True)
-    df["year"] = df["year"].astype(int)
-    path = tmp_path_factory.mktemp("g") / "grunfeld.parquet"
-    df.to_parquet(path)
-    return df, str(path)
-
-
 def test_between_grunfeld(grunfeld):
     # Baltagi, Econometric Analysis of Panel Data, Table 2.1, between column (from memory):
     # value 0.1346 (0.0287), capital 0.0320 (0.1909), constant -8.527 (47.515).

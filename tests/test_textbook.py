@@ -7,20 +7,6 @@ import bigpanel
 from conftest import lsdv, rel
 
 
-@pytest.fixture(scope="module")
-def grunfeld(tmp_path_factory):
-    # statsmodels ships Grunfeld's investment data with 11 firms; the textbook sample
-    # has the 10 firms without American Steel.
-    from statsmodels.datasets import grunfeld
-
-    df = grunfeld.load_pandas().data
-    df = df[df["firm"] != "American Steel"].reset_index(drop=True)
-    df["year"] = df["year"].astype(int)
-    path = tmp_path_factory.mktemp("grunfeld") / "grunfeld.parquet"
-    df.to_parquet(path)
-    return df, str(path)
-
-
 def test_grunfeld_one_way_within(grunfeld):
     # Baltagi, Econometric Analysis of Panel Data, Table 2.1, within column
     # (from memory): value 0.1101 (0.0119), capital 0.3101 (0.0174).
