@@ -39,6 +39,8 @@ class Engine:
     timings: dict[str, float] = field(default_factory=dict)
     statements: list[str] = field(default_factory=list)
     name: str = "DuckDB"
+    bytes_to_client: int = 0
+    count_scans: bool = False  # whether count(*) over a table reads its rows (not a metadata lookup)
 
     def _execute(self, sql: str, params: dict) -> None:
         self.con.execute(sql, params).fetchall()
@@ -79,8 +81,10 @@ class Engine:
         self._run(label, raw, sql, lambda: self._execute(sql, params or {}))
 
     def arrow(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> pa.Table:
-        """Run a query returning a (small) table as Arrow."""
-        return self._run(label, raw, sql, lambda: self._fetch(sql, params or {}))
+        """Run a query returning a (small) table as Arrow; its size adds to ``bytes_to_client``."""
+        table = self._run(label, raw, sql, lambda: self._fetch(sql, params or {}))
+        self.bytes_to_client += table.nbytes
+        return table
 
     def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
         """Run a query returning one row; return it as a dict."""

@@ -1,0 +1,218 @@
+"""The same fit on a PostgreSQL table: the passes run inside the server.
+
+The table stays where it is; ``bp_source`` is a temporary view over it, and
+the intermediate tables (cells, levels, effects) are temporary tables of the
+session. Only the level tables and the K x K moments come back, as Arrow.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import pyarrow as pa
+
+from .dialect import TranslatingEngine, template_for
+from .engine import Engine, _first_line
+from .errors import BigPanelError
+from .source import Source
+from .sqltext import ident, join, render
+
+CONNECT_TIMEOUT = 10  # seconds, unless the URL sets connect_timeout
+
+# PostgreSQL types (information_schema data_type) under the DuckDB names the spec checks.
+_DUCK_TYPES = {
+    "double precision": "DOUBLE",
+    "real": "FLOAT",
+    "bigint": "BIGINT",
+    "integer": "INTEGER",
+    "smallint": "SMALLINT",
+    "boolean": "BOOLEAN",
+    "text": "VARCHAR",
+    "character varying": "VARCHAR",
+    "character": "VARCHAR",
+    "name": "VARCHAR",
+    "date": "DATE",
+    "timestamp without time zone": "TIMESTAMP",
+    "timestamp with time zone": "TIMESTAMP WITH TIME ZONE",
+    "time without time zone": "TIME",
+    "interval": "INTERVAL",
+    "uuid": "UUID",
+    "bytea": "BLOB",
+    "json": "JSON",
+    "jsonb": "JSON",
+}
+
+# Result columns by PostgreSQL type name; others (numeric) are inferred by pyarrow.
+_ARROW_TYPES = {
+    "bool": pa.bool_(),
+    "int2": pa.int16(),
+    "int4": pa.int32(),
+    "int8": pa.int64(),
+    "float4": pa.float32(),
+    "float8": pa.float64(),
+    "text": pa.string(),
+    "varchar": pa.string(),
+    "bpchar": pa.string(),
+    "name": pa.string(),
+    "date": pa.date32(),
+    "timestamp": pa.timestamp("us"),
+    "timestamptz": pa.timestamp("us", tz="UTC"),
+    "bytea": pa.binary(),
+}
+
+
+def _column_type(field: pa.Field) -> str:
+    """The DuckDB-dialect column type for an Arrow field of an uploaded table."""
+    t = field.type
+    if pa.types.is_decimal(t):
+        return f"DECIMAL({t.precision}, {t.scale})"
+    if pa.types.is_timestamp(t):
+        return "TIMESTAMPTZ" if t.tz else "TIMESTAMP"
+    for test, name in (
+        (pa.types.is_boolean, "BOOLEAN"),
+        (pa.types.is_int16, "SMALLINT"),
+        (pa.types.is_int32, "INTEGER"),
+        (pa.types.is_integer, "BIGINT"),
+        (pa.types.is_float32, "REAL"),
+        (pa.types.is_floating, "DOUBLE"),
+        (pa.types.is_date, "DATE"),
+        (pa.types.is_binary, "BLOB"),
+    ):
+        if test(t):
+            return name
+    return "VARCHAR"
+
+
+@dataclass
+class PostgresEngine(TranslatingEngine):
+    """An :class:`Engine` over one autocommit psycopg 3 connection.
+
+    Statements are translated to PostgreSQL (:mod:`bigpanel.dialect`); results
+    come back as Arrow tables; ``_put`` creates a temporary table and COPYs the
+    rows in.
+    """
+
+    name: str = "PostgreSQL"
+    count_scans: bool = True
+    dialect: str = "postgres"
+
+    def _execute(self, sql: str, params: dict) -> None:
+        with self.con.cursor() as cur:
+            for step in self.steps(sql):
+                cur.execute(step.sql, params)
+
+    def _fetch(self, sql: str, params: dict) -> pa.Table:
+        with self.con.cursor() as cur:
+            for step in self.steps(sql):
+                cur.execute(step.sql, params)
+            return _to_arrow(cur.description, cur.fetchall())
+
+    def _put(self, name: str, table: pa.Table) -> None:
+        from psycopg import sql as pgsql
+
+        columns = join([f"{ident(f.name)} {_column_type(f)}" for f in table.schema], ", ")
+        self._execute(render(template_for("store_arrow", "postgres"), table=ident(name), columns=columns), {})
+        with self.con.cursor() as cur:
+            with cur.copy(pgsql.SQL("COPY {} FROM STDIN").format(pgsql.Identifier(name))) as copy:
+                for row in zip(*(col.to_pylist() for col in table.columns)):
+                    copy.write_row(row)
+
+    def close(self) -> None:
+        self.con.close()
+
+
+def _to_arrow(description: Any, rows: list[tuple]) -> pa.Table:
+    """Rows of a psycopg cursor as an Arrow table, typed by the result columns' PostgreSQL types."""
+    from psycopg.postgres import types
+
+    arrays = []
+    for j, col in enumerate(description):
+        info = types.get(col.type_code)
+        arrays.append(_array([row[j] for row in rows], _ARROW_TYPES.get(info.name if info else "")))
+    return pa.Table.from_arrays(arrays, names=[col.name for col in description])
+
+
+def _array(values: list, typ: pa.DataType | None) -> pa.Array:
+    """One result column; a type without a fixed Arrow counterpart (numeric) is inferred, else float64."""
+    if typ is not None:
+        return pa.array(values, type=typ)
+    try:
+        return pa.array(values) if values else pa.array([], pa.float64())
+    except (pa.ArrowInvalid, pa.ArrowTypeError):  # e.g. a numeric 'NaN'
+        return pa.array([None if v is None else float(v) for v in values], pa.float64())
+
+
+def _duck_type(row: dict) -> str:
+    kind = row["data_type"]
+    if kind == "numeric":
+        p, s = row["numeric_precision"], row["numeric_scale"]
+        return f"DECIMAL({p},{s})" if p is not None else "DECIMAL"
+    return _DUCK_TYPES.get(kind, str(row["udt_name"]).upper())
+
+
+def _where(url: str) -> tuple[dict, str]:
+    """The URL's connection settings and 'postgresql://user@host:port/database' (no password) for messages."""
+    import psycopg
+    from psycopg.conninfo import conninfo_to_dict
+
+    try:
+        info = conninfo_to_dict(url)
+    except psycopg.Error as exc:
+        raise BigPanelError(f"bad PostgreSQL URL: {_first_line(exc)}") from None
+    user = f"{info['user']}@" if info.get("user") else ""
+    host = info.get("host") or "localhost"
+    return info, f"postgresql://{user}{host}:{info.get('port') or 5432}/{info.get('dbname') or ''}"
+
+
+def _resolve(eng: Engine, table: str, where: str) -> tuple[str, str]:
+    """(schema, name) of ``table``: an exact name in one schema, or ``schema.name``."""
+    listed = eng.arrow("list tables", render(template_for("list_tables", "postgres"))).to_pylist()
+    pairs = [(r["table_schema"], r["table_name"]) for r in listed]
+    named = [p for p in pairs if p[1] == table]
+    if len(named) == 1:
+        return named[0]
+    if len(named) > 1:
+        raise BigPanelError(
+            f"table {table!r} exists in several schemas of {where} ({', '.join(s for s, _ in named)}): "
+            f"name it as schema.table"
+        )
+    schema, _, name = table.partition(".")
+    if name and (schema, name) in pairs:
+        return schema, name
+    shown = sorted(f"{s}.{n}" if s != "public" else n for s, n in pairs)
+    raise BigPanelError(
+        f"table {table!r} not found in {where}"
+        + (f" (tables: {', '.join(shown)})" if shown else " (it holds no tables)")
+    )
+
+
+def open_postgres(
+    url: str, table: str | None, on_step: Callable[[str], None] | None = None
+) -> tuple[Engine, Source]:
+    """Connect to ``url``, create the view ``bp_source`` over ``table`` and read its schema."""
+    try:
+        import psycopg
+    except ImportError:
+        raise BigPanelError("PostgreSQL sources need psycopg: pip install 'bigpanel[postgres]'") from None
+    info, where = _where(url)
+    if not table:
+        raise BigPanelError(f"a PostgreSQL source needs the table to fit: give --table NAME ({where})")
+    timeout = {} if "connect_timeout" in info else {"connect_timeout": CONNECT_TIMEOUT}
+    try:
+        con = psycopg.connect(url, autocommit=True, application_name="bigpanel", **timeout)
+    except psycopg.Error as exc:
+        raise BigPanelError(f"cannot connect to PostgreSQL at {where}: {_first_line(exc)}") from None
+    eng = PostgresEngine(con, on_step=on_step, driver_errors=(psycopg.Error,))
+    try:
+        schema, name = _resolve(eng, table, where)
+        eng.execute("source view", render(template_for("source_table", "postgres"), table=f"{ident(schema)}.{ident(name)}"))
+        described = eng.arrow("source columns", render(template_for("describe_source", "postgres")), {"schema": schema, "table": name})
+    except BaseException:
+        eng.close()
+        raise
+    columns = {row["column_name"]: _duck_type(row) for row in described.to_pylist()}
+    if not columns:
+        eng.close()
+        raise BigPanelError(f"table {table!r} in {where} has no columns")
+    return eng, Source(location=where, kind="table", table=table, columns=columns)
