@@ -19,6 +19,7 @@ def panel_path(tmp_path_factory):
     df["name"] = "u" + df["unit"].astype(str)
     df.loc[df.index[:5], "x2"] = np.nan
     df["one"] = 1
+    df["nothing"] = pd.Series([None] * len(df), dtype="Int64")
     path = tmp_path_factory.mktemp("cli") / "panel.parquet"
     df.to_parquet(path)
     return df, str(path)
@@ -88,6 +89,9 @@ def test_demo_writes_panel_with_known_truth(tmp_path):
         (["fit", "{p}", "y ~ name", "--fe", "unit"], "column 'name' has type VARCHAR"),
         (["fit", "{p}", "y ~ x1", "--fe", "nope"], "fixed-effect column 'nope' not found"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "x1 > 1e9"], "the filter 'x1 > 1e9' keeps none"),
+        (["fit", "{p}", "y ~ x1", "--fe", "nothing"], "column 'nothing' is missing or not finite in"),
+        (["describe", "{p}", "--id", "unt", "--time", "period"], "did you mean 'unit'"),
+        (["describe", "{p}", "--id", "unit", "--time", "period", "--effects", "unit"], "--effects takes exactly two"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "one"], "cluster column 'one' takes a single value"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "unit", "--vcov", "hc1"], "conflicts with --vcov hc1"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--vcov", "hc9"], "unknown variance type 'hc9'"),
@@ -157,3 +161,17 @@ def test_bench_command_compares_engines(panel_path):
     assert set(doc["runs"]) == {"scan", "duckdb", "memory"}
     assert all(r["ok"] for r in doc["runs"].values())
     assert doc["max_abs_coef_diff"] < 1e-9
+
+
+def test_describe_command(panel_path, tmp_path):
+    # Reference: pandas on the same frame.
+    df, path = panel_path
+    out = run("describe", path, "--id", "unit", "--time", "period", "--effects", "unit", "--effects", "sector",
+              "--json", "--plot", str(tmp_path / "p.png"))
+    assert out.exit_code == 0, out.output
+    doc = json.loads(out.stdout)
+    assert doc["rows"] == len(df) and doc["units"] == df["unit"].nunique()
+    assert doc["balanced"] is False and "one" in doc["time_invariant"]
+    assert (tmp_path / "p.png").exists()
+    text = run("describe", path, "--id", "unit", "--time", "period")
+    assert text.exit_code == 0 and "periods per unit" in text.stdout
