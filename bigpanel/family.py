@@ -21,9 +21,8 @@ one column given with ``fe`` names the unit.
 * **Hausman**: H = (b_W - b_R)' (V_W - V_R)^-1 (b_W - b_R) on the regressors
   both estimate, chi-squared with as many df; when V_W - V_R is not positive
   definite, its pseudo-inverse on the positive eigenvalues is used, df is their
-  number, and a note says so. The regression-based version adds the unit means
-  of the time-varying regressors, (1 - theta_i) xbar_i, to the GLS regression and
-  tests them with errors clustered by unit (Wald, F on (K_w, G - 1)).
+  number, and a note says so. It compares iid variances, so with robust errors
+  it is not computed and a note says why.
 """
 
 from __future__ import annotations
@@ -219,14 +218,15 @@ def hausman(b_w: np.ndarray, v_w: np.ndarray, b_r: np.ndarray, v_r: np.ndarray) 
 def hausman_test(within: Any, fam: FamilyFit, vcov: str) -> dict[str, Any]:
     """Hausman contrast between a within result and a random-effects fit, on their common slopes."""
     common = [n for n in within.names if n in fam.names and n != "const"]
+    if vcov != "iid":
+        return {"statistic": None, "df": None, "p_value": None, "regressors": common,
+                "note": "not computed: the contrast form compares iid variances; refit with --vcov iid"}
     if not common:
         raise BigPanelError("the within and random-effects fits share no time-varying regressor to compare")
     iw = [within.names.index(n) for n in common]
     ir = [fam.names.index(n) for n in common]
     out = hausman(within.coef[iw], within.vcov[np.ix_(iw, iw)], fam.coef[ir], fam.inf.vcov[np.ix_(ir, ir)])
     out["regressors"] = common
-    if vcov != "iid":
-        out["caution"] = "the contrast form assumes efficient random effects (iid errors); with robust errors it is only indicative"
     return out
 
 
@@ -236,8 +236,8 @@ def run_family(
     """Open the views, take the shifts, and run ``estimator`` (between, fd or random)."""
     if spec.weights:
         raise BigPanelError(f"--weights is not available for --estimator {estimator} yet, only for within")
-    if len(spec.fe) != 1 or len(spec.fe[0]) != 1:
-        raise BigPanelError(f"--estimator {estimator} takes exactly one --fe column: the unit")
+    if len(spec.fe) != 1:
+        raise BigPanelError(f"--estimator {estimator} takes exactly one --fe: the unit (one column, or columns joined by :)")
     create_views(eng, spec, materialize=source_kind == "csv")
     first = start(eng, spec, scans_to_count=bool(spec.where) and source_kind != "csv")
     if estimator == "between":

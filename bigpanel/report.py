@@ -111,10 +111,10 @@ def fit_renderable(res: FitResult) -> Group:
     hs = res.extras.get("hausman")
     if hs:
         lines.append("\nhausman   ", style="bold")
-        lines.append(f"chi2({hs['df']}) = {hs['statistic']:.4g}, p {_p(hs['p_value'])} on {', '.join(hs['regressors'])}")
-        for key in ("note", "caution"):
-            if key in hs:
-                lines.append(f"; {hs[key]}", style="yellow")
+        if hs["statistic"] is not None:
+            lines.append(f"chi2({hs['df']}) = {hs['statistic']:.4g}, p {_p(hs['p_value'])} on {', '.join(hs['regressors'])}")
+        if "note" in hs:
+            lines.append(f"; {hs['note']}", style="yellow")
     fd = res.extras.get("first_difference")
     if fd:
         lines.append("\ndiffs     ", style="bold")

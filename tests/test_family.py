@@ -139,5 +139,7 @@ def test_family_errors(grunfeld):
         bigpanel.fit(path, "invest ~ value", fe=["firm", "year"], estimator="between")
     with pytest.raises(bigpanel.BigPanelError, match="--hausman"):
         bigpanel.fit(path, "invest ~ value", fe="firm", hausman=True)
+    clustered = bigpanel.fit(path, "invest ~ value", fe="firm", estimator="random", hausman=True, cluster="firm")
+    assert clustered.extras["hausman"]["statistic"] is None and "--vcov iid" in clustered.extras["hausman"]["note"]
     with pytest.raises(bigpanel.BigPanelError, match="unknown estimator"):
         bigpanel.fit(path, "invest ~ value", fe="firm", estimator="pooled")
