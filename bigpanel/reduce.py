@@ -192,7 +192,6 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, cell_budget: in
     Per cell: the row count and the sums and sums of squares of the shifted columns.
     """
     k = len(spec.fe)
-    m = len(spec.value_aliases)
     all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
     w = spec.w
     sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]

@@ -1,7 +1,6 @@
 """Every source kind gives the same fit; the filter restricts the sample."""
 
 import duckdb
-import numpy as np
 import pytest
 
 import bigpanel

@@ -1,6 +1,5 @@
 """Published results on open datasets that registry packages ship."""
 
-import pandas as pd
 import pytest
 
 import bigpanel
