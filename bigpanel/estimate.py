@@ -17,7 +17,7 @@ import numpy as np
 from .dof import count_absorbed
 from .effects import effect_tables, recover
 from .errors import BigPanelError
-from .family import ESTIMATORS, hausman_test, run_family
+from .family import ESTIMATORS, hausman_test, mundlak, run_family
 from .reduce import incomplete
 from .inference import Inference, infer
 from .memory import MemoryBackend
@@ -308,6 +308,9 @@ def _fit_family(
         if spec.where:
             check_where(eng, spec.where)
         fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)
+        if hausman:
+            varying = [n for n in within.names if n in spec.x]
+            fam.extras["mundlak"] = mundlak(eng, spec, first.shift, varying)
         sample_rows = fam.extras.pop("sample_rows")
         lost = incomplete(eng, spec) if sample_rows < first.n_filtered else {}
         passes = eng.raw_passes

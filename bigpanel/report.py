@@ -115,6 +115,14 @@ def fit_renderable(res: FitResult) -> Group:
             lines.append(f"chi2({hs['df']}) = {hs['statistic']:.4g}, p {_p(hs['p_value'])} on {', '.join(hs['regressors'])}")
         if "note" in hs:
             lines.append(f"; {hs['note']}", style="yellow")
+    mk = res.extras.get("mundlak")
+    if mk:
+        lines.append("\nmundlak   ", style="bold")
+        if mk["statistic"] is not None:
+            lines.append(f"F({mk['df'][0]}, {mk['df'][1]:g}) = {mk['statistic']:.4g}, p {_p(mk['p_value'])} "
+                         "(unit means added, errors clustered by unit)")
+        else:
+            lines.append(mk["note"], style="yellow")
     fd = res.extras.get("first_difference")
     if fd:
         lines.append("\ndiffs     ", style="bold")

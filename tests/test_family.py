@@ -143,3 +143,22 @@ def test_family_errors(grunfeld):
     assert clustered.extras["hausman"]["statistic"] is None and "--vcov iid" in clustered.extras["hausman"]["note"]
     with pytest.raises(bigpanel.BigPanelError, match="unknown estimator"):
         bigpanel.fit(path, "invest ~ value", fe="firm", estimator="pooled")
+
+
+def test_mundlak_regression_based_hausman(grunfeld):
+    # Reference: statsmodels OLS of the quasi-demeaned regression augmented with (1 - theta) * firm
+    # means of value and capital, errors clustered by firm (CR1), and the Wald F on the two means.
+    df, path = grunfeld
+    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random", hausman=True)
+    theta = res.extras["random_effects"]["theta"]["min"]  # balanced panel: one theta for all firms
+    xs = ["value", "capital"]
+    means = df.groupby("firm")[["invest", *xs]].transform("mean")
+    z = np.column_stack([df[xs].to_numpy() - theta * means[xs].to_numpy(), (1 - theta) * means[xs].to_numpy(),
+                         np.full(len(df), 1 - theta)])
+    ys = df["invest"].to_numpy() - theta * means["invest"].to_numpy()
+    fit = sm.OLS(ys, z).fit(cov_type="cluster", cov_kwds={"groups": pd.factorize(df["firm"])[0]})
+    gamma, v = fit.params[2:4], fit.cov_params()[2:4, 2:4]
+    f_ref = float(gamma @ np.linalg.solve(v, gamma)) / 2
+    m = res.extras["mundlak"]
+    assert m["statistic"] == pytest.approx(f_ref, rel=1e-8)
+    assert m["df"] == [2, 9.0] and 0 < m["p_value"] < 1
