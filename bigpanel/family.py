@@ -117,19 +117,23 @@ def _with_constant(spec: Spec, eng: Engine, k: int, shift: np.ndarray, extras: d
                      1.0 - slopes.rss / tss if tss > 0 else float("nan"), extras, dropped, counts)
 
 
-def _unit_table(eng: Engine, spec: Spec) -> dict[str, np.ndarray]:
+def _unit_table(eng: Engine, spec: Spec) -> pa.Table:
+    """One grouped pass: per unit (in key order) the keys, row count, shifted means and cluster range."""
     keys = join(spec.key_aliases(0), ", ")
     means = [f"avg({v} - s.m{j}) AS b{j}" for j, v in enumerate(spec.value_aliases)]
     for c in spec.cluster_aliases:
         means += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
     eng.execute("unit means", render("unit_means", keys=keys, means=join(means)), raw=True)
-    tab = eng.arrow("fetch unit means", render("unit_table", columns="*", keys=keys))
+    return eng.arrow("fetch unit means", render("unit_table", keys=keys))
+
+
+def _columns(tab: pa.Table) -> dict[str, np.ndarray]:
     return {name: tab.column(name).to_numpy(zero_copy_only=False) for name in tab.column_names}
 
 
 def between(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
     """Regression of unit means (see the module docstring), solved in numpy on the unit table."""
-    units = _unit_table(eng, spec)
+    units = _columns(_unit_table(eng, spec))
     m = len(spec.value_aliases)
     means = np.column_stack([units[f"b{j}"] for j in range(m)])
     g = len(means)
@@ -146,7 +150,8 @@ def between(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
 
 def random_effects(eng: Engine, spec: Spec, shift: np.ndarray, sigma_e2: float) -> tuple[FamilyFit, dict]:
     """Swamy-Arora variance components, then the GLS fit (see the module docstring)."""
-    units = _unit_table(eng, spec)
+    table = _unit_table(eng, spec)
+    units = _columns(table)
     m = len(spec.value_aliases)
     t_i = units["n"].astype(float)
     n, g = t_i.sum(), len(t_i)
@@ -161,9 +166,7 @@ def random_effects(eng: Engine, spec: Spec, shift: np.ndarray, sigma_e2: float) 
     clipped = sigma_u2 < 0
     sigma_u2 = max(sigma_u2, 0.0)
     theta = 1.0 - np.sqrt(sigma_e2 / (t_i * sigma_u2 + sigma_e2))
-    unit_keys = join(spec.key_aliases(0), ", ")
-    keys = eng.arrow("unit keys", render("unit_table", columns=unit_keys, keys=unit_keys))
-    keys = keys.append_column("theta", pa.array(theta))
+    keys = table.select(spec.key_aliases(0)).append_column("theta", pa.array(theta))
     for j in range(m):
         keys = keys.append_column(f"b{j}", pa.array(means[:, j]))
     eng.put_table("bp_theta", keys)
@@ -269,7 +272,7 @@ def run_family(
     if len(spec.fe) != 1:
         raise BigPanelError(f"--estimator {estimator} takes exactly one --fe: the unit (one column, or columns joined by :)")
     create_views(eng, spec, materialize=source_kind == "csv")
-    first = start(eng, spec, scans_to_count=bool(spec.where) and source_kind != "csv")
+    first = start(eng, spec, source_kind)
     if estimator == "between":
         return between(eng, spec, first.shift), first
     if estimator == "fd":

@@ -21,7 +21,7 @@ from .errors import BigPanelError
 from .inference import ClusterTerm
 from .moments import Moments, cluster_sets
 from .project import Projection, solve_effects
-from .reduce import Reduction, Start, create_views
+from .reduce import Reduction, Start, create_views, no_complete_rows, source_rows
 from .spec import Spec
 from .sqltext import render
 
@@ -82,10 +82,7 @@ class MemoryBackend:
             incomplete[name] = max(incomplete.get(name, 0), int(null.sum()))
             complete &= ~null
         n_filtered = len(values)
-        if n_filtered == 0:
-            raise BigPanelError(
-                "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
-            )
+        n_source = source_rows(self.eng, spec, n_filtered)
         self.w = np.ones(len(values))
         if spec.weights:
             w = tab.column("w").to_numpy(zero_copy_only=False).astype(float)
@@ -95,14 +92,12 @@ class MemoryBackend:
             self.w = np.where(good, w, 0.0)
         self.bad = incomplete
         if not complete.any():
-            worst = max(incomplete, key=lambda c: incomplete[c])
-            raise BigPanelError(f"no complete rows: column {worst!r} is missing or not finite in {incomplete[worst]} rows")
+            raise no_complete_rows(incomplete, n_filtered)
         self.values = values[complete]
         self.w = self.w[complete]
         self.rows = tab.filter(pa.array(complete))
         shift = self.values[:1000].mean(axis=0)
         self.t = self.values - shift
-        n_source = int(self.eng.one("count source", render("count_source"))["n"]) if spec.where else n_filtered
         return Start(n_source, n_filtered, shift)
 
     def incomplete(self) -> dict[str, int]:

@@ -100,26 +100,37 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     eng.execute("sample view", render("sample", complete=_complete(spec)))
 
 
-def start(eng: Engine, spec: Spec, scans_to_count: bool) -> Start:
-    """Row counts and the shifts, stored as ``bp_shift``.
-
-    Counting is a metadata lookup for unfiltered Parquet or a materialised CSV;
-    ``scans_to_count`` says when it reads the rows instead (a filter on Parquet).
-    """
-    n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans_to_count)["n"])
-    n_source = int(eng.one("count source", render("count_source"))["n"]) if spec.where else n_filtered
+def source_rows(eng: Engine, spec: Spec, n_filtered: int) -> int:
+    """Rows before the filter: counted only when there is a filter, and the error when none are left."""
     if n_filtered == 0:
         raise BigPanelError(
             "no rows to fit: " + (f"the filter {spec.where!r} keeps none" if spec.where else "the source is empty")
         )
+    return int(eng.one("count source", render("count_source"))["n"]) if spec.where else n_filtered
+
+
+def no_complete_rows(bad: dict[str, int], n_filtered: int) -> BigPanelError:
+    """The error for a sample that listwise deletion empties, naming the worst column."""
+    worst = max(bad, key=lambda c: bad[c])
+    return BigPanelError(
+        f"no complete rows: column {worst!r} is missing or not finite in {bad[worst]:,} of {n_filtered:,} rows"
+    )
+
+
+def start(eng: Engine, spec: Spec, source_kind: str) -> Start:
+    """Row counts and the shifts, stored as ``bp_shift``.
+
+    Counting is a metadata lookup for unfiltered Parquet or a materialised CSV;
+    it reads the rows (and counts as a pass) under a filter on Parquet or on an
+    engine whose count scans its tables.
+    """
+    scans = eng.count_scans or (bool(spec.where) and source_kind != "csv")
+    n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans)["n"])
+    n_source = source_rows(eng, spec, n_filtered)
     avgs = join([f"avg({v}) AS m{j}" for j, v in enumerate(spec.value_aliases)])
     row = eng.one("shifts", render("shift_sample", avgs=avgs, columns=join(spec.value_aliases, ", ")))
     if row["m0"] is None:
-        bad = incomplete(eng, spec)
-        worst = max(bad, key=lambda c: bad[c])
-        raise BigPanelError(
-            f"no complete rows: column {worst!r} is missing or not finite in {bad[worst]:,} of {n_filtered:,} rows"
-        )
+        raise no_complete_rows(incomplete(eng, spec), n_filtered)
     shift = np.array([row[f"m{j}"] for j in range(len(spec.value_aliases))], dtype=float)
     put_one_row(eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(shift)})
     return Start(n_source, n_filtered, shift)

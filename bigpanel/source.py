@@ -14,7 +14,7 @@ from typing import Callable
 
 import duckdb
 
-from .engine import Engine
+from .engine import Engine, _first_line
 from .errors import BigPanelError
 from .sqltext import ident, literal, render
 
@@ -51,11 +51,6 @@ def connect(
         raise BigPanelError(f"bad engine setting ({_first_line(exc)})") from None
     con.execute(render("session_settings")).fetchall()
     return con
-
-
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0] if text else type(exc).__name__
 
 
 def _kind_of(location: str, table: str | None) -> str:

@@ -38,8 +38,7 @@ class SqlBackend:
         return self.eng.timings
 
     def start(self) -> Start:
-        scans = self.eng.count_scans or (bool(self.spec.where) and self.source_kind != "csv")
-        return start(self.eng, self.spec, scans_to_count=scans)
+        return start(self.eng, self.spec, self.source_kind)
 
     def reduce(self, drop_singletons: bool, cell_budget: int) -> Reduction:
         self.red = reduce_cells(self.eng, self.spec, drop_singletons, cell_budget)

@@ -1,2 +1,2 @@
 -- The per-unit table in key order, for numpy.
-SELECT {{columns}} FROM bp_units ORDER BY {{keys}}
+SELECT * FROM bp_units ORDER BY {{keys}}
