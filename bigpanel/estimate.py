@@ -87,9 +87,10 @@ def fit(
     See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
     machine's memory) bounds the pair tables fetched to numpy; above it the
     projections run inside the engine (:mod:`bigpanel.sweeps`). ``weights`` names
-    a column of analytic weights (within only for now): the effects are weighted
-    level means and every moment is weighted; rows with a missing or
-    non-positive weight are dropped and counted.
+    a column of analytic weights (every estimator; the weighted forms are stated
+    in :mod:`bigpanel.family`): the effects are weighted level means and every
+    moment is weighted; rows with a missing or non-positive weight are dropped
+    and counted.
     """
     started = perf_counter()
     if formula is not None:
@@ -257,6 +258,7 @@ def fit(
         effects=effects,
         source=src.location,
         where=spec.where,
+        weights=spec.weights,
         warnings=warnings,
         timings=dict(back.timings),
     )
@@ -300,7 +302,7 @@ def _fit_family(
     within = None
     if estimator == "random":
         within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, drop_singletons=False, engine=engine,
-                     on_step=on_step, **settings)
+                     weights=weights, on_step=on_step, **settings)
     backend = "spark" if engine == "spark" else "duckdb"
     eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
     try:
@@ -351,6 +353,7 @@ def _fit_family(
         effects={},
         source=src.location,
         where=spec.where,
+        weights=spec.weights,
         warnings=warnings,
         timings=timings,
         estimator=estimator,

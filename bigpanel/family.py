@@ -27,6 +27,26 @@ one column given with ``fe`` names the unit.
   definite, its pseudo-inverse on the positive eigenvalues is used, df is their
   number, and a note says so. It compares iid variances, so with robust errors
   it is not computed and a note says why.
+
+**Analytic weights** (``weights``, w_it > 0, read as Var(e_it) = s^2 / w_it) enter
+every estimator as weighted least squares, so that constant weights give the
+unweighted fit:
+
+* between: the unit means are weighted means, xbar_i = sum_t w_it x_it / W_i with
+  W_i = sum_t w_it, and unit i weighs W_i / T_i (its rows' mean weight) in the
+  regression of the means;
+* fd: a difference weighs 2 / (1/w_it + 1/w_i,t-1), the harmonic mean of its two
+  rows' weights (the precision of e_it - e_i,t-1 up to the factor 2);
+* random: the same algebra on the rows scaled by sqrt(w_it), i.e. T_i replaced by
+  W_i / wbar (wbar the mean weight, so sigma_e is the error s.d. of a row of mean
+  weight), s_e^2 from the weighted within fit, the between regression weighted by
+  W_i on the weighted means, theta_i = 1 - sqrt(s_e^2 / (W_i/wbar s_u^2 + s_e^2)), then
+  the weighted regression of y - theta_i ybar_i on (1 - theta_i) and x - theta_i xbar_i
+  (the GLS fit with Omega_i = s_e^2 diag(wbar / w_it) + s_u^2 11'). Mundlak and the
+  Hausman contrast use these weighted fits.
+
+In each, s^2 = sum w u^2 / df with df counted in rows, and the robust scores are
+w u x (weighted least squares' sandwich).
 """
 
 from __future__ import annotations
@@ -85,7 +105,7 @@ def _with_constant(spec: Spec, eng: Engine, k: int, shift: np.ndarray, extras: d
     shifts), with its variance from the gradient (1, -m_x). The F test is on the
     slopes only.
     """
-    mom = cross_products(eng, k + 2)
+    mom = cross_products(eng, k + 2, spec.w)
     slopes = solve_slopes(mom.q, mom.n, np.zeros(k + 2), np.diag(mom.q))
     names_all = [spec.y, *spec.x, "const"]
     keep = slopes.keep
@@ -118,9 +138,14 @@ def _with_constant(spec: Spec, eng: Engine, k: int, shift: np.ndarray, extras: d
 
 
 def _unit_table(eng: Engine, spec: Spec) -> pa.Table:
-    """One grouped pass: per unit (in key order) the keys, row count, shifted means and cluster range."""
+    """One grouped pass: per unit (in key order) the keys, row count n, total weight nw (n when
+    unweighted), shifted means (weighted means sum(w v) / sum(w) when weighted) and cluster range."""
     keys = join(spec.key_aliases(0), ", ")
-    means = [f"avg({v} - s.m{j}) AS b{j}" for j, v in enumerate(spec.value_aliases)]
+    if spec.weights:
+        means = ["sum(w) AS nw"]
+        means += [f"sum(w * ({v} - s.m{j})) / sum(w) AS b{j}" for j, v in enumerate(spec.value_aliases)]
+    else:
+        means = ["count(*) AS nw"] + [f"avg({v} - s.m{j}) AS b{j}" for j, v in enumerate(spec.value_aliases)]
     for c in spec.cluster_aliases:
         means += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
     eng.execute("unit means", render("unit_means", keys=keys, means=join(means)), raw=True)
@@ -143,6 +168,8 @@ def between(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
         if not (units[f"{c}_min"] == units[f"{c}_max"]).all():
             raise BigPanelError("between-unit errors clustered by a column need every unit inside one cluster")
         cols[c] = units[f"{c}_min"]
+    if spec.weights:
+        cols["w"] = units["nw"] / units["n"]
     eng.put_table("bp_between", pa.table(cols))
     eng.execute("between view", render("between_view"))
     return _with_constant(spec, eng, m - 1, shift, {"units": g, "sample_rows": int(units["n"].sum())})
@@ -153,7 +180,10 @@ def random_effects(eng: Engine, spec: Spec, shift: np.ndarray, sigma_e2: float) 
     table = _unit_table(eng, spec)
     units = _columns(table)
     m = len(spec.value_aliases)
-    t_i = units["n"].astype(float)
+    rows = int(units["n"].sum())
+    mean_w = float(units["nw"].sum()) / rows
+    t_i = units["nw"].astype(float) / mean_w
+    sigma_e2 = sigma_e2 / mean_w
     n, g = t_i.sum(), len(t_i)
     means = np.column_stack([units[f"b{j}"] for j in range(m)])
     xbar = np.column_stack([means[:, 1:], np.ones(g)])
@@ -167,12 +197,13 @@ def random_effects(eng: Engine, spec: Spec, shift: np.ndarray, sigma_e2: float) 
     sigma_u2 = max(sigma_u2, 0.0)
     theta = 1.0 - np.sqrt(sigma_e2 / (t_i * sigma_u2 + sigma_e2))
     keys = table.select(spec.key_aliases(0)).append_column("theta", pa.array(theta))
+    keys = keys.append_column("uid", pa.array(np.arange(g, dtype=np.int64)))
     for j in range(m):
         keys = keys.append_column(f"b{j}", pa.array(means[:, j]))
     eng.put_table("bp_theta", keys)
     cols = [f"{v} - s.m{j} - u.theta * u.b{j} AS e{j}" for j, v in enumerate(spec.value_aliases)]
     cols.append(f"1 - u.theta AS e{m}")
-    cols += spec.cluster_aliases
+    cols += spec.cluster_aliases + (["w"] if spec.weights else [])
     eng.execute("quasi-demeaned view", render("quasi_demeaned", columns=join(cols), keys=join(spec.key_aliases(0), ", ")))
     components = {
         "method": "Swamy-Arora",
@@ -181,7 +212,7 @@ def random_effects(eng: Engine, spec: Spec, shift: np.ndarray, sigma_e2: float) 
         "theta": {"min": float(theta.min()), "median": float(np.median(theta)), "max": float(theta.max())},
         "sigma_u_clipped_at_zero": bool(clipped),
     }
-    extras = {"random_effects": components, "units": g, "sample_rows": int(n)}
+    extras = {"random_effects": components, "units": g, "sample_rows": rows}
     return _with_constant(spec, eng, m - 1, shift, extras), components
 
 
@@ -189,19 +220,20 @@ def mundlak(eng: Engine, spec: Spec, shift: np.ndarray, varying: list[str]) -> d
     """Regression-based Hausman test: add (1 - theta_i) xbar_i of the time-varying regressors to the
     GLS regression and test their coefficients jointly, errors clustered by unit (Wald F on (K_w, G - 1)).
 
-    Reads the quasi-demeaning table ``bp_theta`` left by :func:`random_effects`.
+    Reads the quasi-demeaning table ``bp_theta`` left by :func:`random_effects`, whose unit
+    number ``uid`` is the cluster (so a unit given by several columns works too).
     """
-    if len(spec.fe[0]) != 1:
-        return {"statistic": None, "df": None, "p_value": None,
-                "note": "not computed: the cluster-robust version needs a unit given by one column"}
     m = len(spec.value_aliases)
     index = [spec.x.index(name) + 1 for name in varying]
     cols = [f"{v} - s.m{j} - u.theta * u.b{j} AS e{j}" for j, v in enumerate(spec.value_aliases)]
     cols += [f"(1 - u.theta) * u.b{j} AS e{m + a}" for a, j in enumerate(index)]
-    cols += [f"1 - u.theta AS e{m + len(index)}", f"{spec.key_aliases(0)[0]} AS cl1"]
+    cols += [f"1 - u.theta AS e{m + len(index)}", "u.uid AS cl1"]
+    cols += ["w"] if spec.weights else []
+    eng.execute("drop the quasi-demeaned view", render("drop_tilde"))
     eng.execute("augmented quasi-demeaned view",
                 render("quasi_demeaned", columns=join(cols), keys=join(spec.key_aliases(0), ", ")))
-    augmented = replace(spec, x=(*spec.x, *[f"mean {name}" for name in varying]), cluster=spec.fe[0], vcov="cluster")
+    augmented = replace(spec, x=(*spec.x, *[f"mean {name}" for name in varying]), cluster=(spec.fe_names[0],),
+                        vcov="cluster")
     shifts = np.concatenate([shift, shift[index]])
     fit = _with_constant(augmented, eng, m - 1 + len(index), shifts, {})
     picked = [fit.names.index(f"mean {name}") for name in varying if f"mean {name}" in fit.names]
@@ -217,9 +249,11 @@ def first_differences(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
         raise BigPanelError("--estimator fd needs --time COL to order the rows within a unit")
     m = len(spec.value_aliases)
     keys = join(spec.key_aliases(0), ", ")
-    diffs = [f"{v} - lag({v}) OVER w AS e{j}" for j, v in enumerate(spec.value_aliases)]
+    diffs = [f"{v} - lag({v}) OVER by_unit AS e{j}" for j, v in enumerate(spec.value_aliases)]
     diffs.append(f"1.0 AS e{m}")
     diffs += [f"{c}" for c in spec.cluster_aliases]
+    if spec.weights:
+        diffs.append("2.0 / (1.0 / w + 1.0 / lag(w) OVER by_unit) AS w")
     eng.execute("first differences", render("first_differences", diffs=join(diffs), keys=keys), raw=True)
     counts = eng.one("difference counts", render("fd_counts"))
     if counts["repeated"]:
@@ -267,8 +301,6 @@ def run_family(
     eng: Engine, spec: Spec, source_kind: str, estimator: str, sigma_e2: float | None
 ) -> tuple[FamilyFit, Start]:
     """Open the views, take the shifts, and run ``estimator`` (between, fd or random)."""
-    if spec.weights:
-        raise BigPanelError(f"--weights is not available for --estimator {estimator} yet, only for within")
     if len(spec.fe) != 1:
         raise BigPanelError(f"--estimator {estimator} takes exactly one --fe: the unit (one column, or columns joined by :)")
     create_views(eng, spec, materialize=source_kind == "csv")

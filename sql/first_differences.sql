@@ -8,8 +8,8 @@ WITH ranked AS (
 ),
 lagged AS (
   SELECT {{diffs}},
-         tr - lag(tr) OVER w AS step
+         tr - lag(tr) OVER by_unit AS step
   FROM ranked
-  WINDOW w AS (PARTITION BY {{keys}} ORDER BY tr)
+  WINDOW by_unit AS (PARTITION BY {{keys}} ORDER BY tr)
 )
 SELECT * FROM lagged

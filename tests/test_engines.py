@@ -47,6 +47,7 @@ COLUMNS = {  # name -> PostgreSQL type of the generated panel
     "x1": "double precision",
     "x2": "double precision",
     "y": "double precision",
+    "w": "double precision",
 }
 
 
@@ -78,6 +79,7 @@ def make_panel(seed: int = 7, n_stores: int = 160, n_weeks: int = 40) -> pa.Tabl
     x2[9] = -np.inf
     null = np.zeros(n, dtype=bool)
     null[[11, 110]] = True
+    w = rng.uniform(0.5, 4.0, n)  # analytic weights, drawn last so the other columns keep their values
     monday = dt.date(2024, 1, 1)
     return pa.table(
         {
@@ -90,6 +92,7 @@ def make_panel(seed: int = 7, n_stores: int = 160, n_weeks: int = 40) -> pa.Tabl
             "x1": pa.array(x1),
             "x2": pa.array(x2, mask=null),
             "y": pa.array(y),
+            "w": pa.array(w),
         }
     )
 
@@ -254,6 +257,31 @@ def test_same_fit_as_duckdb(engine, case, request, parquet_file, reference):
         theirs = table.sort_by([(k, "ascending") for k in key])
         assert mine.select(key).equals(theirs.select(key))
         np.testing.assert_allclose(mine.column("effect").to_numpy(), theirs.column("effect").to_numpy(), atol=1e-9)
+
+
+FAMILY = {  # the other estimators, weighted, with the store as the unit
+    "between, weights": dict(estimator="between", weights="w"),
+    "fd along week, weights, cluster region": dict(estimator="fd", time="week", weights="w", cluster="region"),
+    "random, weights, hausman": dict(estimator="random", weights="w", hausman=True),
+    "random, cluster store, Mundlak": dict(estimator="random", cluster="store", hausman=True),
+}
+
+
+@pytest.mark.parametrize("engine", ["postgres", "spark"])
+@pytest.mark.parametrize("case", list(FAMILY))
+def test_estimator_family_same_as_duckdb(engine, case, request, parquet_file):
+    kw = dict(fe="store", **FAMILY[case])
+    ref = bigpanel.fit(parquet_file, FORMULA, **kw)
+    res = _fit_on(engine, request, parquet_file, kw)
+    assert res.names == ref.names and res.nobs == ref.nobs and res.rows == ref.rows
+    assert rel(res.coef, ref.coef) < 1e-9 and rel(res.std_error, ref.std_error) < 1e-9
+    for key in ("random_effects", "first_difference", "hausman", "mundlak"):
+        assert (key in res.extras) == (key in ref.extras)
+    if "mundlak" in ref.extras:
+        assert res.extras["mundlak"]["statistic"] == pytest.approx(ref.extras["mundlak"]["statistic"], rel=1e-9)
+    if "random_effects" in ref.extras:
+        mine, theirs = res.extras["random_effects"], ref.extras["random_effects"]
+        assert rel([mine["sigma_u"], mine["sigma_e"]], [theirs["sigma_u"], theirs["sigma_e"]]) < 1e-9
 
 
 def test_truth_recovered(reference):

@@ -162,3 +162,17 @@ def test_mundlak_regression_based_hausman(grunfeld):
     m = res.extras["mundlak"]
     assert m["statistic"] == pytest.approx(f_ref, rel=1e-8)
     assert m["df"] == [2, 9.0] and 0 < m["p_value"] < 1
+
+
+def test_unit_given_by_two_columns(grunfeld, tmp_path):
+    # Common practice: a unit named by a pair of columns is the same unit; every random-effects
+    # number, the Mundlak test included (clustered by the pair), equals the one-column fit.
+    df, path = grunfeld
+    pair = df.assign(half=pd.factorize(df["firm"])[0] // 5, slot=pd.factorize(df["firm"])[0] % 5)
+    pair.to_parquet(tmp_path / "pair.parquet")
+    one = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random", hausman=True)
+    two = bigpanel.fit(str(tmp_path / "pair.parquet"), "invest ~ value + capital", fe="half:slot",
+                       estimator="random", hausman=True)
+    assert rel(two.coef, one.coef) < 1e-10 and rel(two.std_error, one.std_error) < 1e-10
+    assert two.extras["mundlak"]["statistic"] == pytest.approx(one.extras["mundlak"]["statistic"], rel=1e-10)
+    assert two.extras["mundlak"]["df"] == one.extras["mundlak"]["df"]
