@@ -137,7 +137,9 @@ def fit_command(
     ),
     time: Optional[str] = typer.Option(None, "--time", help="Period column that orders rows within a unit (for --estimator fd)."),
     hausman: bool = typer.Option(False, "--hausman", help="With --estimator random: Hausman test against the within fit."),
-    weights: Optional[str] = typer.Option(None, "--weights", help="Column of analytic weights (within estimator)."),
+    weights: Optional[str] = typer.Option(
+        None, "--weights", help="Column of analytic weights (any estimator); rows with a missing or non-positive weight are dropped."
+    ),
     json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
     save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
     effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),

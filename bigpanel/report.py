@@ -70,6 +70,8 @@ def fit_renderable(res: FitResult) -> Group:
         drops.append(f"{_n(r['dropped_singletons'])} singletons")
     if drops:
         lines.append("; dropped " + "; ".join(drops))
+    if res.weights:
+        lines.append(f"; weighted by {res.weights} (analytic weights)")
     lines.append("\nvariance  ", style="bold")
     lines.append(VCOV_LABEL[res.vcov_type])
     if res.cluster:
@@ -114,7 +116,7 @@ def fit_renderable(res: FitResult) -> Group:
         if hs["statistic"] is not None:
             lines.append(f"chi2({hs['df']}) = {hs['statistic']:.4g}, p {_p(hs['p_value'])} on {', '.join(hs['regressors'])}")
         if "note" in hs:
-            lines.append(f"; {hs['note']}", style="yellow")
+            lines.append(("; " if hs["statistic"] is not None else "") + hs["note"], style="yellow")
     mk = res.extras.get("mundlak")
     if mk:
         lines.append("\nmundlak   ", style="bold")

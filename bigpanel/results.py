@@ -64,6 +64,7 @@ class FitResult:
     warnings: list[str] = field(default_factory=list)
     timings: dict[str, float] = field(default_factory=dict)
     estimator: str = "within"
+    weights: str | None = None
     extras: dict[str, Any] = field(default_factory=dict)
 
     @property
@@ -109,6 +110,7 @@ class FitResult:
             "estimator": self.estimator,
             "source": self.source,
             "where": self.where,
+            "weights": self.weights,
             "formula": self.formula,
             "outcome": self.outcome,
             "nobs": self.nobs,

@@ -42,7 +42,7 @@ class ModelTable:
 
     ``body`` alternates an estimate row (label: the regressor) and a standard
     error row (label: empty); ``footer`` holds N, the effects, the variance type,
-    the within R-squared and, when they differ, the outcome and estimator.
+    the within R-squared and, when they differ, the outcome, estimator and weights.
     """
 
     header: Row
@@ -123,7 +123,7 @@ def _footer_rows(fits: list[dict[str, Any]], digits: int) -> list[Row]:
     rows += [[f"{name} effects", *("yes" if name in have else "" for have in effects)] for name in _first_seen(effects)]
     rows.append(["variance", *map(_variance, fits)])
     rows.append(["within R-squared", *(format_number((f.get("fit") or {}).get("r2_within"), digits) for f in fits)])
-    for key, usual in (("outcome", fits[0].get("outcome")), ("estimator", "within")):
+    for key, usual in (("outcome", fits[0].get("outcome")), ("estimator", "within"), ("weights", None)):
         values = [f.get(key) for f in fits]
         if any(value != usual for value in values):
             rows.append([key, *(str(value or "") for value in values)])

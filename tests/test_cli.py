@@ -19,6 +19,7 @@ def panel_path(tmp_path_factory):
     df["name"] = "u" + df["unit"].astype(str)
     df.loc[df.index[:5], "x2"] = np.nan
     df["one"] = 1
+    df["w"] = 1.0 + df["period"] % 4
     df["nothing"] = pd.Series([None] * len(df), dtype="Int64")
     path = tmp_path_factory.mktemp("cli") / "panel.parquet"
     df.to_parquet(path)
@@ -174,3 +175,20 @@ def test_describe_command(panel_path, tmp_path):
     assert (tmp_path / "p.png").exists()
     text = run("describe", path, "--id", "unit", "--time", "period")
     assert text.exit_code == 0 and "periods per unit" in text.stdout
+
+
+def test_weighted_estimators_say_so(panel_path, tmp_path):
+    # Every estimator takes --weights; the report, the JSON and the model table name the column.
+    df, path = panel_path
+    files = []
+    for est in ["within", "between", "fd", "random"]:
+        f = tmp_path / f"{est}.json"
+        extra = ["--time", "period"] if est == "fd" else []
+        out = run("fit", path, "y ~ x1 + x3", "--fe", "unit", "--estimator", est, "--weights", "w", *extra,
+                  "--save", str(f))
+        assert out.exit_code == 0, out.output
+        assert "weighted by w" in out.stdout
+        assert json.loads(f.read_text())["weights"] == "w"
+        files.append(str(f))
+    out = run("table", *files, "--to", "csv")
+    assert out.exit_code == 0 and "weights,w,w,w,w" in out.stdout
