@@ -8,8 +8,8 @@ one column given with ``fe`` names the unit.
   x, one observation per unit (G of them); df = G - K - 1.
 * **fd** (first differences): OLS of y_it - y_i,t-1 on a constant and the
   differenced regressors, over pairs of rows of a unit in consecutive periods
-  (periods ranked over the whole panel, so a step over a period that the unit
-  misses is a gap: dropped and counted); df = N_fd - K - 1.
+  (the periods present in the sample ranked once, so a step over a period that
+  the unit misses is a gap: dropped and counted); df = N_fd - K - 1.
 * **random** (feasible GLS, Swamy-Arora variance components): with the within
   residual variance s_e^2 = RSS_within / (N - G - K_w) and the between
   regression on unit means weighted by T_i (the projection of the rows on the
@@ -254,6 +254,7 @@ def first_differences(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
     diffs += [f"{c}" for c in spec.cluster_aliases]
     if spec.weights:
         diffs.append("2.0 / (1.0 / w + 1.0 / lag(w) OVER by_unit) AS w")
+    eng.execute("period ranks", render("fd_periods"), raw=True)
     eng.execute("first differences", render("first_differences", diffs=join(diffs), keys=keys), raw=True)
     counts = eng.one("difference counts", render("fd_counts"))
     if counts["repeated"]:
