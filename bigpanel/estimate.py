@@ -2,7 +2,8 @@
 
 source -> spec -> pass 1 (profile) -> pass 2 (group-level statistics) ->
 alternating projections on the level tables -> pass 3 (demeaned cross-products)
--> slopes -> pass 4 (robust meat, if asked) -> inference -> effects -> result.
+-> slopes -> pass 4 (HC1 meat, if asked; the cluster meat comes from pass 3's per-cluster sums)
+-> inference -> effects -> result.
 """
 
 from __future__ import annotations

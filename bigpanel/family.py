@@ -105,7 +105,7 @@ def _with_constant(spec: Spec, eng: Engine, k: int, shift: np.ndarray, extras: d
     shifts), with its variance from the gradient (1, -m_x). The F test is on the
     slopes only.
     """
-    mom = cross_products(eng, k + 2, spec.w)
+    mom = cross_products(eng, spec, k + 2)
     slopes = solve_slopes(mom.q, mom.n, np.zeros(k + 2), np.diag(mom.q))
     names_all = [spec.y, *spec.x, "const"]
     keep = slopes.keep

@@ -1,10 +1,13 @@
-"""The final passes: demeaned cross-products and robust score sums, row by row.
+"""The final passes: demeaned cross-products (per cluster, when clustering) and the HC1 meat.
 
 The solved effects are joined back to the rows, so every demeaned value
 x~ = (x - shift) - sum_d a_d[level] is formed per row and products are summed
 afterwards; no moment is ever formed as sum(x y) - sum(x) sum(y) / n. The sums
 are compensated (DuckDB's ``fsum``), so their rounding error does not grow with
-the number of rows and does not depend on the order the threads add in.
+the number of rows and does not depend on the order the threads add in. A
+cluster's score X~_c'(y~_c - X~_c b) is formed from that cluster's compensated
+products; it loses about log10(|X~_c'y~_c| / |g_c|) digits to cancellation
+(3 to 5 for clusters of a million rows), far below what a standard error shows.
 """
 
 from __future__ import annotations
@@ -58,10 +61,31 @@ class Moments:
     q: np.ndarray
 
 
-def cross_products(eng: Engine, m: int, w: str = "") -> Moments:
-    """Pass 3: the :class:`Moments` of the demeaned view (weighted when ``w`` is ``"w * "``)."""
-    sums = [f"fsum({w}e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
-    row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
+def _gid(width: int, columns: tuple[int, ...]) -> int:
+    """The GROUPING() bitmask of the grouping set ``columns`` among ``width`` cluster columns
+    (the first column is the most significant bit; a bit is 1 when its column is not grouped)."""
+    return sum(1 << (width - 1 - j) for j in range(width) if j not in columns)
+
+
+def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
+    """Pass 3: the :class:`Moments` of the demeaned view (weighted when ``spec.weights``).
+
+    With cluster-robust errors the same pass sums the products per cluster, for
+    every combination of cluster columns, into the engine table
+    ``bp_cluster_moments`` that :func:`meat_cluster` reads; the totals are the sum
+    over the clusters of the first cluster column.
+    """
+    sums = [f"fsum({spec.w}e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
+    if spec.vcov == "cluster":
+        names = spec.cluster_aliases
+        groups = join(["(" + ", ".join(names[j] for j in s) + ")" for s in cluster_sets(len(names))], ", ")
+        eng.execute("pass 3: demeaned cross-products per cluster",
+                    render("cluster_moments", sums=join(sums), clusters=", ".join(names), sets=groups), raw=True)
+        totals = [f"fsum(q_{i}_{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
+        row = eng.one("cross-products from the cluster sums", render("cluster_moment_totals", sums=join(totals)),
+                      {"gid": _gid(len(names), (0,))})
+    else:
+        row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     q = np.zeros((m, m))
     for i in range(m):
         for j in range(i, m):
@@ -95,19 +119,18 @@ def cluster_sets(n: int) -> list[tuple[int, ...]]:
 
 
 def meat_cluster(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
-    """Pass 4 (cluster): for every combination S of cluster columns, sum over its clusters
-    of g_c g_c' with g_c = sum_{i in c} w_i u_i x~_i; one scan with grouping sets."""
+    """Cluster meat for every combination S of cluster columns: sum over its clusters of g_c g_c'
+    with g_c = sum_{i in c} w_i u_i x~_i = q_c[0, j] - sum_k b_k q_c[k, j] from the per-cluster
+    cross-products q_c of :func:`cross_products` (no pass over the rows)."""
     _store_coef(eng, keep, beta)
-    resid, carry = _resid_parts(keep, bool(spec.weights))
-    names = spec.cluster_aliases
-    sets = cluster_sets(len(names))
-    scores = join([f"sum(u * e{j}) AS g{j}" for j in keep])
+
+    def q(i: int, j: int) -> str:
+        return f"q_{min(i, j)}_{max(i, j)}"
+
+    scores = join([f"{q(0, j)} - (" + " + ".join(f"b.b{k} * {q(k, j)}" for k in keep) + f") AS g{j}" for j in keep])
     sums = [f"fsum(g{i} * g{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
-    groups = join(["(" + ", ".join(names[j] for j in s) + ")" for s in sets], ", ")
-    sql = render("meat_cluster", sums=join(sums), scores=scores, resid=resid, carry=carry,
-                 clusters=", ".join(names), sets=groups)
-    tab = eng.arrow("pass 4: cluster scores", sql, raw=True)
-    width = len(names)
+    tab = eng.arrow("cluster scores", render("meat_cluster", sums=join(sums), scores=scores))
+    width = len(spec.cluster_aliases)
     terms = []
     for row in tab.to_pylist():
         cols = tuple(j for j in range(width) if not (row["gid"] >> (width - 1 - j)) & 1)

@@ -64,7 +64,7 @@ class SqlBackend:
     def moments(self, alpha: list[np.ndarray]) -> Moments:
         self.alpha = alpha
         self._demeaned()
-        return cross_products(self.eng, len(self.spec.value_aliases), self.spec.w)
+        return cross_products(self.eng, self.spec, len(self.spec.value_aliases))
 
     def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
         self._demeaned()

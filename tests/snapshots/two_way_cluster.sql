@@ -159,13 +159,28 @@ JOIN bp_alpha_1 AS a1 USING (f1_1)
 JOIN bp_alpha_2 AS a2 USING (f2_1)
 
 ;
--- Final pass: the cross-products of the demeaned columns, row by row, with
--- compensated sums.
-SELECT count(*) AS n,
+-- Final pass of a cluster-robust fit: the cross-products of the demeaned columns
+-- summed per cluster (compensated sums), for every combination of cluster
+-- columns (grouping sets), kept in the engine. The totals and the cluster
+-- scores are read from this table, so the errors need no further row pass.
+CREATE OR REPLACE TEMP TABLE bp_cluster_moments AS
+SELECT GROUPING(cl1) AS gid,
+       count(*) AS n,
        fsum(e0 * e0) AS q_0_0,
        fsum(e0 * e1) AS q_0_1,
        fsum(e1 * e1) AS q_1_1
 FROM bp_tilde
+GROUP BY GROUPING SETS ((cl1))
+
+;
+-- The cross-products over the whole sample: the per-cluster sums of one
+-- grouping set (one cluster column), added up.
+SELECT sum(n) AS n,
+       fsum(q_0_0) AS q_0_0,
+       fsum(q_0_1) AS q_0_1,
+       fsum(q_1_1) AS q_1_1
+FROM bp_cluster_moments
+WHERE gid = $gid
 
 ;
 -- A one-row helper table of numbers bound as parameters (shifts, coefficients).
@@ -173,17 +188,16 @@ CREATE OR REPLACE TEMP TABLE bp_coef AS
 SELECT CAST($b1 AS DOUBLE) AS b1
 
 ;
--- Cluster-robust meat: for every combination of cluster columns (grouping
--- sets), scores g_c = sum over the rows of cluster c of u x~, then the sum over
--- clusters of g_c g_c'. One scan serves every term of inclusion-exclusion.
+-- Cluster-robust meat from the per-cluster cross-products of bp_cluster_moments:
+-- the score of cluster c is g_c = X~_c'W y~_c - X~_c'W X~_c b (b from the one-row
+-- table bp_coef), then the sum over the clusters of g_c g_c', for every
+-- combination of cluster columns. Reads no raw row.
 SELECT gid,
        count(*) AS n_clusters,
        fsum(g1 * g1) AS h_1_1
-FROM (SELECT GROUPING(cl1) AS gid,
-             sum(u * e1) AS g1
-      FROM (SELECT cl1, (e0 - (b.b1 * e1)) AS u, e1
-            FROM bp_tilde CROSS JOIN bp_coef AS b) AS r
-      GROUP BY GROUPING SETS ((cl1))) AS g
+FROM (SELECT gid,
+             q_0_1 - (b.b1 * q_1_1) AS g1
+      FROM bp_cluster_moments CROSS JOIN bp_coef AS b) AS g
 GROUP BY gid
 ORDER BY gid
 
