@@ -6,8 +6,9 @@ afterwards; no moment is ever formed as sum(x y) - sum(x) sum(y) / n. The sums
 are compensated (DuckDB's ``fsum``), so their rounding error does not grow with
 the number of rows and does not depend on the order the threads add in. A
 cluster's score X~_c'(y~_c - X~_c b) is formed from that cluster's compensated
-products; it loses about log10(|X~_c'y~_c| / |g_c|) digits to cancellation
-(3 to 5 for clusters of a million rows), far below what a standard error shows.
+products; it loses about log10(|X~_c'y~_c| / |g_c|) digits to cancellation, far
+below what a standard error shows (10M-row demo, 12 clusters of about 830,000
+rows: the same errors as row-by-row scores to 3e-14 relative).
 """
 
 from __future__ import annotations
