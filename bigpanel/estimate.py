@@ -316,7 +316,7 @@ def _fit_family(
             fam.extras["mundlak"] = mundlak(eng, spec, first.shift, varying)
         sample_rows = fam.extras.pop("sample_rows")
         lost = incomplete(eng, spec) if sample_rows < first.n_filtered else {}
-        passes = eng.raw_passes
+        passes = eng.raw_passes + (within.solver["raw_passes"] if within else 0)  # random: its within fit too
         timings = dict(eng.timings)
     finally:
         eng.close()
