@@ -23,7 +23,7 @@ from .engine import Engine
 from .inference import ClusterTerm
 from .reduce import put_one_row
 from .spec import Spec
-from .sqltext import join, render
+from .sqltext import grouping_id, grouping_sets, join, render
 
 
 def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) -> None:
@@ -62,12 +62,6 @@ class Moments:
     q: np.ndarray
 
 
-def _gid(width: int, columns: tuple[int, ...]) -> int:
-    """The GROUPING() bitmask of the grouping set ``columns`` among ``width`` cluster columns
-    (the first column is the most significant bit; a bit is 1 when its column is not grouped)."""
-    return sum(1 << (width - 1 - j) for j in range(width) if j not in columns)
-
-
 def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
     """Pass 3: the :class:`Moments` of the demeaned view (weighted when ``spec.weights``).
 
@@ -79,12 +73,12 @@ def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
     sums = [f"fsum({spec.w}e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
     if spec.vcov == "cluster":
         names = spec.cluster_aliases
-        groups = join(["(" + ", ".join(names[j] for j in s) + ")" for s in cluster_sets(len(names))], ", ")
+        groups = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
         eng.execute("pass 3: demeaned cross-products per cluster",
                     render("cluster_moments", sums=join(sums), clusters=", ".join(names), sets=groups), raw=True)
         totals = [f"fsum(q_{i}_{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
         row = eng.one("cross-products from the cluster sums", render("cluster_moment_totals", sums=join(totals)),
-                      {"gid": _gid(len(names), (0,))})
+                      {"gid": grouping_id(names, names[:1])})
     else:
         row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     q = np.zeros((m, m))

@@ -20,7 +20,7 @@ from scipy import sparse
 from .engine import Engine
 from .errors import BigPanelError
 from .spec import Spec
-from .sqltext import ident, join, render
+from .sqltext import grouping_id, grouping_sets, ident, join, render
 
 MAX_SINGLETON_ROUNDS = 200
 
@@ -171,11 +171,13 @@ def _sets(spec: Spec) -> list[tuple[int, ...]]:
     return [(0,)] if k == 1 else list(combinations(range(k), 2))
 
 
+def _set_keys(spec: Spec, dims: tuple[int, ...]) -> list[str]:
+    """The key columns of the effects ``dims`` (one grouping set of the reduction)."""
+    return [a for d in dims for a in spec.key_aliases(d)]
+
+
 def _gid(spec: Spec, dims: tuple[int, ...]) -> int:
-    all_keys = [a for d in range(len(spec.fe)) for a in spec.key_aliases(d)]
-    inside = {a for d in dims for a in spec.key_aliases(d)}
-    width = len(all_keys)
-    return sum(1 << (width - 1 - i) for i, a in enumerate(all_keys) if a not in inside)
+    return grouping_id(_set_keys(spec, tuple(range(len(spec.fe)))), _set_keys(spec, dims))
 
 
 def _home_set(spec: Spec, d: int) -> tuple[int, ...]:
@@ -203,14 +205,14 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, cell_budget: in
     Per cell: the row count and the sums and sums of squares of the shifted columns.
     """
     k = len(spec.fe)
-    all_keys = join([a for d in range(k) for a in spec.key_aliases(d)], ", ")
+    all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
     w = spec.w
     sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]
     sums += [f"sum({w}({v} - s.m{j})) AS s{j}" for j, v in enumerate(spec.value_aliases)]
     sums += [f"sum({w}({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
     for c in spec.cluster_aliases:
         sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
-    sets = join(["(" + ", ".join(a for d in s for a in spec.key_aliases(d)) + ")" for s in _sets(spec)], ", ")
+    sets = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
     filters = ""
     rounds = 0
     n_complete = None

@@ -51,3 +51,15 @@ def literal(value: str) -> str:
 def join(parts: list[str], sep: str = ",\n       ") -> str:
     """Join generated fragments for a slot."""
     return sep.join(parts)
+
+
+def grouping_sets(sets: list[list[str]]) -> str:
+    """The body of ``GROUP BY GROUPING SETS (...)``: ``(a, b), (c)`` for the column lists ``sets``."""
+    return join(["(" + ", ".join(s) + ")" for s in sets], ", ")
+
+
+def grouping_id(columns: list[str], grouped: list[str]) -> int:
+    """The value of ``GROUPING(columns...)`` on the rows of the grouping set ``grouped``: the first
+    column is the most significant bit, and a bit is 1 where its column is not grouped."""
+    width = len(columns)
+    return sum(1 << (width - 1 - i) for i, c in enumerate(columns) if c not in grouped)
