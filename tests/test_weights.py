@@ -12,6 +12,12 @@ import bigpanel
 from conftest import dummy_block, make_panel, rel
 
 
+def sm_fit(model, vcov: str, groups=None):
+    if vcov == "cluster":
+        return model.fit(cov_type="cluster", cov_kwds={"groups": pd.factorize(groups)[0]})
+    return model.fit(cov_type={"iid": "nonrobust", "hc1": "HC1"}[vcov])
+
+
 @pytest.mark.parametrize("engine", ["duckdb", "memory"])
 @pytest.mark.parametrize("fe", [["unit"], ["unit", "period"]])
 @pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
@@ -24,10 +30,7 @@ def test_weighted_within_matches_wls_with_dummies(to_parquet, engine, fe, vcov):
                        cluster="sector" if vcov == "cluster" else None, engine=engine)
     design = np.hstack([df[["x1", "x2"]].to_numpy(), dummy_block(df, fe)])
     model = sm.WLS(df["y"].to_numpy(), design, weights=df["w"].to_numpy())
-    if vcov == "cluster":
-        ref = model.fit(cov_type="cluster", cov_kwds={"groups": df["sector"].to_numpy()})
-    else:
-        ref = model.fit(cov_type={"iid": "nonrobust", "hc1": "HC1"}[vcov])
+    ref = sm_fit(model, vcov, df["sector"])
     assert rel(res.coef, ref.params[:2]) < 1e-7
     assert rel(res.std_error, ref.bse[:2]) < 1e-7
 
@@ -46,12 +49,6 @@ def weighted_panel(seed: int) -> pd.DataFrame:
     df = make_panel(seed=seed)
     df["w"] = np.random.default_rng(seed + 1).uniform(0.2, 5.0, len(df))
     return df
-
-
-def sm_fit(model, vcov: str, groups=None):
-    if vcov == "cluster":
-        return model.fit(cov_type="cluster", cov_kwds={"groups": pd.factorize(groups)[0]})
-    return model.fit(cov_type={"iid": "nonrobust", "hc1": "HC1"}[vcov])
 
 
 @pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
