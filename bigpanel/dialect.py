@@ -13,6 +13,9 @@ syntax tree is adjusted where the engines differ in meaning, not just spelling:
   EXISTS t`` then ``CREATE TEMP TABLE t ...``; for ``... AS q`` on Spark the query ``q`` is
   returned alone with ``table="t"`` and the engine materialises it (a cached
   DataFrame registered as the temp view ``t``). Temp *views* exist in both.
+* ``approx_count_distinct(hash(a, b))`` (a HyperLogLog estimate that only guides
+  the choice of strategy): PostgreSQL has no approximate count, so it becomes the
+  exact ``count(DISTINCT (a, b))``; Spark keeps both functions.
 * DuckDB's compensated ``fsum`` has no counterpart: both add with plain ``sum``
   (the summands are demeaned, so the totals stay small; rounding then grows
   with the row count as in any plain sum).
@@ -31,8 +34,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Any, Callable
+from typing import Any, Callable, Iterator
 
+import pyarrow as pa
 
 from .engine import Engine, EngineError, _first_line
 from .errors import BigPanelError
@@ -128,6 +132,10 @@ def _rewrite(node: Any, dialect: str, exp: Any) -> Any:
         check = _sqlglot().parse_one(_FINITE[dialect], read=dialect)
         check = check.transform(lambda n: args[0].copy() if isinstance(n, exp.Column) and n.name == "bp_arg" else n)
         return exp.Paren(this=check)
+    if isinstance(node, exp.ApproxDistinct) and dialect == "postgres":
+        hashed, hashed_args = _call(node.this, exp)
+        parts = hashed_args if hashed == "hash" else [node.this]
+        return exp.Count(this=exp.Distinct(expressions=[exp.Tuple(expressions=[a.copy() for a in parts])]))
     if name == "fsum" and len(args) == 1:
         return exp.Sum(this=args[0].copy())
     if name == "grouping" and dialect == "spark":
@@ -149,11 +157,14 @@ class TranslatingEngine(Engine):
         """The translated steps of one DuckDB-dialect statement."""
         return translate(sql, self.dialect)
 
-    def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any]) -> Any:
+    def _stream(self, sql: str, params: dict) -> Iterator[pa.RecordBatch]:
+        yield from self._fetch(sql, params).to_batches()
+
+    def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any], record: bool = True) -> Any:
         from sqlglot.errors import SqlglotError
 
         try:
-            return super()._run(label, raw, sql, fn)
+            return super()._run(label, raw, sql, fn, record)
         except SqlglotError as exc:
             raise EngineError(label, f"cannot translate for {self.name}: {_first_line(exc)}", self.name) from None
         except self.driver_errors as exc:

@@ -8,13 +8,15 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any, Callable, Iterator
 
 import duckdb
 import pyarrow as pa
 
 from .errors import BigPanelError
 from .sqltext import ident, render
+
+STREAM_BATCH = 1 << 20  # rows per batch of a streamed result
 
 
 class EngineError(BigPanelError):
@@ -48,6 +50,9 @@ class Engine:
     def _fetch(self, sql: str, params: dict) -> pa.Table:
         return self.con.sql(sql, params=params or None).to_arrow_table()
 
+    def _stream(self, sql: str, params: dict) -> Iterator[pa.RecordBatch]:
+        yield from self.con.sql(sql, params=params or None).to_arrow_reader(STREAM_BATCH)
+
     def _put(self, name: str, table: pa.Table) -> None:
         """Upload ``table`` as the temporary table ``name`` (the statement shown is ``store_arrow``)."""
         view = f"{name}_arrow"
@@ -60,10 +65,11 @@ class Engine:
     def close(self) -> None:
         self.con.close()
 
-    def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any]) -> Any:
-        self.statements.append(sql)
-        if self.on_step is not None:
-            self.on_step(label)
+    def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any], record: bool = True) -> Any:
+        if record:
+            self.statements.append(sql)
+            if self.on_step is not None:
+                self.on_step(label)
         start = time.perf_counter()
         try:
             out = fn()
@@ -71,7 +77,8 @@ class Engine:
             raise KeyboardInterrupt from None
         except duckdb.Error as exc:
             raise EngineError(label, _first_line(exc), self.name) from None
-        self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
+        if record:
+            self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
         if raw:
             self.raw_passes += 1
         return out
@@ -85,6 +92,23 @@ class Engine:
         table = self._run(label, raw, sql, lambda: self._fetch(sql, params or {}))
         self.bytes_to_client += table.nbytes
         return table
+
+    def stream(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> Iterator[pa.RecordBatch]:
+        """Run a query whose (large) result is consumed batch by batch; the bytes add to
+        ``bytes_to_client``. The query counts as a pass when ``raw``; its time is the time to
+        exhaust the iterator."""
+        self.statements.append(sql)
+        if self.on_step is not None:
+            self.on_step(label)
+        start = time.perf_counter()
+        batches = self._run(label, raw, sql, lambda: iter(self._stream(sql, params or {})), record=False)
+        while True:
+            batch = self._run(label, False, sql, lambda: next(batches, None), record=False)
+            if batch is None:
+                break
+            self.bytes_to_client += batch.nbytes
+            yield batch
+        self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
 
     def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
         """Run a query returning one row; return it as a dict."""

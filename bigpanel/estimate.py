@@ -19,10 +19,9 @@ from .dof import count_absorbed
 from .effects import effect_tables, recover
 from .errors import BigPanelError
 from .family import ESTIMATORS, hausman_test, mundlak, run_family
-from .reduce import incomplete
 from .inference import Inference, infer
 from .memory import MemoryBackend
-from .project import components
+from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
 from .results import FitResult
 from .solve import ILL_CONDITIONED, solve_slopes
 from .source import open_session
@@ -65,6 +64,7 @@ def fit(
     hausman: bool = False,
     cell_budget: int | None = None,
     weights: str | None = None,
+    strategy: str | None = None,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -86,8 +86,12 @@ def fit(
     along ``time``) or ``random`` (GLS, Swamy-Arora; ``hausman=True`` adds the
     test against the within fit); for those, the one ``fe`` column is the unit.
     See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
-    machine's memory) bounds the pair tables fetched to numpy; above it the
-    projections run inside the engine (:mod:`bigpanel.sweeps`). ``weights`` names
+    machine's memory) is the Python-side memory budget: the pair tables or per-row
+    level codes fetched to numpy must fit it, else the projections run inside the
+    engine (:mod:`bigpanel.sweeps`). The strategy is chosen from a measurement of
+    the panel (:func:`bigpanel.reduce.plan_reduction`); ``strategy`` (``"pair
+    tables"``, ``"row codes"`` or ``"in-engine sweeps"``) overrides the choice, for
+    tests and benchmarks. ``weights`` names
     a column of analytic weights (every estimator; the weighted forms are stated
     in :mod:`bigpanel.family`): the effects are weighted level means and every
     moment is weighted; rows with a missing or non-positive weight are dropped
@@ -134,20 +138,15 @@ def fit(
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
         first = back.start()
-        red = back.reduce(drop_singletons, cell_budget or _default_budget())
+        budget = cell_budget or _default_budget()
+        red = back.reduce(drop_singletons, budget, strategy)
         lost = back.incomplete() if red.n_complete < first.n_filtered else {}
         if on_step:
-            on_step("alternating projections on the level tables")
+            on_step(f"projections ({red.strategy})")
         t0 = perf_counter()
         proj = back.project(red, tol, max_iter)
+        n_comp, labels = back.components(red)
         eng.timings["projections (numpy)"] = perf_counter() - t0
-        in_engine = red.cross is None
-        if len(spec.fe) >= 2:
-            # in-engine path: the pair tables stay in the engine; one component is assumed
-            # (conservative: P may count C - 1 parameters too many)
-            n_comp, labels = (1, None) if in_engine else components(red)
-        else:
-            n_comp, labels = None, None
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
         mom = back.moments(proj.alpha)
         n = mom.n
@@ -243,8 +242,11 @@ def fit(
         dropped=[{"name": names_all[j], "reason": why} for j, why in slopes.dropped],
         solver={
             "engine": engine,
-            "path": ("in-engine sweeps (pair tables over the memory budget)" if in_engine
-                     else "group-level statistics" if len(spec.fe) > 1 else "exact one-way demeaning"),
+            "path": PATHS[red.strategy],
+            "strategy": _strategy_report(back.plan, red.strategy),
+            "cross_products_from": back.moments_from,
+            "python_budget_bytes": budget,
+            "largest_python_allocation_bytes": int(back.python_bytes),
             "iterations": proj.iterations,
             "change": proj.change,
             "tol": tol,
@@ -263,6 +265,23 @@ def fit(
         warnings=warnings,
         timings=dict(back.timings),
     )
+
+
+PATHS = {
+    ONE_WAY: "exact one-way demeaning",
+    PAIR_TABLES: "group-level statistics (pair tables)",
+    ROW_CODES: "per-row level codes, largest effect eliminated exactly",
+    IN_ENGINE: "in-engine sweeps (over the Python-side memory budget)",
+}
+
+
+def _strategy_report(plan: Plan | None, ran: str) -> dict:
+    """The plan's measurements and reason, with the strategy that finally ran."""
+    out = plan.to_dict() if plan is not None else {"name": ran, "reason": "in-memory engine: every pair table in numpy"}
+    if out["name"] != ran:
+        out["reason"] += f"; the pair tables came out over the budget, so {ran} ran"
+        out["name"] = ran
+    return out
 
 
 def _inference_fields(inf: Inference) -> dict:

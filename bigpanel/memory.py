@@ -20,8 +20,8 @@ from .engine import Engine
 from .errors import BigPanelError
 from .inference import ClusterTerm
 from .moments import Moments, cluster_sets
-from .project import Projection, solve_effects
-from .reduce import Reduction, Start, create_views, no_complete_rows, source_rows
+from .project import Projection, components, solve_effects
+from .reduce import ONE_WAY, PAIR_TABLES, Reduction, Start, create_views, no_complete_rows, source_rows
 from .spec import Spec
 from .sqltext import render
 
@@ -50,7 +50,8 @@ def _codes(columns: list[pa.ChunkedArray]) -> tuple[np.ndarray, pa.Table]:
 class MemoryBackend:
     """Runs the fit's row-level steps on numpy arrays held in memory."""
 
-    name = "memory"
+    moments_from = "demeaned rows"
+    plan = None
 
     def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
         self.spec = spec
@@ -106,7 +107,15 @@ class MemoryBackend:
     def project(self, red: Reduction, tol: float, max_iter: int) -> Projection:
         return solve_effects(red, tol=tol, max_iter=max_iter)
 
-    def reduce(self, drop_singletons: bool, cell_budget: int) -> Reduction:
+    @property
+    def python_bytes(self) -> int:
+        """The loaded columns: the largest numpy allocation of this path."""
+        return int(self.table.nbytes)
+
+    def components(self, red: Reduction) -> tuple[int | None, np.ndarray | None]:
+        return components(red) if len(red.counts) >= 2 else (None, None)
+
+    def reduce(self, drop_singletons: bool, cell_budget: int, strategy: str | None = None) -> Reduction:
         spec = self.spec
         k = len(spec.fe)
         codes, self.keys = [], []
@@ -158,7 +167,8 @@ class MemoryBackend:
                 flags.append(bool((lo == hi).all()))
             nested.append(flags)
         sumsq = (w[:, None] * self.t**2).sum(axis=0)
-        return Reduction(counts, rows, rhs, cross, nested, sumsq, len(keep), len(self.t), rounds)
+        strategy = ONE_WAY if k == 1 else PAIR_TABLES
+        return Reduction(counts, rows, rhs, cross, nested, sumsq, len(keep), len(self.t), rounds, strategy)
 
     def moments(self, alpha: list[np.ndarray]) -> Moments:
         e = self.t.copy()

@@ -76,16 +76,55 @@ def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
         groups = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
         eng.execute("pass 3: demeaned cross-products per cluster",
                     render("cluster_moments", sums=join(sums), clusters=", ".join(names), sets=groups), raw=True)
-        totals = [f"fsum(q_{i}_{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
-        row = eng.one("cross-products from the cluster sums", render("cluster_moment_totals", sums=join(totals)),
-                      {"gid": grouping_id(names, names[:1])})
-    else:
-        row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
+        return _cluster_totals(eng, names, m)
+    row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
+    return _moments(row, m)
+
+
+def _moments(row: dict, m: int) -> Moments:
     q = np.zeros((m, m))
     for i in range(m):
         for j in range(i, m):
             q[i, j] = q[j, i] = row[f"q_{i}_{j}"]
     return Moments(int(row["n"]), q)
+
+
+def _comoment(i: int, j: int) -> str:
+    """Level co-moment of shifted columns i <= j from a cell: sum w t_i t_j - s_i s_j / n_w."""
+    product = f"c.q{i}" if i == j else f"c.p{i}_{j}"
+    return f"{product} - c.s{i} * c.s{j} / c.nw"
+
+
+def level_cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
+    """One effect: E'E as the sum over the kept levels of their co-moments, read from the cells
+    of the reduction (no pass over the rows). With clustering, every cluster column must nest
+    the effect; the per-cluster sums then go to ``bp_cluster_moments`` as in :func:`cross_products`.
+
+    The co-moment sum w t_i t_j - s_i s_j / n_w of a level loses digits to cancellation when the
+    level's mean is far from the shift relative to its spread; the caller checks the loss.
+    """
+    pairs = [(i, j) for i in range(m) for j in range(i, m)]
+    keys = ", ".join(spec.key_aliases(0))
+    gid = {"gid": 0}  # one effect: the cells hold one grouping set
+    if spec.vcov != "cluster":
+        sums = join([f"fsum({_comoment(i, j)}) AS q_{i}_{j}" for i, j in pairs])
+        return _moments(eng.one("cross-products from the level co-moments",
+                                render("level_moments", sums=sums, keys=keys), gid), m)
+    names = spec.cluster_aliases
+    values = join([f"c.{c}_min AS {c}" for c in names] + [f"{_comoment(i, j)} AS m_{i}_{j}" for i, j in pairs])
+    sets = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
+    eng.execute("cluster cross-products from the level co-moments",
+                render("level_cluster_moments", clusters=", ".join(names), values=values, keys=keys, sets=sets,
+                       sums=join([f"fsum(m_{i}_{j}) AS q_{i}_{j}" for i, j in pairs])), gid)
+    return _cluster_totals(eng, names, m)
+
+
+def _cluster_totals(eng: Engine, names: list[str], m: int) -> Moments:
+    """The sample's E'E: the per-cluster sums of ``bp_cluster_moments`` over the first cluster column."""
+    totals = [f"fsum(q_{i}_{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
+    row = eng.one("cross-products from the cluster sums", render("cluster_moment_totals", sums=join(totals)),
+                  {"gid": grouping_id(names, names[:1])})
+    return _moments(row, m)
 
 
 def _resid_parts(keep: list[int], weighted: bool) -> tuple[str, str]:

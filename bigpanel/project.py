@@ -19,6 +19,7 @@ that a column the effects absorb entirely still converges.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 from scipy.sparse.csgraph import connected_components
@@ -85,21 +86,28 @@ class _System:
 FLOOR = 1e-4
 
 
-def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> Projection:
-    """Effects of every dimension for every value column (one column per variable).
+def conjugate_gradients(
+    apply: Callable[[np.ndarray], np.ndarray],
+    precondition: Callable[[np.ndarray], np.ndarray],
+    b: np.ndarray,
+    total: np.ndarray,
+    tol: float,
+    max_iter: int,
+) -> tuple[np.ndarray, int, float, bool]:
+    """Preconditioned conjugate gradients on A x = b for every column of ``b`` at once.
 
-    The stopping rule is stated in the module docstring. One effect needs no
-    iteration: a = level sums / counts.
+    ``apply`` is A (symmetric positive semi-definite: a normal-equations matrix of
+    dummies, or a Schur complement of one), ``precondition`` an approximation of
+    A^-1. ``total[j]`` is the squared norm of column j's response before the effects
+    are removed (so that ||demeaned||^2 = total - x'b - x'r, r = b - A x); the
+    stopping rule of the module docstring applies per column. Returns the solution,
+    the iterations, the largest final change and whether every column converged.
     """
-    if len(red.counts) == 1:
-        return Projection([red.rhs[0] / red.counts[0][:, None]], iterations=0, change=0.0, converged=True)
-    system = _System(red)
-    b = np.vstack(red.rhs)
     m = b.shape[1]
-    total = np.maximum(red.sumsq, np.finfo(float).tiny)
+    total = np.maximum(total, np.finfo(float).tiny)
     x = np.zeros_like(b)
     r = b.copy()
-    z = system.sweep(r)
+    z = precondition(r)
     p = z.copy()
     rz = np.einsum("ij,ij->j", r, z)
     active = np.ones(m, dtype=bool)
@@ -107,7 +115,7 @@ def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> 
     it = 0
     while active.any() and it < max_iter:
         it += 1
-        q = system.matvec(p)
+        q = apply(p)
         pq = np.einsum("ij,ij->j", p, q)
         step = np.where(active & (pq > 0), rz / np.where(pq > 0, pq, 1.0), 0.0)
         x += p * step
@@ -117,12 +125,27 @@ def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> 
         moved = np.abs(step) * np.sqrt(np.maximum(pq, 0.0)) / norm
         change = np.where(active, moved, change)
         active &= (moved >= tol) & (pq > 0)
-        z = system.sweep(r)
+        z = precondition(r)
         rz_new = np.einsum("ij,ij->j", r, z)
         beta = np.where(active & (rz != 0), rz_new / np.where(rz != 0, rz, 1.0), 0.0)
         p = z + p * beta
         rz = rz_new
-    return Projection(system.split(x), iterations=it, change=float(change.max()), converged=not active.any())
+    return x, it, float(change.max()), not active.any()
+
+
+def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> Projection:
+    """Effects of every dimension for every value column (one column per variable).
+
+    The stopping rule is stated in the module docstring. One effect needs no
+    iteration: a = level sums / counts.
+    """
+    if len(red.counts) == 1:
+        return Projection([red.rhs[0] / red.counts[0][:, None]], iterations=0, change=0.0, converged=True)
+    system = _System(red)
+    x, it, change, converged = conjugate_gradients(
+        system.matvec, system.sweep, np.vstack(red.rhs), red.sumsq, tol, max_iter
+    )
+    return Projection(system.split(x), iterations=it, change=change, converged=converged)
 
 
 def components(red: Reduction) -> tuple[int, np.ndarray]:

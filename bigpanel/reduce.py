@@ -23,6 +23,13 @@ from .spec import Spec
 from .sqltext import grouping_id, grouping_sets, ident, join, render
 
 MAX_SINGLETON_ROUNDS = 200
+PAIR_TABLES = "pair tables"
+ROW_CODES = "row codes"
+IN_ENGINE = "in-engine sweeps"
+ONE_WAY = "one-way"
+STRATEGIES = (PAIR_TABLES, ROW_CODES, IN_ENGINE)
+COMPRESSION = 8  # pair tables pay when every pair of effects has at most one cell per 8 rows
+CELL_BYTES = 40  # numpy bytes per fetched pair cell: codes, weight, the sparse table and its transpose
 
 
 @dataclass(frozen=True)
@@ -49,7 +56,9 @@ class Reduction:
     the sparse table of rows per pair of levels of effects d < e (None when
     the pair tables exceed the memory budget: the projections then run in the
     engine, see :mod:`bigpanel.sweeps`), and
-    ``sumsq`` each shifted column's sum of squares over the sample.
+    ``sumsq`` each shifted column's sum of squares over the sample. ``strategy``
+    names how the effects are partialled out (:func:`plan_reduction`); ``codes``
+    holds the per-row level codes of the row-codes strategy.
     """
 
     counts: list[np.ndarray]
@@ -61,10 +70,24 @@ class Reduction:
     n_complete: int
     n_obs: int
     rounds: int
+    strategy: str = PAIR_TABLES
+    codes: RowCodes | None = None
 
     @property
     def singletons(self) -> int:
         return self.n_complete - self.n_obs
+
+
+@dataclass
+class RowCodes:
+    """Each sample row's level code per effect (int16 or int32) and its weight (None: unweighted).
+
+    Mutable on purpose: :mod:`bigpanel.rowcodes` empties ``codes`` once it has built
+    its link tables, so that the row arrays do not outlive their use.
+    """
+
+    codes: list[np.ndarray]
+    weights: np.ndarray | None
 
 
 def _complete(spec: Spec) -> str:
@@ -166,9 +189,94 @@ def put_one_row(eng: Engine, table: str, values: dict[str, float]) -> None:
     eng.execute(f"store {table}", render("one_row", table=table, columns=cols), values)
 
 
-def _sets(spec: Spec) -> list[tuple[int, ...]]:
+@dataclass(frozen=True)
+class Plan:
+    """How the effects will be partialled out, and what was measured to choose it.
+
+    ``levels`` and ``pairs`` are HyperLogLog estimates (about 2% error) of the
+    distinct levels of each effect and distinct pairs of levels of each pair of
+    effects among the complete rows (``rows``); ``python_bytes`` is the planned
+    largest numpy allocation of the strategy.
+    """
+
+    strategy: str
+    reason: str
+    rows: int = 0
+    levels: dict[str, int] | None = None
+    pairs: dict[str, int] | None = None
+    python_bytes: int = 0
+
+    def to_dict(self) -> dict:
+        return {"name": self.strategy, "reason": self.reason, "rows_measured": self.rows,
+                "levels_estimated": self.levels, "pairs_estimated": self.pairs,
+                "python_bytes_planned": self.python_bytes}
+
+
+def code_bytes(levels: int) -> int:
+    """Bytes per row of one effect's level code: int16 up to 32,767 levels, else int32."""
+    return 2 if levels <= 32_767 else 4
+
+
+def row_code_bytes(rows: int, levels: list[int], weighted: bool) -> int:
+    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.rowcodes`): the codes,
+    the sort order by the largest effect, and one sparse link table per other effect
+    (int32 indices) sharing one float64 weight array."""
+    k = len(levels)
+    fetch = sum(code_bytes(g) for g in levels) + (8 if weighted else 0)
+    return rows * (fetch + 8 + 4 * (k - 1) + 8)
+
+
+def plan_reduction(eng: Engine, spec: Spec, budget: int, forced: str | None = None) -> Plan:
+    """Choose the strategy from the panel (one aggregate pass over the key columns when k >= 2).
+
+    * pair tables: every pair of effects has at most one distinct pair of levels per
+      ``COMPRESSION`` rows and the pair tables fit ``budget``; no row is read while iterating;
+    * row codes: otherwise, when each row's level codes fit ``budget``;
+    * in-engine sweeps: neither fits; every sweep is a grouped pass in the engine.
+    ``forced`` (tests, benchmarks) overrides the choice but not the measurement.
+    """
     k = len(spec.fe)
-    return [(0,)] if k == 1 else list(combinations(range(k), 2))
+    if k == 1:
+        return Plan(ONE_WAY, "one effect: exact demeaning by level means")
+    pairs_of = list(combinations(range(k), 2))
+    keys = [", ".join(spec.key_aliases(d)) for d in range(k)]
+    estimates = [f"approx_count_distinct(hash({keys[d]})) AS levels_{d + 1}" for d in range(k)]
+    estimates += [f"approx_count_distinct(hash({keys[d]}, {keys[e]})) AS pairs_{d + 1}_{e + 1}" for d, e in pairs_of]
+    row = eng.one("measure the panel: distinct levels and pairs", render("measure_pairs", estimates=join(estimates)),
+                  raw=True)
+    n = int(row["n"] or 0)
+    if n == 0:
+        raise BigPanelError("no complete rows: every row misses a used value")
+    levels = [int(row[f"levels_{d + 1}"]) for d in range(k)]
+    pairs = {(d, e): min(int(row[f"pairs_{d + 1}_{e + 1}"]), n) for d, e in pairs_of}
+    worst = max(pairs, key=lambda de: pairs[de])
+    ratio = pairs[worst] / n
+    cells = CELL_BYTES * sum(pairs.values())
+    codes = row_code_bytes(n, levels, bool(spec.weights))
+    names = spec.fe_names
+    pair_name = f"{names[worst[0]]} x {names[worst[1]]}"
+    if ratio * COMPRESSION <= 1 and cells <= budget:
+        strategy, why, planned = PAIR_TABLES, f"pairs of levels compress: at most {ratio:.3f} cells per row ({pair_name})", cells
+    elif codes <= budget:
+        strategy, planned = ROW_CODES, codes
+        why = (f"{pair_name} has {ratio:.2f} distinct pairs per row, too many for pair tables; "
+               f"per-row level codes need {codes / 2**20:,.0f} MiB")
+    else:
+        strategy, planned = IN_ENGINE, 0
+        why = (f"neither the pair tables ({cells / 2**20:,.0f} MiB) nor per-row codes ({codes / 2**20:,.0f} MiB) "
+               f"fit the Python-side budget of {budget / 2**20:,.0f} MiB")
+    if forced is not None:
+        if forced not in STRATEGIES:
+            raise BigPanelError(f"unknown strategy {forced!r}: choose one of {', '.join(STRATEGIES)}")
+        strategy, why = forced, f"chosen by the caller (measured: {why})"
+    return Plan(strategy, why, n, {names[d]: levels[d] for d in range(k)},
+                {f"{names[d]} x {names[e]}": v for (d, e), v in pairs.items()}, planned)
+
+
+def _sets(spec: Spec, strategy: str) -> list[tuple[int, ...]]:
+    """Grouping sets of the reduction: pairs of effects for pair tables, single effects otherwise."""
+    k = len(spec.fe)
+    return list(combinations(range(k), 2)) if strategy == PAIR_TABLES else [(d,) for d in range(k)]
 
 
 def _set_keys(spec: Spec, dims: tuple[int, ...]) -> list[str]:
@@ -180,16 +288,17 @@ def _gid(spec: Spec, dims: tuple[int, ...]) -> int:
     return grouping_id(_set_keys(spec, tuple(range(len(spec.fe)))), _set_keys(spec, dims))
 
 
-def _home_set(spec: Spec, d: int) -> tuple[int, ...]:
+def _home_set(sets: list[tuple[int, ...]], d: int) -> tuple[int, ...]:
     """The first grouping set that holds effect ``d``: its levels are read from there."""
-    return next(s for s in _sets(spec) if d in s)
+    return next(s for s in sets if d in s)
 
 
-def _build_levels(eng: Engine, spec: Spec, min_count: int) -> None:
+def _build_levels(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], min_count: int) -> None:
     for d in range(len(spec.fe)):
         keys = join(spec.key_aliases(d), ", ")
         sql = render("levels", table=f"bp_lev_{d + 1}", keys=keys)
-        eng.execute(f"levels of {spec.fe_names[d]}", sql, {"gid": _gid(spec, _home_set(spec, d)), "min_count": min_count})
+        eng.execute(f"levels of {spec.fe_names[d]}", sql,
+                    {"gid": _gid(spec, _home_set(sets, d)), "min_count": min_count})
 
 
 def _single_levels(eng: Engine, spec: Spec) -> int:
@@ -199,46 +308,63 @@ def _single_levels(eng: Engine, spec: Spec) -> int:
     )
 
 
-def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, cell_budget: int) -> Reduction:
-    """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
+def products(spec: Spec) -> list[tuple[int, int]]:
+    """The off-diagonal products (i < j) of the value columns that one-way cells carry."""
+    m = len(spec.value_aliases)
+    return [(i, j) for i in range(m) for j in range(i + 1, m)]
 
-    Per cell: the row count and the sums and sums of squares of the shifted columns.
-    """
-    k = len(spec.fe)
-    all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
+
+def _cell_sums(spec: Spec, strategy: str) -> list[str]:
+    """Per cell: weight, sums and squares of the shifted columns, cluster ranges; with one
+    effect also every product of two shifted columns (the per-level co-moments)."""
     w = spec.w
+    t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
     sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]
-    sums += [f"sum({w}({v} - s.m{j})) AS s{j}" for j, v in enumerate(spec.value_aliases)]
-    sums += [f"sum({w}({v} - s.m{j}) * ({v} - s.m{j})) AS q{j}" for j, v in enumerate(spec.value_aliases)]
+    sums += [f"sum({w}{tj}) AS s{j}" for j, tj in enumerate(t)]
+    sums += [f"sum({w}{tj} * {tj}) AS q{j}" for j, tj in enumerate(t)]
+    if strategy == ONE_WAY:
+        sums += [f"sum({w}{t[i]} * {t[j]}) AS p{i}_{j}" for i, j in products(spec)]
     for c in spec.cluster_aliases:
         sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
-    sets = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
+    return sums
+
+
+def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, plan: Plan, budget: int) -> Reduction:
+    """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
+
+    The cells are the grouping sets of ``plan``'s strategy (see :func:`_sets`).
+    """
+    k = len(spec.fe)
+    sets = _sets(spec, plan.strategy)
+    all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
+    sums = join(_cell_sums(spec, plan.strategy))
+    groups = grouping_sets([_set_keys(spec, s) for s in sets])
     filters = ""
     rounds = 0
     n_complete = None
     while True:
         rounds += 1
-        sql = render("cells", keys=all_keys, sums=join(sums), filters=filters, sets=sets)
+        sql = render("cells", keys=all_keys, sums=sums, filters=filters, sets=groups)
         eng.execute(f"pass 2: group-level statistics (round {rounds})", sql, raw=True)
-        _build_levels(eng, spec, min_count=1)
+        _build_levels(eng, spec, sets, min_count=1)
         if n_complete is None:
             n_complete = int(eng.one("complete rows", render("level_rows", table="bp_lev_1"))["n"] or 0)
             if n_complete == 0:
                 raise BigPanelError("no complete rows: every row misses a used value")
         if not drop_singletons or _single_levels(eng, spec) == 0:
             break
-        _build_levels(eng, spec, min_count=2)
+        _build_levels(eng, spec, sets, min_count=2)
         if k == 1:
             break  # one effect: dropping a singleton level changes no other level
         if rounds >= MAX_SINGLETON_ROUNDS:
-            raise BigPanelError(f"singletons still left after {rounds} rounds; rerun with --keep-singletons")
+            raise BigPanelError(f"singletons still left after {rounds} rounds; rerun with --singletons keep")
         filters = "".join(
             f"\nJOIN bp_lev_{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
         )
-    return _fetch(eng, spec, n_complete, rounds, cell_budget)
+    return _fetch(eng, spec, sets, plan, n_complete, rounds, budget)
 
 
-def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
+def _level_arrays(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
     """Weights and row counts of effect d's levels, and for each cluster column whether d is nested in it."""
     tab = eng.arrow("level counts", render("level_table", columns="nw, n", table=f"bp_lev_{d + 1}"))
     weights = tab.column("nw").to_numpy().astype(float)
@@ -247,67 +373,82 @@ def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarr
     nested = []
     for c in spec.cluster_aliases:
         sql = render("nested", low=f"{c}_min", high=f"{c}_max", keys=keys, table=f"bp_lev_{d + 1}")
-        nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, _home_set(spec, d))})["nested"]))
+        nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, _home_set(sets, d))})["nested"]))
     return weights, rows, nested
 
 
-def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray]:
+def _level_sums(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], d: int) -> tuple[np.ndarray, np.ndarray]:
     """Effect d's per-level sums (levels x columns) and the columns' total sums of squares."""
     m = len(spec.value_aliases)
     sums = join([f"sum(c.s{j}) AS s{j}" for j in range(m)] + [f"sum(c.q{j}) AS q{j}" for j in range(m)], ", ")
     sql = render("level_sums", sums=sums, table=f"bp_lev_{d + 1}", keys=", ".join(spec.key_aliases(d)))
-    tab = eng.arrow("level sums", sql, {"gid": _gid(spec, _home_set(spec, d))})
+    tab = eng.arrow("level sums", sql, {"gid": _gid(spec, _home_set(sets, d))})
     rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
     return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
 
 
-def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, cell_budget: int) -> Reduction:
+def _pair_tables(eng: Engine, spec: Spec, sets: list[tuple[int, ...]],
+                 counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
+    """The sparse weight of every pair of levels of every pair of effects (codes and weights only)."""
+    cross: dict[tuple[int, int], sparse.csr_matrix] = {}
+    for d, e in sets:
+        sql = render(
+            "cell_stats",
+            codes=f"l{d + 1}.code AS c{d + 1}, l{e + 1}.code AS c{e + 1}",
+            sums="c.nw",
+            joins="\n".join(f"JOIN bp_lev_{a + 1} AS l{a + 1} USING ({', '.join(spec.key_aliases(a))})" for a in (d, e)),
+            order=f"c{d + 1}, c{e + 1}",
+        )
+        tab = eng.arrow("fetch pair tables", sql, {"gid": _gid(spec, (d, e))})
+        nw = tab.column("nw").to_numpy().astype(float)
+        code_d, code_e = (tab.column(f"c{a + 1}").to_numpy() for a in (d, e))
+        cross[(d, e)] = sparse.csr_matrix((nw, (code_d, code_e)), shape=(len(counts[d]), len(counts[e])))
+    return cross
+
+
+def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> tuple[list[np.ndarray], np.ndarray | None]:
+    """One pass: every sample row's level code of each effect (int16 or int32) and its weight.
+
+    The rows stream into preallocated arrays, so the peak is the arrays plus one batch.
+    """
+    k = len(levels)
+    kinds = ["SMALLINT" if code_bytes(g) == 2 else "INTEGER" for g in levels]
+    cols = [f"CAST(l{d + 1}.code AS {kinds[d]}) AS c{d + 1}" for d in range(k)]
+    cols += ["w"] if spec.weights else []
+    joins = "\n".join(f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k))
+    codes = [np.empty(n_obs, dtype=np.int16 if code_bytes(g) == 2 else np.int32) for g in levels]
+    weights = np.empty(n_obs) if spec.weights else None
+    at = 0
+    for batch in eng.stream("pass 3: level codes of every row", render("row_codes", codes=join(cols), joins=joins),
+                            raw=True):
+        size = batch.num_rows
+        if at + size > n_obs:
+            raise RuntimeError("the row-codes pass returned more rows than the levels hold")
+        for d in range(k):
+            codes[d][at:at + size] = batch.column(d).to_numpy()
+        if weights is not None:
+            weights[at:at + size] = batch.column(k).to_numpy()
+        at += size
+    if at != n_obs:
+        raise RuntimeError(f"the row-codes pass returned {at:,} rows, the levels hold {n_obs:,}")
+    return codes, weights
+
+
+def _fetch(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], plan: Plan, n_complete: int, rounds: int,
+           budget: int) -> Reduction:
     k = len(spec.fe)
-    m = len(spec.value_aliases)
-    counts, rows, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
+    counts, rows, nested = zip(*(_level_arrays(eng, spec, sets, d) for d in range(k)))
     for d in range(k):
         if len(counts[d]) == 0:
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
-    n_cells = int(eng.one("cell count", render("cell_count"))["n"])
-    if k >= 2 and n_cells * 8 * (2 * m + 3) > cell_budget:
-        sums = [_level_sums(eng, spec, d) for d in range(k)]
-        return Reduction(list(counts), list(rows), [s[0] for s in sums], None, list(nested), sums[0][1],
-                         n_complete, int(rows[0].sum()), rounds)
-    rhs: list[np.ndarray | None] = [None] * k
-    cross: dict[tuple[int, int], sparse.csr_matrix] = {}
-    for dims in _sets(spec):
-        codes = join([f"l{d + 1}.code AS c{d + 1}" for d in dims], ", ")
-        joins = "\n".join(
-            f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in dims
-        )
-        sql = render(
-            "cell_stats",
-            codes=codes,
-            sums=join(["c.nw"] + [f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", "),
-            joins=joins,
-            order=join([f"c{d + 1}" for d in dims], ", "),
-        )
-        tab = eng.arrow("fetch cells", sql, {"gid": _gid(spec, dims)})
-        code = {d: tab.column(f"c{d + 1}").to_numpy() for d in dims}
-        n = tab.column("nw").to_numpy().astype(float)
-        s = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
-        if dims == _sets(spec)[0]:
-            sumsq = np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
-        for d in dims:
-            if rhs[d] is None:
-                g = len(counts[d])
-                rhs[d] = np.column_stack([np.bincount(code[d], weights=s[:, j], minlength=g) for j in range(m)])
-        if len(dims) == 2:
-            d, e = dims
-            cross[dims] = sparse.csr_matrix((n, (code[d], code[e])), shape=(len(counts[d]), len(counts[e])))
-    return Reduction(
-        counts=list(counts),
-        rows=list(rows),
-        rhs=[r for r in rhs if r is not None],
-        cross=cross,
-        nested=list(nested),
-        sumsq=sumsq,
-        n_complete=n_complete,
-        n_obs=int(rows[0].sum()),
-        rounds=rounds,
-    )
+    strategy = plan.strategy
+    if strategy == PAIR_TABLES:
+        n_cells = int(eng.one("cell count", render("cell_count"))["n"])
+        if n_cells * CELL_BYTES > budget:
+            strategy = IN_ENGINE
+    sums = [_level_sums(eng, spec, sets, d) for d in range(k)]
+    n_obs = int(rows[0].sum())
+    cross = _pair_tables(eng, spec, sets, list(counts)) if strategy == PAIR_TABLES else None
+    codes = RowCodes(*fetch_codes(eng, spec, [len(c) for c in counts], n_obs)) if strategy == ROW_CODES else None
+    return Reduction(list(counts), list(rows), [s[0] for s in sums], cross, list(nested), sums[0][1],
+                     n_complete, n_obs, rounds, strategy, codes)

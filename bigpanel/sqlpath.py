@@ -1,4 +1,4 @@
-"""The DuckDB path: every step that touches rows is a SQL pass (see reduce and moments)."""
+"""The SQL path: every step that touches rows is a pass in the engine (see reduce and moments)."""
 
 from __future__ import annotations
 
@@ -6,27 +6,35 @@ import numpy as np
 import pyarrow as pa
 
 from .engine import Engine
-from .project import Projection, solve_effects
-from .sweeps import sweep_in_engine
 from .inference import ClusterTerm
-from .moments import Moments, create_tilde, cross_products, meat_cluster, meat_hc, store_effects
-from .reduce import Reduction, Start, create_views, incomplete, reduce_cells, start
+from .moments import Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, store_effects
+from .project import Projection, components, solve_effects
+from .reduce import (IN_ENGINE, ONE_WAY, ROW_CODES, Plan, Reduction, Start, create_views, incomplete, plan_reduction,
+                     reduce_cells, start)
+from .rowcodes import Links, build_links, solve_codes
+from .rowcodes import components as code_components
 from .spec import Spec
 from .sqltext import join, render
+from .sweeps import sweep_in_engine
+
+ROUNDING = 1e-14  # relative rounding of a level co-moment: plain sums, then one cancelling subtraction
+TRUSTED = 1e-10  # largest predicted relative error of the cross-products' solution taken from co-moments
 
 
 class SqlBackend:
-    """Runs the fit's row-level steps inside DuckDB through an :class:`Engine`."""
-
-    name = "duckdb"
+    """Runs the fit's row-level steps inside the engine through an :class:`Engine`."""
 
     def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
         self.eng = eng
         self.spec = spec
         self.source_kind = source_kind
         self.red: Reduction | None = None
+        self.plan: Plan | None = None
+        self.links: Links | None = None
         self.alpha: list[np.ndarray] = []
         self.demeaned_view = False
+        self.python_bytes = 0
+        self.moments_from = ""
         create_views(eng, spec, materialize=source_kind == "csv")
 
     @property
@@ -40,16 +48,46 @@ class SqlBackend:
     def start(self) -> Start:
         return start(self.eng, self.spec, self.source_kind)
 
-    def reduce(self, drop_singletons: bool, cell_budget: int) -> Reduction:
-        self.red = reduce_cells(self.eng, self.spec, drop_singletons, cell_budget)
+    def reduce(self, drop_singletons: bool, budget: int, strategy: str | None = None) -> Reduction:
+        self.plan = plan_reduction(self.eng, self.spec, budget, strategy)
+        self.red = reduce_cells(self.eng, self.spec, drop_singletons, self.plan, budget)
+        self._held(self.red)
         return self.red
 
+    def _held(self, *objs: object) -> None:
+        """Record the numpy bytes held now (the largest such figure is reported)."""
+        total = 0
+        for obj in objs:
+            if isinstance(obj, Reduction):
+                arrays = [*obj.counts, *obj.rows, *obj.rhs] + (obj.codes.codes if obj.codes else [])
+                total += sum(a.nbytes for a in arrays)
+                total += sum(m.data.nbytes + m.indices.nbytes + m.indptr.nbytes for m in (obj.cross or {}).values())
+            elif isinstance(obj, Links):
+                total += obj.nbytes
+        self.python_bytes = max(self.python_bytes, total)
+
     def project(self, red: Reduction, tol: float, max_iter: int) -> Projection:
-        """On the level tables in numpy, or in the engine when the pair tables stayed there."""
-        if red.cross is None:
+        """In numpy on the pair tables or the row codes, or in the engine (see reduce.plan_reduction)."""
+        if red.strategy == ROW_CODES:
+            self.links = build_links(red.codes, red.rows)
+            self._held(self.links, red)
+            return solve_codes(self.links, red, tol, max_iter)
+        if red.strategy == IN_ENGINE:
             keys = [self.level_keys(d) for d in range(len(red.counts))]
             return sweep_in_engine(self.eng, self.spec, red, keys, tol, max_iter)
         return solve_effects(red, tol=tol, max_iter=max_iter)
+
+    def components(self, red: Reduction) -> tuple[int | None, np.ndarray | None]:
+        """Connected components of effects 1 and 2 (None for one effect; taken as 1 in the engine)."""
+        if len(red.counts) < 2:
+            return None, None
+        if red.strategy == IN_ENGINE:
+            return 1, None  # conservative: P may count C - 1 parameters too many
+        if red.strategy == ROW_CODES:
+            found = code_components(self.links, [len(c) for c in red.counts])
+            self.links = None  # the link tables are not needed past this point
+            return found
+        return components(red)
 
     def incomplete(self) -> dict[str, int]:
         return incomplete(self.eng, self.spec)
@@ -61,8 +99,35 @@ class SqlBackend:
             create_tilde(self.eng, self.spec)
             self.demeaned_view = True
 
+    def _from_levels(self) -> Moments | None:
+        """One effect: the cross-products from the level co-moments of the reduction, when every
+        cluster column nests the effect and they are accurate enough.
+
+        A co-moment sum w t_i t_j - s_i s_j / n_w cancels the share t't / E'E of each column's
+        square sum, and solving with the result magnifies that by the condition number of the
+        scaled E'E (which is large when regressors are nearly collinear, or the fit nearly
+        perfect). When ``ROUNDING`` times both exceeds ``TRUSTED``, the compensated row pass runs.
+        """
+        red, spec = self.red, self.spec
+        if red is None or red.strategy != ONE_WAY or not all(red.nested[0]):
+            return None
+        mom = level_cross_products(self.eng, spec, len(spec.value_aliases))
+        diag = np.diag(mom.q)
+        if np.any(diag <= 0):
+            return None
+        scale = np.sqrt(diag)
+        eig = np.linalg.eigvalsh(mom.q / np.outer(scale, scale))
+        if eig[0] <= 0 or ROUNDING * float(np.max(red.sumsq / diag)) * eig[-1] / eig[0] > TRUSTED:
+            return None
+        return mom
+
     def moments(self, alpha: list[np.ndarray]) -> Moments:
         self.alpha = alpha
+        mom = self._from_levels()
+        if mom is not None:
+            self.moments_from = "level co-moments (no row pass)"
+            return mom
+        self.moments_from = "demeaned rows"
         self._demeaned()
         return cross_products(self.eng, self.spec, len(self.spec.value_aliases))
 
@@ -71,7 +136,6 @@ class SqlBackend:
         return meat_hc(self.eng, self.spec, keep, beta)
 
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
-        self._demeaned()
         return meat_cluster(self.eng, self.spec, keep, beta)
 
     def level_keys(self, d: int) -> pa.Table:

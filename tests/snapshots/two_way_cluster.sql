@@ -34,6 +34,17 @@ SELECT CAST($m0 AS DOUBLE) AS m0,
        CAST($m1 AS DOUBLE) AS m1
 
 ;
+-- Before a multi-way reduction: the complete rows and HyperLogLog estimates of
+-- the distinct levels of every effect and of the distinct pairs of levels of
+-- every pair of effects, from the key columns alone. Their ratio to the rows
+-- says whether pair tables would compress the panel.
+SELECT count(*) AS n,
+       approx_count_distinct(hash(f1_1)) AS levels_1,
+       approx_count_distinct(hash(f2_1)) AS levels_2,
+       approx_count_distinct(hash(f1_1, f2_1)) AS pairs_1_2
+FROM bp_sample
+
+;
 -- Pass 2: the group-level sufficient statistics. One scan groups the sample by
 -- each effect (one effect) or by each pair of effects (two or more): row count
 -- and the sums and squares of every shifted value column per cell, and each
@@ -50,7 +61,7 @@ SELECT f1_1, f2_1,
        min(cl1) AS cl1_min,
        max(cl1) AS cl1_max
 FROM bp_sample CROSS JOIN bp_shift AS s
-GROUP BY GROUPING SETS ((f1_1, f2_1))
+GROUP BY GROUPING SETS ((f1_1), (f2_1))
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
@@ -117,17 +128,34 @@ FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
       GROUP BY f2_1) AS lv
 
 ;
--- How many cells the reduction produced (all grouping sets).
-SELECT count(*) AS n FROM bp_cells
+-- Per level of one effect (in code order): the weighted sums and squares of the shifted
+-- columns, from the cells of a grouping set that holds the effect.
+SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
+FROM bp_cells AS c
+JOIN bp_lev_1 AS l USING (f1_1)
+WHERE c.gid = $gid
+GROUP BY l.code
+ORDER BY l.code
 
 ;
--- One grouping set of the cells with integer level codes, for numpy.
-SELECT l1.code AS c1, l2.code AS c2, c.nw, c.s0, c.s1, c.q0, c.q1
+-- Per level of one effect (in code order): the weighted sums and squares of the shifted
+-- columns, from the cells of a grouping set that holds the effect.
+SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
 FROM bp_cells AS c
+JOIN bp_lev_2 AS l USING (f2_1)
+WHERE c.gid = $gid
+GROUP BY l.code
+ORDER BY l.code
+
+;
+-- The row-codes strategy: every sample row's integer level code of each effect
+-- (and its weight), nothing else; the projections iterate on these in numpy.
+-- The inner joins keep exactly the sample rows whose levels survived singleton removal.
+SELECT CAST(l1.code AS SMALLINT) AS c1,
+       CAST(l2.code AS SMALLINT) AS c2
+FROM bp_sample
 JOIN bp_lev_1 AS l1 USING (f1_1)
 JOIN bp_lev_2 AS l2 USING (f2_1)
-WHERE c.gid = $gid
-ORDER BY c1, c2
 
 ;
 -- The levels of one effect in code order (keys or row counts).

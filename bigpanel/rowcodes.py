@@ -1,0 +1,176 @@
+"""Multi-way effects from per-row level codes, with the largest effect eliminated exactly.
+
+When pairs of levels barely compress (a unit x period panel with one row per
+cell), the normal equations D'WD a = D'Wt of the effects are solved from each
+row's integer level codes instead of pair tables. Let B be the effect with the
+most levels, s the others, n_B the (weighted) row counts of B's levels,
+C_e = D_B'W D_e the B x e table of (weighted) rows per pair of levels, and
+P_ef = D_e'W D_f for two other effects. Then, exactly,
+
+    a_B = (D_B'Wt - sum_e C_e a_e) / n_B
+    S a_s = r_s,  S = diag(n_s) + [P_ef] - C' diag(1/n_B) C,  r_s = D_s'Wt - C' (D_B'Wt / n_B),
+
+where S is the Schur complement of B's block: the normal equations of the
+other effects once B is partialled out. Conjugate gradients preconditioned by
+the diagonal of S (Jacobi) solve it for every value column at once, with the
+stopping rule of :mod:`bigpanel.project` applied to the columns with B
+partialled out (||(I - P_B) t||^2 = t'Wt - sum_l (D_B'Wt)_l^2 / n_B,l). Each
+iteration is two sparse products whose nonzeros are the rows; nothing is read
+from the engine while iterating.
+
+C_e is built without a hash table: the rows sorted by their B code (a stable
+radix sort) are the nonzeros of C_e in row order, so its row pointers are the
+cumulative row counts of B's levels and its column indices are the rows'
+e-codes. Memory: 8 bytes per row for the sort order while building, then 4
+bytes per row per other effect plus one float64 weight per row shared by every
+C_e (duplicate cells are kept as separate nonzeros; a product adds them).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import sparse
+from scipy.sparse.csgraph import connected_components
+
+from .project import Projection, conjugate_gradients
+from .reduce import Reduction, RowCodes
+
+DENSE_PAIRS = 1 << 26  # a pair table of two small effects is counted densely up to this many cells
+
+
+@dataclass(frozen=True)
+class Links:
+    """The sparse tables of the Schur system: ``link[e]`` = C_e, ``pairs[(e, f)]`` = P_ef (e < f)."""
+
+    big: int
+    link: dict[int, sparse.csr_matrix]
+    pairs: dict[tuple[int, int], sparse.csr_matrix]
+
+    @property
+    def nbytes(self) -> int:
+        mats = list(self.link.values()) + list(self.pairs.values())
+        shared = {id(m.data): m.data.nbytes for m in mats}
+        return sum(m.indices.nbytes + m.indptr.nbytes for m in mats) + sum(shared.values())
+
+
+def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb: int) -> sparse.csr_matrix:
+    """P = D_a'W D_b for two effects given by per-row codes (dense counting when small)."""
+    if ga * gb <= DENSE_PAIRS:
+        flat = np.bincount(a.astype(np.int64) * gb + b, weights=w, minlength=ga * gb)
+        return sparse.csr_matrix(flat.reshape(ga, gb))
+    data = np.ones(len(a)) if w is None else w
+    return sparse.csr_matrix((data, (a.astype(np.int32), b.astype(np.int32))), shape=(ga, gb))
+
+
+def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
+    """The tables of the module docstring from the row codes; empties ``rc.codes`` on the way."""
+    sizes = [len(r) for r in rows]
+    big = int(np.argmax(sizes))
+    small = [e for e in range(len(sizes)) if e != big]
+    pairs = {(e, f): _pair_table(rc.codes[e], rc.codes[f], rc.weights, sizes[e], sizes[f])
+             for i, e in enumerate(small) for f in small[i + 1:]}
+    n = len(rc.codes[big])
+    index = np.int32 if n < np.iinfo(np.int32).max else np.int64
+    order = np.argsort(rc.codes[big], kind="stable")
+    indptr = np.concatenate([[0], np.cumsum(rows[big])]).astype(index)
+    if indptr[-1] != n:
+        raise RuntimeError(f"row codes of {n:,} rows but the levels hold {indptr[-1]:,}")
+    data = np.ones(n) if rc.weights is None else rc.weights[order]
+    link = {}
+    for e in small:
+        link[e] = sparse.csr_matrix((data, rc.codes[e][order].astype(index), indptr), shape=(sizes[big], sizes[e]))
+        rc.codes[e] = None  # type: ignore[call-overload]
+    rc.codes.clear()
+    rc.weights = None
+    return Links(big, link, pairs)
+
+
+class _Schur:
+    """The operator S of the module docstring on the stacked other effects, and its diagonal."""
+
+    def __init__(self, links: Links, counts: list[np.ndarray]) -> None:
+        self.links = links
+        self.small = sorted(links.link)
+        self.nb = counts[links.big]
+        self.n = [counts[e] for e in self.small]
+        self.offsets = np.concatenate([[0], np.cumsum([len(c) for c in self.n])])
+        inv = 1.0 / self.nb
+        diag = []
+        for e, n_e in zip(self.small, self.n):
+            c = links.link[e]
+            squared = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
+            d = n_e - squared.T @ inv
+            diag.append(np.where(d > 1e-9 * n_e, d, n_e))  # a level absorbed by B: any positive scale
+        self.diag = np.concatenate(diag)
+
+    def split(self, vec: np.ndarray) -> list[np.ndarray]:
+        return [vec[self.offsets[i] : self.offsets[i + 1]] for i in range(len(self.small))]
+
+    def pair(self, e: int, f: int) -> sparse.csr_matrix:
+        return self.links.pairs[(e, f)] if e < f else self.links.pairs[(f, e)].T
+
+    def matvec(self, vec: np.ndarray) -> np.ndarray:
+        parts = self.split(vec)
+        on_big = sum(self.links.link[e] @ p for e, p in zip(self.small, parts)) / self.nb[:, None]
+        out = []
+        for i, e in enumerate(self.small):
+            acc = self.n[i][:, None] * parts[i] - self.links.link[e].T @ on_big
+            for j, f in enumerate(self.small):
+                if f != e:
+                    acc += self.pair(e, f) @ parts[j]
+            out.append(acc)
+        return np.vstack(out)
+
+    def precondition(self, res: np.ndarray) -> np.ndarray:
+        return res / self.diag[:, None]
+
+
+def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Projection:
+    """Effects of every dimension for every value column (see the module docstring)."""
+    op = _Schur(links, red.counts)
+    big = links.big
+    rhs_big = red.rhs[big]
+    on_big = rhs_big / op.nb[:, None]
+    b = np.vstack([red.rhs[e] - links.link[e].T @ on_big for e in op.small])
+    total = red.sumsq - np.einsum("ij,ij->j", rhs_big, on_big)
+    x, it, change, converged = conjugate_gradients(op.matvec, op.precondition, b, total, tol, max_iter)
+    alpha: list[np.ndarray] = [np.empty(0)] * len(red.counts)
+    for e, part in zip(op.small, op.split(x)):
+        alpha[e] = part
+    alpha[big] = (rhs_big - sum(links.link[e] @ alpha[e] for e in op.small)) / op.nb[:, None]
+    return Projection(alpha, iterations=it, change=change, converged=converged)
+
+
+def _chain_edges(c: sparse.csr_matrix) -> tuple[np.ndarray, np.ndarray]:
+    """Edges between consecutive column indices inside each row of ``c``: they connect the
+    column levels exactly as the row levels do."""
+    keep = np.ones(max(len(c.indices) - 1, 0), dtype=bool)
+    starts = c.indptr[1:-1]
+    keep[starts[(starts > 0) & (starts < len(c.indices))] - 1] = False
+    return c.indices[:-1][keep], c.indices[1:][keep]
+
+
+def components(links: Links, sizes: list[int]) -> tuple[int, np.ndarray]:
+    """Connected components of the graph linking levels of effects 1 and 2 that share a row.
+
+    Returns their number and a label per level of effect 1 then effect 2.
+    """
+    if links.big in (0, 1):
+        other = 1 - links.big
+        c = links.link[other]
+        a, b = _chain_edges(c)
+        g = sizes[other]
+        if g * g <= DENSE_PAIRS:
+            a, b = np.divmod(np.flatnonzero(np.bincount(a.astype(np.int64) * g + b, minlength=g * g)), g)
+        graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+        n_comp, lab_other = connected_components(graph, directed=False)
+        lab_big = lab_other[c.indices[c.indptr[:-1]]]
+        labels = (lab_big, lab_other) if links.big == 0 else (lab_other, lab_big)
+        return int(n_comp), np.concatenate(labels)
+    link = links.pairs[(0, 1)]
+    n1, n2 = link.shape
+    graph = sparse.bmat([[None, link], [link.T, None]], format="csr")
+    n_comp, labels = connected_components(graph, directed=False)
+    return int(n_comp), labels
