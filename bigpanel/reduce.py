@@ -80,13 +80,16 @@ class Reduction:
 
 @dataclass
 class RowCodes:
-    """Each sample row's level code per effect (int16 or int32) and its weight (None: unweighted).
+    """The sample rows sorted by the level code of effect ``big`` (the one with most levels):
+    ``codes[d]`` holds every row's level code of each other effect d (int16 or int32), and
+    ``weights`` the rows' weights (None: unweighted).
 
-    Mutable on purpose: :mod:`bigpanel.rowcodes` empties ``codes`` once it has built
-    its link tables, so that the row arrays do not outlive their use.
+    Mutable on purpose: :mod:`bigpanel.rowcodes` empties it once it has built its
+    link tables, so that the row arrays do not outlive their use.
     """
 
-    codes: list[np.ndarray]
+    big: int
+    codes: dict[int, np.ndarray]
     weights: np.ndarray | None
 
 
@@ -406,32 +409,35 @@ def _pair_tables(eng: Engine, spec: Spec, sets: list[tuple[int, ...]],
     return cross
 
 
-def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> tuple[list[np.ndarray], np.ndarray | None]:
-    """One pass: every sample row's level code of each effect (int16 or int32) and its weight.
+def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
+    """One pass: every sample row's level code of each effect but the largest (int16 or int32)
+    and its weight, ordered by the largest effect's code (the engine sorts, and spills if it
+    must), so that the rows are already grouped as :mod:`bigpanel.rowcodes` needs them.
 
-    The rows stream into preallocated arrays, so the peak is the arrays plus one batch.
+    The rows stream into preallocated arrays: the peak is the arrays plus one batch.
     """
-    k = len(levels)
-    kinds = ["SMALLINT" if code_bytes(g) == 2 else "INTEGER" for g in levels]
-    cols = [f"CAST(l{d + 1}.code AS {kinds[d]}) AS c{d + 1}" for d in range(k)]
-    cols += ["w"] if spec.weights else []
-    joins = "\n".join(f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k))
-    codes = [np.empty(n_obs, dtype=np.int16 if code_bytes(g) == 2 else np.int32) for g in levels]
+    big = int(np.argmax(levels))
+    small = [d for d in range(len(levels)) if d != big]
+    kinds = {d: ("SMALLINT", np.int16) if code_bytes(levels[d]) == 2 else ("INTEGER", np.int32) for d in small}
+    cols = [f"CAST(l{d + 1}.code AS {kinds[d][0]}) AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
+    joins = "\n".join(f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})"
+                      for d in range(len(levels)))
+    codes = {d: np.empty(n_obs, dtype=kinds[d][1]) for d in small}
     weights = np.empty(n_obs) if spec.weights else None
+    sql = render("row_codes", codes=join(cols), joins=joins, order=f"l{big + 1}.code")
     at = 0
-    for batch in eng.stream("pass 3: level codes of every row", render("row_codes", codes=join(cols), joins=joins),
-                            raw=True):
+    for batch in eng.stream("pass 3: level codes of every row", sql, raw=True):
         size = batch.num_rows
         if at + size > n_obs:
             raise RuntimeError("the row-codes pass returned more rows than the levels hold")
-        for d in range(k):
-            codes[d][at:at + size] = batch.column(d).to_numpy()
+        for j, d in enumerate(small):
+            codes[d][at:at + size] = batch.column(j).to_numpy()
         if weights is not None:
-            weights[at:at + size] = batch.column(k).to_numpy()
+            weights[at:at + size] = batch.column(len(small)).to_numpy()
         at += size
     if at != n_obs:
         raise RuntimeError(f"the row-codes pass returned {at:,} rows, the levels hold {n_obs:,}")
-    return codes, weights
+    return RowCodes(big, codes, weights)
 
 
 def _fetch(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], plan: Plan, n_complete: int, rounds: int,
@@ -449,6 +455,6 @@ def _fetch(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], plan: Plan, n_c
     sums = [_level_sums(eng, spec, sets, d) for d in range(k)]
     n_obs = int(rows[0].sum())
     cross = _pair_tables(eng, spec, sets, list(counts)) if strategy == PAIR_TABLES else None
-    codes = RowCodes(*fetch_codes(eng, spec, [len(c) for c in counts], n_obs)) if strategy == ROW_CODES else None
+    codes = fetch_codes(eng, spec, [len(c) for c in counts], n_obs) if strategy == ROW_CODES else None
     return Reduction(list(counts), list(rows), [s[0] for s in sums], cross, list(nested), sums[0][1],
                      n_complete, n_obs, rounds, strategy, codes)

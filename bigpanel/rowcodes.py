@@ -11,19 +11,22 @@ P_ef = D_e'W D_f for two other effects. Then, exactly,
     S a_s = r_s,  S = diag(n_s) + [P_ef] - C' diag(1/n_B) C,  r_s = D_s'Wt - C' (D_B'Wt / n_B),
 
 where S is the Schur complement of B's block: the normal equations of the
-other effects once B is partialled out. Conjugate gradients preconditioned by
+other effects once B is partialled out. S is singular (a constant added to an
+effect's levels in one connected component of its graph with B is absorbed by
+B), so one level per such component is held at zero; without that, rounding in
+r_s would let the solution drift along the null space and lose digits. Conjugate gradients preconditioned by
 the diagonal of S (Jacobi) solve it for every value column at once, with the
 stopping rule of :mod:`bigpanel.project` applied to the columns with B
 partialled out (||(I - P_B) t||^2 = t'Wt - sum_l (D_B'Wt)_l^2 / n_B,l). Each
 iteration is two sparse products whose nonzeros are the rows; nothing is read
 from the engine while iterating.
 
-C_e is built without a hash table: the rows sorted by their B code (a stable
-radix sort) are the nonzeros of C_e in row order, so its row pointers are the
-cumulative row counts of B's levels and its column indices are the rows'
-e-codes. Memory: 8 bytes per row for the sort order while building, then 4
-bytes per row per other effect plus one float64 weight per row shared by every
-C_e (duplicate cells are kept as separate nonzeros; a product adds them).
+C_e is built without a hash table: the engine returns the rows sorted by
+their B code, so they are the nonzeros of C_e in row order, its row pointers
+are the cumulative row counts of B's levels and its column indices are the
+rows' e-codes. Memory: 4 bytes per row per other effect plus one float64
+weight per row shared by every C_e (duplicate cells are kept as separate
+nonzeros; a product adds them), and the int16/int32 codes while building.
 """
 
 from __future__ import annotations
@@ -42,11 +45,14 @@ DENSE_PAIRS = 1 << 26  # a pair table of two small effects is counted densely up
 
 @dataclass(frozen=True)
 class Links:
-    """The sparse tables of the Schur system: ``link[e]`` = C_e, ``pairs[(e, f)]`` = P_ef (e < f)."""
+    """The sparse tables of the Schur system: ``link[e]`` = C_e, ``pairs[(e, f)]`` = P_ef (e < f),
+    and for every other effect e the connected components of the graph linking its levels to
+    B's (``groups[e]``: their number and a label per level of e)."""
 
     big: int
     link: dict[int, sparse.csr_matrix]
     pairs: dict[tuple[int, int], sparse.csr_matrix]
+    groups: dict[int, tuple[int, np.ndarray]]
 
     @property
     def nbytes(self) -> int:
@@ -65,26 +71,20 @@ def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb:
 
 
 def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
-    """The tables of the module docstring from the row codes; empties ``rc.codes`` on the way."""
+    """The tables of the module docstring from the row codes; empties ``rc`` on the way."""
     sizes = [len(r) for r in rows]
-    big = int(np.argmax(sizes))
-    small = [e for e in range(len(sizes)) if e != big]
+    big, small = rc.big, sorted(rc.codes)
     pairs = {(e, f): _pair_table(rc.codes[e], rc.codes[f], rc.weights, sizes[e], sizes[f])
              for i, e in enumerate(small) for f in small[i + 1:]}
-    n = len(rc.codes[big])
+    n = int(rows[big].sum())
     index = np.int32 if n < np.iinfo(np.int32).max else np.int64
-    order = np.argsort(rc.codes[big], kind="stable")
     indptr = np.concatenate([[0], np.cumsum(rows[big])]).astype(index)
-    if indptr[-1] != n:
-        raise RuntimeError(f"row codes of {n:,} rows but the levels hold {indptr[-1]:,}")
-    data = np.ones(n) if rc.weights is None else rc.weights[order]
+    data = np.ones(n) if rc.weights is None else rc.weights
     link = {}
     for e in small:
-        link[e] = sparse.csr_matrix((data, rc.codes[e][order].astype(index), indptr), shape=(sizes[big], sizes[e]))
-        rc.codes[e] = None  # type: ignore[call-overload]
-    rc.codes.clear()
+        link[e] = sparse.csr_matrix((data, rc.codes.pop(e).astype(index), indptr), shape=(sizes[big], sizes[e]))
     rc.weights = None
-    return Links(big, link, pairs)
+    return Links(big, link, pairs, {e: _linked_groups(link[e]) for e in small})
 
 
 class _Schur:
@@ -97,13 +97,18 @@ class _Schur:
         self.n = [counts[e] for e in self.small]
         self.offsets = np.concatenate([[0], np.cumsum([len(c) for c in self.n])])
         inv = 1.0 / self.nb
-        diag = []
+        diag, free = [], []
         for e, n_e in zip(self.small, self.n):
             c = links.link[e]
             squared = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
             d = n_e - squared.T @ inv
             diag.append(np.where(d > 1e-9 * n_e, d, n_e))  # a level absorbed by B: any positive scale
+            n_groups, labels = links.groups[e]
+            pinned = np.zeros(len(n_e), dtype=bool)
+            pinned[np.unique(labels, return_index=True)[1]] = True
+            free.append(~pinned)
         self.diag = np.concatenate(diag)
+        self.free = np.concatenate(free)[:, None]
 
     def split(self, vec: np.ndarray) -> list[np.ndarray]:
         return [vec[self.offsets[i] : self.offsets[i + 1]] for i in range(len(self.small))]
@@ -112,7 +117,7 @@ class _Schur:
         return self.links.pairs[(e, f)] if e < f else self.links.pairs[(f, e)].T
 
     def matvec(self, vec: np.ndarray) -> np.ndarray:
-        parts = self.split(vec)
+        parts = self.split(vec * self.free)
         on_big = sum(self.links.link[e] @ p for e, p in zip(self.small, parts)) / self.nb[:, None]
         out = []
         for i, e in enumerate(self.small):
@@ -121,10 +126,10 @@ class _Schur:
                 if f != e:
                     acc += self.pair(e, f) @ parts[j]
             out.append(acc)
-        return np.vstack(out)
+        return np.vstack(out) * self.free
 
     def precondition(self, res: np.ndarray) -> np.ndarray:
-        return res / self.diag[:, None]
+        return res * self.free / self.diag[:, None]
 
 
 def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Projection:
@@ -133,7 +138,7 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
     big = links.big
     rhs_big = red.rhs[big]
     on_big = rhs_big / op.nb[:, None]
-    b = np.vstack([red.rhs[e] - links.link[e].T @ on_big for e in op.small])
+    b = np.vstack([red.rhs[e] - links.link[e].T @ on_big for e in op.small]) * op.free
     total = red.sumsq - np.einsum("ij,ij->j", rhs_big, on_big)
     x, it, change, converged = conjugate_gradients(op.matvec, op.precondition, b, total, tol, max_iter)
     alpha: list[np.ndarray] = [np.empty(0)] * len(red.counts)
@@ -143,13 +148,19 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
     return Projection(alpha, iterations=it, change=change, converged=converged)
 
 
-def _chain_edges(c: sparse.csr_matrix) -> tuple[np.ndarray, np.ndarray]:
-    """Edges between consecutive column indices inside each row of ``c``: they connect the
-    column levels exactly as the row levels do."""
+def _linked_groups(c: sparse.csr_matrix) -> tuple[int, np.ndarray]:
+    """Connected components of the column levels of ``c`` when two are linked by sharing a row
+    level: edges between consecutive column indices inside each row connect them exactly so."""
     keep = np.ones(max(len(c.indices) - 1, 0), dtype=bool)
     starts = c.indptr[1:-1]
     keep[starts[(starts > 0) & (starts < len(c.indices))] - 1] = False
-    return c.indices[:-1][keep], c.indices[1:][keep]
+    a, b = c.indices[:-1][keep], c.indices[1:][keep]
+    g = c.shape[1]
+    if g * g <= DENSE_PAIRS:
+        a, b = np.divmod(np.flatnonzero(np.bincount(a.astype(np.int64) * g + b, minlength=g * g)), g)
+    graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+    n_comp, labels = connected_components(graph, directed=False)
+    return int(n_comp), labels
 
 
 def components(links: Links, sizes: list[int]) -> tuple[int, np.ndarray]:
@@ -160,17 +171,11 @@ def components(links: Links, sizes: list[int]) -> tuple[int, np.ndarray]:
     if links.big in (0, 1):
         other = 1 - links.big
         c = links.link[other]
-        a, b = _chain_edges(c)
-        g = sizes[other]
-        if g * g <= DENSE_PAIRS:
-            a, b = np.divmod(np.flatnonzero(np.bincount(a.astype(np.int64) * g + b, minlength=g * g)), g)
-        graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
-        n_comp, lab_other = connected_components(graph, directed=False)
+        n_comp, lab_other = links.groups[other]
         lab_big = lab_other[c.indices[c.indptr[:-1]]]
         labels = (lab_big, lab_other) if links.big == 0 else (lab_other, lab_big)
-        return int(n_comp), np.concatenate(labels)
+        return n_comp, np.concatenate(labels)
     link = links.pairs[(0, 1)]
-    n1, n2 = link.shape
     graph = sparse.bmat([[None, link], [link.T, None]], format="csr")
     n_comp, labels = connected_components(graph, directed=False)
     return int(n_comp), labels

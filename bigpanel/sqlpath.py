@@ -59,7 +59,7 @@ class SqlBackend:
         total = 0
         for obj in objs:
             if isinstance(obj, Reduction):
-                arrays = [*obj.counts, *obj.rows, *obj.rhs] + (obj.codes.codes if obj.codes else [])
+                arrays = [*obj.counts, *obj.rows, *obj.rhs] + (list(obj.codes.codes.values()) if obj.codes else [])
                 total += sum(a.nbytes for a in arrays)
                 total += sum(m.data.nbytes + m.indices.nbytes + m.indptr.nbytes for m in (obj.cross or {}).values())
             elif isinstance(obj, Links):

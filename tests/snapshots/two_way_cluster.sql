@@ -149,13 +149,14 @@ ORDER BY l.code
 
 ;
 -- The row-codes strategy: every sample row's integer level code of each effect
--- (and its weight), nothing else; the projections iterate on these in numpy.
--- The inner joins keep exactly the sample rows whose levels survived singleton removal.
-SELECT CAST(l1.code AS SMALLINT) AS c1,
-       CAST(l2.code AS SMALLINT) AS c2
+-- but the largest (and its weight), nothing else, ordered by the largest effect's
+-- code; the projections iterate on these in numpy. The inner joins keep exactly
+-- the sample rows whose levels survived singleton removal.
+SELECT CAST(l2.code AS SMALLINT) AS c2
 FROM bp_sample
 JOIN bp_lev_1 AS l1 USING (f1_1)
 JOIN bp_lev_2 AS l2 USING (f2_1)
+ORDER BY l1.code
 
 ;
 -- The levels of one effect in code order (keys or row counts).
