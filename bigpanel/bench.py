@@ -9,7 +9,7 @@ from __future__ import annotations
 import multiprocessing as mp
 import resource
 import time
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 from rich import box
@@ -50,10 +50,10 @@ def _fit(model: dict[str, Any], engine: str) -> dict[str, Any]:
     return fit(**model, engine=engine).to_dict()
 
 
-def _child(conn: Any, what: str, model: dict[str, Any]) -> None:
+def _child(conn: Any, what: str, model: dict[str, Any], runner: Callable[[dict], dict] | None) -> None:
     try:
         start = time.perf_counter()
-        out = _scan_floor(model) if what == "scan" else _fit(model, what)
+        out = runner(model) if runner is not None else _scan_floor(model) if what == "scan" else _fit(model, what)
         seconds = time.perf_counter() - start
         peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
         conn.send({"ok": True, "seconds": seconds, "peak_mb": peak, "result": out})
@@ -65,11 +65,12 @@ def _child(conn: Any, what: str, model: dict[str, Any]) -> None:
         conn.close()
 
 
-def measure(what: str, model: dict[str, Any]) -> dict[str, Any]:
-    """Run ``what`` ("scan", "duckdb" or "memory") in a fresh process; time, peak memory, result."""
+def measure(what: str, model: dict[str, Any], runner: Callable[[dict], dict] | None = None) -> dict[str, Any]:
+    """Run ``what`` ("scan", "duckdb" or "memory", or ``runner(model)`` when given: an importable
+    function) in a fresh process; time, peak memory, result."""
     ctx = mp.get_context("spawn")
     parent, child = ctx.Pipe(duplex=False)
-    proc = ctx.Process(target=_child, args=(child, what, model))
+    proc = ctx.Process(target=_child, args=(child, what, model, runner))
     proc.start()
     child.close()
     try:

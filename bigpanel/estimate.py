@@ -148,7 +148,7 @@ def fit(
         n_comp, labels = back.components(red)
         eng.timings["projections (numpy)"] = perf_counter() - t0
         absorbed = count_absorbed([len(c) for c in red.counts], n_comp, red.nested)
-        mom = back.moments(proj.alpha)
+        mom = back.moments(proj)
         n = mom.n
         sum_t = red.rhs[0].sum(axis=0)
         total_weight = float(red.counts[0].sum())

@@ -170,9 +170,9 @@ class MemoryBackend:
         strategy = ONE_WAY if k == 1 else PAIR_TABLES
         return Reduction(counts, rows, rhs, cross, nested, sumsq, len(keep), len(self.t), rounds, strategy)
 
-    def moments(self, alpha: list[np.ndarray]) -> Moments:
+    def moments(self, proj: Projection) -> Moments:
         e = self.t.copy()
-        for c, a in zip(self.codes, alpha):
+        for c, a in zip(self.codes, proj.alpha):
             e -= a[c]
         self.e = e
         return Moments(len(e), (e * self.w[:, None]).T @ e)

@@ -199,7 +199,8 @@ class Plan:
     ``levels`` and ``pairs`` are HyperLogLog estimates (about 2% error) of the
     distinct levels of each effect and distinct pairs of levels of each pair of
     effects among the complete rows (``rows``); ``python_bytes`` is the planned
-    largest numpy allocation of the strategy.
+    largest numpy allocation of the strategy; ``products`` the (weighted) sums of
+    products of the shifted value columns over the same rows, t'Wt.
     """
 
     strategy: str
@@ -208,6 +209,7 @@ class Plan:
     levels: dict[str, int] | None = None
     pairs: dict[str, int] | None = None
     python_bytes: int = 0
+    products: np.ndarray | None = None
 
     def to_dict(self) -> dict:
         return {"name": self.strategy, "reason": self.reason, "rows_measured": self.rows,
@@ -245,6 +247,9 @@ def plan_reduction(eng: Engine, spec: Spec, budget: int, forced: str | None = No
     keys = [", ".join(spec.key_aliases(d)) for d in range(k)]
     estimates = [f"approx_count_distinct(hash({keys[d]})) AS levels_{d + 1}" for d in range(k)]
     estimates += [f"approx_count_distinct(hash({keys[d]}, {keys[e]})) AS pairs_{d + 1}_{e + 1}" for d, e in pairs_of]
+    t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
+    m = len(t)
+    estimates += [f"fsum({spec.w}{t[i]} * {t[j]}) AS t_{i}_{j}" for i in range(m) for j in range(i, m)]
     row = eng.one("measure the panel: distinct levels and pairs", render("measure_pairs", estimates=join(estimates)),
                   raw=True)
     n = int(row["n"] or 0)
@@ -272,8 +277,9 @@ def plan_reduction(eng: Engine, spec: Spec, budget: int, forced: str | None = No
         if forced not in STRATEGIES:
             raise BigPanelError(f"unknown strategy {forced!r}: choose one of {', '.join(STRATEGIES)}")
         strategy, why = forced, f"chosen by the caller (measured: {why})"
+    products = np.array([[row[f"t_{min(i, j)}_{max(i, j)}"] for j in range(m)] for i in range(m)], dtype=float)
     return Plan(strategy, why, n, {names[d]: levels[d] for d in range(k)},
-                {f"{names[d]} x {names[e]}": v for (d, e), v in pairs.items()}, planned)
+                {f"{names[d]} x {names[e]}": v for (d, e), v in pairs.items()}, planned, products)
 
 
 def _sets(spec: Spec, strategy: str) -> list[tuple[int, ...]]:

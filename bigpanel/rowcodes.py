@@ -87,6 +87,11 @@ def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
     return Links(big, link, pairs, {e: _linked_groups(link[e]) for e in small})
 
 
+def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
+    """P_ef = D_e'W D_f for two other effects, from the table kept for e < f."""
+    return links.pairs[(e, f)] if e < f else links.pairs[(f, e)].T
+
+
 class _Schur:
     """The operator S of the module docstring on the stacked other effects, and its diagonal."""
 
@@ -113,9 +118,6 @@ class _Schur:
     def split(self, vec: np.ndarray) -> list[np.ndarray]:
         return [vec[self.offsets[i] : self.offsets[i + 1]] for i in range(len(self.small))]
 
-    def pair(self, e: int, f: int) -> sparse.csr_matrix:
-        return self.links.pairs[(e, f)] if e < f else self.links.pairs[(f, e)].T
-
     def matvec(self, vec: np.ndarray) -> np.ndarray:
         parts = self.split(vec * self.free)
         on_big = sum(self.links.link[e] @ p for e, p in zip(self.small, parts)) / self.nb[:, None]
@@ -124,7 +126,7 @@ class _Schur:
             acc = self.n[i][:, None] * parts[i] - self.links.link[e].T @ on_big
             for j, f in enumerate(self.small):
                 if f != e:
-                    acc += self.pair(e, f) @ parts[j]
+                    acc += _pair(self.links, e, f) @ parts[j]
             out.append(acc)
         return np.vstack(out) * self.free
 
@@ -145,7 +147,21 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
     for e, part in zip(op.small, op.split(x)):
         alpha[e] = part
     alpha[big] = (rhs_big - sum(links.link[e] @ alpha[e] for e in op.small)) / op.nb[:, None]
-    return Projection(alpha, iterations=it, change=change, converged=converged)
+    return Projection(alpha, it, change, converged, _normal_matvec(links, red.counts, alpha))
+
+
+def _normal_matvec(links: Links, counts: list[np.ndarray], alpha: list[np.ndarray]) -> list[np.ndarray]:
+    """D'WD a for every dimension: the full normal-equations operator of all the effects."""
+    big, small = links.big, sorted(links.link)
+    out = [counts[d][:, None] * alpha[d] for d in range(len(counts))]
+    for e in small:
+        c = links.link[e]
+        out[big] += c @ alpha[e]
+        out[e] += c.T @ alpha[big]
+        for f in small:
+            if f != e:
+                out[e] += _pair(links, e, f) @ alpha[f]
+    return out
 
 
 def _linked_groups(c: sparse.csr_matrix) -> tuple[int, np.ndarray]:

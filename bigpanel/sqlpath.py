@@ -8,7 +8,7 @@ import pyarrow as pa
 from .engine import Engine
 from .inference import ClusterTerm
 from .moments import Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, store_effects
-from .project import Projection, components, solve_effects
+from .project import Projection, components, expanded_cross_products, solve_effects
 from .reduce import (IN_ENGINE, ONE_WAY, ROW_CODES, Plan, Reduction, Start, create_views, incomplete, plan_reduction,
                      reduce_cells, start)
 from .rowcodes import Links, build_links, solve_codes
@@ -112,20 +112,28 @@ class SqlBackend:
         if red is None or red.strategy != ONE_WAY or not all(red.nested[0]):
             return None
         mom = level_cross_products(self.eng, spec, len(spec.value_aliases))
-        diag = np.diag(mom.q)
-        if np.any(diag <= 0):
-            return None
-        scale = np.sqrt(diag)
-        eig = np.linalg.eigvalsh(mom.q / np.outer(scale, scale))
-        if eig[0] <= 0 or ROUNDING * float(np.max(red.sumsq / diag)) * eig[-1] / eig[0] > TRUSTED:
-            return None
-        return mom
+        return mom if _accurate(mom.q, red.sumsq) else None
 
-    def moments(self, alpha: list[np.ndarray]) -> Moments:
-        self.alpha = alpha
+    def _from_totals(self, proj: Projection) -> Moments | None:
+        """Two or more effects, no clustering, no singleton dropped: E'WE by the expansion of
+        :func:`bigpanel.project.expanded_cross_products`, when accurate enough (as above)."""
+        red, plan = self.red, self.plan
+        usable = (red is not None and plan is not None and plan.products is not None and proj.applied is not None
+                  and red.singletons == 0 and self.spec.vcov != "cluster")
+        if not usable:
+            return None
+        q = expanded_cross_products(plan.products, red.rhs, proj)
+        return Moments(red.n_obs, q) if _accurate(q, np.diag(plan.products)) else None
+
+    def moments(self, proj: Projection) -> Moments:
+        self.alpha = proj.alpha
         mom = self._from_levels()
         if mom is not None:
             self.moments_from = "level co-moments (no row pass)"
+            return mom
+        mom = self._from_totals(proj)
+        if mom is not None:
+            self.moments_from = "level statistics and the solved effects (no row pass)"
             return mom
         self.moments_from = "demeaned rows"
         self._demeaned()
@@ -141,3 +149,15 @@ class SqlBackend:
     def level_keys(self, d: int) -> pa.Table:
         sql = render("level_table", columns=join(self.spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")
         return self.eng.arrow("effect keys", sql)
+
+
+def _accurate(q: np.ndarray, squares: np.ndarray) -> bool:
+    """Whether E'WE formed by cancelling sums is trusted: ``ROUNDING`` times the largest share
+    t'Wt / E'WE of a column (``squares`` holds t'Wt) times the condition number of the scaled
+    E'WE stays below ``TRUSTED``; a column with no variation left always fails."""
+    diag = np.diag(q)
+    if np.any(diag <= 0):
+        return False
+    scale = np.sqrt(diag)
+    eig = np.linalg.eigvalsh(q / np.outer(scale, scale))
+    return bool(eig[0] > 0 and ROUNDING * float(np.max(squares / diag)) * eig[-1] / eig[0] <= TRUSTED)
