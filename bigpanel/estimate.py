@@ -254,6 +254,7 @@ def fit(
             "raw_passes": back.raw_passes,
             "bytes_to_client": eng.bytes_to_client,
             "singleton_rounds": red.rounds,
+            **({"filter": "materialised once (volatile)"} if spec.volatile_where else {}),
             "seconds": round(perf_counter() - started, 4),
         },
         effects=effects,

@@ -83,7 +83,9 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     """``bp_filtered`` (used columns, internal names) and the view ``bp_sample``.
 
     ``materialize`` makes ``bp_filtered`` a table, read once from the source: for
-    CSV, whose every scan would otherwise parse the text again.
+    CSV, whose every scan would otherwise parse the text again. A volatile filter
+    (``random() < 0.5``) always makes it a table, so that every pass sees the
+    same sample (as a view, each pass would draw another one).
     """
     columns = [f"CAST({ident(spec.y)} AS DOUBLE) AS v0"]
     columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
@@ -95,6 +97,7 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     if spec.weights:
         columns.append(f"CAST({ident(spec.weights)} AS DOUBLE) AS w")
     where = f"({spec.where})" if spec.where else "TRUE"
+    materialize = materialize or spec.volatile_where
     kind = "TABLE" if materialize else "VIEW"
     eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where), raw=materialize)
     eng.execute("sample view", render("sample", complete=_complete(spec)))
@@ -124,7 +127,7 @@ def start(eng: Engine, spec: Spec, source_kind: str) -> Start:
     it reads the rows (and counts as a pass) under a filter on Parquet or on an
     engine whose count scans its tables.
     """
-    scans = eng.count_scans or (bool(spec.where) and source_kind != "csv")
+    scans = eng.count_scans or (bool(spec.where) and source_kind != "csv" and not spec.volatile_where)
     n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans)["n"])
     n_source = source_rows(eng, spec, n_filtered)
     avgs = join([f"avg({v}) AS m{j}" for j, v in enumerate(spec.value_aliases)])

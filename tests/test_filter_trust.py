@@ -82,3 +82,18 @@ def test_session_loads_no_extension_and_is_locked():
     with pytest.raises(duckdb.Error):
         con.execute("SET enable_external_access = true")
     con.close()
+
+
+@pytest.mark.parametrize("engine", ["duckdb", "memory"])
+def test_volatile_filter_draws_one_sample(tmp_path, engine):
+    # Common practice: a random subsample is one sample. Drawn again in every pass, the
+    # effects of one draw were subtracted from another draw's rows (negative singleton counts,
+    # used > after_filter). Every count must add up (no row has a missing value).
+    df = make_panel(seed=72, n_units=300, n_periods=3, keep=1.0)
+    path = tmp_path / "p.parquet"
+    df.to_parquet(path)
+    res = bigpanel.fit(str(path), "y ~ x1", fe="unit", where="random() < 0.5", engine=engine)
+    rows = res.rows
+    assert rows["dropped_incomplete"] == 0 and rows["dropped_singletons"] >= 0
+    assert rows["used"] + rows["dropped_singletons"] == rows["after_filter"] < rows["source"]
+    assert res.solver.get("filter") == "materialised once (volatile)"
