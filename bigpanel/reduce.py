@@ -79,6 +79,13 @@ def _complete(spec: Spec) -> str:
     return " AND ".join(parts)
 
 
+def _key(spec: Spec, column: str) -> str:
+    """An effect or cluster column; NaN and +-inf in a floating column become NULL (an incomplete row)."""
+    if column in spec.float_keys:
+        return f"CASE WHEN isfinite({ident(column)}) THEN {ident(column)} END"
+    return ident(column)
+
+
 def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     """``bp_filtered`` (used columns, internal names) and the view ``bp_sample``.
 
@@ -90,8 +97,8 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     columns = [f"CAST({ident(spec.y)} AS DOUBLE) AS v0"]
     columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
     for d, cols in enumerate(spec.fe):
-        columns += [f"{ident(c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
-    columns += [f"{ident(c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
+        columns += [f"{_key(spec, c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
+    columns += [f"{_key(spec, c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
     if spec.time:
         columns.append(f"{ident(spec.time)} AS tm")
     if spec.weights:
