@@ -21,7 +21,7 @@ from .errors import BigPanelError
 from .inference import ClusterTerm
 from .moments import Moments, cluster_sets
 from .project import Projection, solve_effects
-from .reduce import Reduction, Start, create_views, no_complete_rows, source_rows
+from .reduce import Reduction, Start, check_scale, create_views, no_complete_rows, source_rows, value_offsets
 from .spec import Spec
 from .sqltext import render
 
@@ -97,8 +97,9 @@ class MemoryBackend:
         self.w = self.w[complete]
         self.rows = tab.filter(pa.array(complete))
         shift = self.values[:1000].mean(axis=0)
+        check_scale(spec, shift)
         self.t = self.values - shift
-        return Start(n_source, n_filtered, shift)
+        return Start(n_source, n_filtered, shift + value_offsets(self.eng, spec))
 
     def incomplete(self) -> dict[str, int]:
         return self.bad

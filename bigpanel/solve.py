@@ -9,6 +9,7 @@ in the order given, it is explained by the regressors already kept up to a
 residual share below 1e-12 of its demeaned sum of squares. The slopes solve
 (X~'X~) b = X~'y~ on the kept columns, scaled to unit diagonal, by an SVD-based
 least-squares solver; the condition number reported is that of the scaled X~.
+Sums that overflowed (values beyond about 1e150) are refused in one line.
 """
 
 from __future__ import annotations
@@ -17,6 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
+
+from .errors import BigPanelError
 
 ABSORBED_SHARE = 1e-18
 COLLINEAR_SHARE = 1e-12
@@ -37,6 +40,12 @@ class Slopes:
 
 def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slopes:
     """Slopes of column 0 of ``q`` on the others; see the module docstring for the rules."""
+    if not all(np.all(np.isfinite(a)) for a in (q, st, tt)):
+        bad = "the outcome" if not np.all(np.isfinite(q[0])) else "a regressor"
+        raise BigPanelError(
+            f"the sums of squares of {bad} overflowed a double (values beyond about 1e150 in magnitude): "
+            "rescale it and fit again"
+        )
     m = q.shape[0]
     total = np.maximum(tt - st**2 / n, 0.0)
     dropped: list[tuple[int, str]] = []

@@ -29,3 +29,61 @@ def test_nan_and_inf_in_float_effect_and_cluster_columns_drop_the_row(tmp_path, 
     ref = lsdv(df[keep], "y", ["x1", "x2"], ["unit"], cov_type="cluster", groups=df.loc[keep, "sector"])
     assert rel(res.coef, ref.params[:2]) < 1e-8
     assert rel(res.std_error, ref.bse[:2]) < 1e-6
+
+
+def _wide_panel(rng, n_groups=50, per=20):
+    g = np.repeat(np.arange(n_groups), per)
+    x = rng.integers(0, 1000, len(g))
+    y = 3 * x + rng.integers(0, 7, len(g)) + 5 * (g % 3)
+    return g, x, y
+
+
+@pytest.mark.parametrize("engine", ["duckdb", "memory"])
+@pytest.mark.parametrize("kind, base", [(pa.int64(), 2**62), (pa.uint64(), 2**63 + 2**62), ("hugeint", 2**100)])
+def test_integers_beyond_two_to_the_53_keep_every_digit(tmp_path, engine, kind, base):
+    # Reference: numpy least squares on the small integers before the (exact) offset was added.
+    # A double holds 53 bits, so 2^62 + x loses its last ~9 bits when cast before the shift.
+    import duckdb
+    from conftest import lsdv
+
+    rng = np.random.default_rng(82)
+    g, x, y = _wide_panel(rng)
+    small = pd.DataFrame({"g": g, "x": x.astype(float), "y": y.astype(float)})
+    path, table = tmp_path / "wide.parquet", None
+    if kind == "hugeint":  # Parquet has no 128-bit integer: a DuckDB table keeps the type
+        path, table = tmp_path / "wide.duckdb", "t"
+        con = duckdb.connect(str(path))
+        con.register("small", small)
+        con.execute(f"CREATE TABLE t AS SELECT g, CAST(x AS HUGEINT) + {base}::HUGEINT AS x, "
+                    f"CAST(y AS HUGEINT) + {base}::HUGEINT AS y FROM small")
+        con.close()
+    else:
+        pq.write_table(pa.table({"g": g, "x": pa.array([int(v) + base for v in x], kind),
+                                 "y": pa.array([int(v) + base for v in y], kind)}), path)
+    res = bigpanel.fit(str(path), "y ~ x", fe="g", engine=engine, table=table)
+    ref = lsdv(small, "y", ["x"], ["g"])
+    assert res.names == ["x"]
+    assert rel(res.coef, ref.params[:1]) < 1e-10 and rel(res.std_error, ref.bse[:1]) < 1e-8
+
+
+@pytest.mark.parametrize("engine", ["duckdb", "memory"])
+@pytest.mark.parametrize("scale", [1e200, 1e-300])
+def test_extreme_scales_give_one_line_not_a_false_answer(tmp_path, engine, scale):
+    # Common practice: squares of 1e200 overflow and of 1e-300 underflow a double. The tool
+    # must not crash (it raised a numpy ValueError) nor report the regressor as absorbed.
+    df = make_panel(seed=83)
+    df["y"] *= scale
+    df["x1"] *= scale
+    df.to_parquet(tmp_path / "s.parquet")
+    with pytest.raises(BigPanelError, match=r"column '(y|x1)' holds values near .*rescale") as info:
+        bigpanel.fit(str(tmp_path / "s.parquet"), "y ~ x1 + x2", fe="unit", engine=engine)
+    assert "\n" not in str(info.value)
+
+
+def test_overflow_in_the_sums_is_refused(tmp_path):
+    # Values of mean zero but magnitude 1e200 pass the shift check; their squares still overflow.
+    df = make_panel(seed=84)
+    df["x1"] = np.where(np.arange(len(df)) % 2 == 0, 1e200, -1e200)  # mean of the first 1,000: 0
+    df.to_parquet(tmp_path / "s.parquet")
+    with pytest.raises(BigPanelError, match="overflowed a double"):
+        bigpanel.fit(str(tmp_path / "s.parquet"), "y ~ x1 + x2", fe="unit")
