@@ -24,7 +24,7 @@ from .inference import Inference, infer
 from .memory import MemoryBackend
 from .project import components
 from .results import FitResult
-from .solve import ILL_CONDITIONED, solve_slopes
+from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
 from .source import open_session
 from .sqlpath import SqlBackend
 from .spec import build_spec, check_where, parse_formula
@@ -160,6 +160,7 @@ def fit(
                 "every regressor is absorbed by the fixed effects or collinear: "
                 + ", ".join(names_all[j] for j, _ in slopes.dropped)
             )
+        slopes, rss_from = exact_rss(slopes, float(mom.q[0, 0]), back.rss)
         meat, terms = None, []
         if spec.vcov == "hc1":
             meat = back.meat_hc(slopes.keep, slopes.beta)
@@ -250,6 +251,7 @@ def fit(
             "tol": tol,
             "converged": proj.converged,
             "condition_number": slopes.condition,
+            "rss_from": rss_from,
             "max_mean_demeaned": float(np.max(np.abs(sum_e) / np.sqrt(n * np.maximum(red.sumsq, 1e-300)))),
             "raw_passes": back.raw_passes,
             "bytes_to_client": eng.bytes_to_client,

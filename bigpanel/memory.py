@@ -172,6 +172,11 @@ class MemoryBackend:
         x = self.e[:, keep]
         return (self.e[:, 0] - x @ beta) * self.w, x
 
+    def rss(self, keep: list[int], beta: np.ndarray) -> float:
+        """The residual sum of squares, sum_i w_i (y~_i - x~_i'b)^2, each residual formed first."""
+        r = self.e[:, 0] - self.e[:, keep] @ beta
+        return float(np.dot(self.w * r, r))
+
     def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
         u, x = self._resid(keep, beta)
         w = x * u[:, None]

@@ -14,7 +14,8 @@ Sums that overflowed (values beyond about 1e150) are refused in one line.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from typing import Callable
 
 import numpy as np
 from scipy import linalg
@@ -23,6 +24,7 @@ from .errors import BigPanelError
 
 ABSORBED_SHARE = 1e-18
 COLLINEAR_SHARE = 1e-12
+RSS_CANCELLED = 1e-6  # RSS / y~'y~ below this: the cross-product formula kept < ~10 of its 16 digits
 ILL_CONDITIONED = 1e5  # cond(X~) above this: cond(X~'X~) > 1e10, the normal equations keep < 6 digits
 
 
@@ -75,3 +77,18 @@ def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slope
     eig = np.linalg.eigvalsh(scaled)
     condition = float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else float("inf")
     return Slopes(keep, dropped, beta, bread, max(rss, 0.0), condition)
+
+
+def exact_rss(slopes: Slopes, yy: float, residual: Callable[[list[int], np.ndarray], float]) -> tuple[Slopes, str]:
+    """The RSS, from the cross-products or, when they cancel, from a residual pass ``residual(keep, beta)``.
+
+    RSS = y~'y~ - 2 b'X~'y~ + b'X~'X~b carries a rounding error of a few units of
+    1e-16 times y~'y~, so when RSS / y~'y~ (one minus the within R-squared) is
+    below ``RSS_CANCELLED`` at most about ten digits are left (none when a
+    1e8-scale fit leaves a residual of scale 1). The residual pass forms each
+    residual before squaring it, whose error is about 1e-16 times |y~_i| per
+    row instead. Returns the slopes with the RSS used and where it came from.
+    """
+    if not slopes.keep or yy <= 0 or slopes.rss > RSS_CANCELLED * yy:
+        return slopes, "cross-products"
+    return replace(slopes, rss=max(float(residual(slopes.keep, slopes.beta)), 0.0)), "residual pass"

@@ -9,7 +9,7 @@ from .engine import Engine
 from .project import Projection, solve_effects
 from .sweeps import sweep_in_engine
 from .inference import ClusterTerm
-from .moments import Moments, create_tilde, cross_products, meat_cluster, meat_hc, store_effects
+from .moments import Moments, create_tilde, cross_products, meat_cluster, meat_hc, residual_ss, store_effects
 from .reduce import Reduction, Start, create_views, incomplete, reduce_cells, start
 from .spec import Spec
 from .sqltext import join, render
@@ -73,6 +73,11 @@ class SqlBackend:
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
         self._demeaned()
         return meat_cluster(self.eng, self.spec, keep, beta)
+
+    def rss(self, keep: list[int], beta: np.ndarray) -> float:
+        """The residual sum of squares from a pass over the demeaned rows."""
+        self._demeaned()
+        return residual_ss(self.eng, self.spec, keep, beta)
 
     def level_keys(self, d: int) -> pa.Table:
         sql = render("level_table", columns=join(self.spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")
