@@ -245,7 +245,7 @@ def _walk(node: object, columns: dict[str, str], where: str) -> None:
 
 
 def _check_node(node: dict, kind: str, columns: dict[str, str], where: str) -> None:
-    refuse = f"--where {where!r}: "
+    refuse = f"--where {where!r} is not a valid filter: "
     if kind not in _NODE_CLASSES:
         raise BigPanelError(refuse + f"{kind.lower().replace('_', ' ')} is not allowed in a row filter "
                             "(only the source's columns, literals, operators and plain functions)")
