@@ -6,6 +6,8 @@ import contextlib
 import functools
 import inspect
 import json
+import os
+import signal
 import sys
 import traceback
 from pathlib import Path
@@ -19,7 +21,8 @@ from rich.table import Table
 from .bench import bench_renderable, compare_engines
 from .demo import write_demo
 from .errors import BigPanelError
-from .files import check_output, input_files, parquet_writer, text_writer, unique_stems, write_all, write_text
+from .files import (check_output, input_files, parquet_writer, remove_pending, text_writer, unique_stems, write_all,
+                    write_text)
 from .estimate import fit as run_fit
 from .describe import describe_panel, describe_renderable
 from .plots import plot_effects, plot_periods
@@ -334,6 +337,20 @@ def demo_command(
         )
 
 
+def _interrupted(signum: int, frame: object) -> None:
+    """SIGINT at any moment: remove half-written files, say so, exit 130 (no traceback, no abort).
+
+    Exiting from the handler does not depend on where the signal lands: inside a
+    DuckDB query (which this DuckDB reports in more than one way), in numpy, or
+    between passes.
+    """
+    remove_pending()
+    sys.stderr.write("bigpanel: interrupted; nothing was written\n")
+    sys.stderr.flush()
+    os._exit(130)
+
+
 def main() -> None:
     """Console-script entry point."""
+    signal.signal(signal.SIGINT, _interrupted)
     app()

@@ -18,18 +18,33 @@ import pyarrow.parquet as pq
 from .errors import BigPanelError
 
 
+PENDING: set[Path] = set()  # temporary files being written, removed by the interrupt handler
+
+
+def remove_pending() -> None:
+    """Delete every temporary file still being written (on an interrupt: nothing is left behind)."""
+    for tmp in list(PENDING):
+        try:
+            tmp.unlink()
+        except OSError:
+            pass
+    PENDING.clear()
+
+
 @contextmanager
 def atomic_path(path: str | Path) -> Iterator[Path]:
     """Yield a temporary sibling of ``path``; rename it onto ``path`` only if the block succeeds."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    PENDING.add(tmp)
     try:
         yield tmp
         os.replace(tmp, path)
     finally:
         if tmp.exists():
             tmp.unlink()
+        PENDING.discard(tmp)
 
 
 def write_text(path: str | Path, text: str) -> None:
@@ -119,18 +134,18 @@ def write_all(writers: list[tuple[Path, Callable[[Path], None]]]) -> None:
         for path, write in writers:
             path.parent.mkdir(parents=True, exist_ok=True)
             tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+            PENDING.add(tmp)
             done.append((tmp, path))
             write(tmp)
     except OSError as exc:
-        for tmp, _ in done:
-            tmp.unlink(missing_ok=True)
+        remove_pending()
         raise BigPanelError(f"cannot write {str(done[-1][1])!r}: {exc.strerror or exc}; nothing was written") from None
     except BaseException:
-        for tmp, _ in done:
-            tmp.unlink(missing_ok=True)
+        remove_pending()
         raise
     for tmp, path in done:
         os.replace(tmp, path)
+        PENDING.discard(tmp)
 
 
 def text_writer(text: str) -> Callable[[Path], None]:
