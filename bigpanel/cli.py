@@ -17,6 +17,7 @@ import typer
 from rich import box
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 from .bench import bench_renderable, compare_engines
 from .demo import write_demo
@@ -57,7 +58,7 @@ def guarded(debug: bool) -> Iterator[None]:
     except BigPanelError as exc:
         if debug:
             traceback.print_exc()
-        err.print(f"[bold red]bigpanel: error:[/] {exc}", highlight=False)
+        err.print(Text("bigpanel: error: ", style="bold red") + Text(str(exc)), highlight=False)
         raise typer.Exit(2) from None
     except KeyboardInterrupt:
         err.print("bigpanel: interrupted; nothing was written")
@@ -65,7 +66,8 @@ def guarded(debug: bool) -> Iterator[None]:
     except Exception as exc:  # noqa: BLE001 - the last line of defence against tracebacks
         if debug:
             traceback.print_exc()
-        err.print(f"[bold red]bigpanel: internal error:[/] {type(exc).__name__}: {exc} (rerun with --debug)")
+        err.print(Text("bigpanel: internal error: ", style="bold red")
+                  + Text(f"{type(exc).__name__}: {exc} (rerun with --debug)"))
         raise typer.Exit(1) from None
 
 
@@ -187,7 +189,7 @@ def fit_command(
                 out.print(
                     f"effects of {name}: {s['levels']:,} levels, mean {s['mean']:.4g}, sd {s['sd'] or 0:.4g}, "
                     f"min {s['min']:.4g}, max {s['max']:.4g} -> {files[name]}",
-                    highlight=False,
+                    highlight=False, markup=False, emoji=False,
                 )
     if not res.solver["converged"]:
         raise typer.Exit(3)
@@ -222,10 +224,11 @@ def effects_command(
         path = files[name]
         s = res.effects_summary()[name]
         sd = f"{s['sd']:.4g}" if s["sd"] is not None else ""
-        table.add_row(name, f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}", str(path))
+        table.add_row(Text(name), f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}",
+                      Text(str(path)))
     out.print(table)
     if plot is not None:
-        out.print(f"histograms: {plot}", highlight=False)
+        out.print(f"histograms: {plot}", highlight=False, markup=False, emoji=False)
 
 
 @app.command("bench")
@@ -279,7 +282,7 @@ def describe_command(
         else:
             out.print(describe_renderable(desc))
             if plot is not None:
-                out.print(f"periods per unit: {plot}", highlight=False)
+                out.print(f"periods per unit: {plot}", highlight=False, markup=False, emoji=False)
 
 
 @app.command("table")
@@ -305,7 +308,7 @@ def table_command(
             if not isinstance(rendered, str):
                 raise BigPanelError("--out needs a file format: use --to markdown, latex or csv")
             write_text(out_file, rendered)
-            out.print(f"wrote {out_file}", highlight=False)
+            out.print(f"wrote {out_file}", highlight=False, markup=False, emoji=False)
         elif isinstance(rendered, str):
             sys.stdout.write(rendered)
         else:
