@@ -104,6 +104,8 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if tol <= 0 or not np.isfinite(tol):
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
+    if max_iter < 1:
+        raise BigPanelError(f"--max-iter must be a positive number of iterations, not {max_iter}")
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     if estimator not in ESTIMATORS:

@@ -50,6 +50,11 @@ def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slope
         )
     m = q.shape[0]
     total = np.maximum(tt - st**2 / n, 0.0)
+    if total[0] <= 0 or q[0, 0] <= ABSORBED_SHARE * total[0]:
+        raise BigPanelError(
+            "the outcome does not vary " + ("at all" if total[0] <= 0 else "within the fixed-effect levels")
+            + ": every slope would be 0 with no information; check the outcome column or the effects"
+        )
     dropped: list[tuple[int, str]] = []
     keep: list[int] = []
     for j in range(1, m):

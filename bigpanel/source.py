@@ -6,7 +6,9 @@ files, and every later pass reads through it.
 
 from __future__ import annotations
 
+import csv
 import glob as globlib
+import gzip
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -90,6 +92,20 @@ def _check_not_empty(path: str) -> None:
         raise BigPanelError(f"file {path} is empty")
 
 
+def _check_header(path: str, delim: str) -> None:
+    """A CSV header naming a column twice is refused (the reader would rename the second silently)."""
+    opener = gzip.open if path.lower().endswith(".gz") else open
+    try:
+        with opener(path, "rt", newline="", encoding="utf-8", errors="replace") as fh:
+            header = next(csv.reader(fh, delimiter=delim), [])
+    except (OSError, csv.Error):
+        return  # the reader's own error names the problem
+    names = [h.strip() for h in header]
+    repeated = sorted({n for n in names if names.count(n) > 1})
+    if repeated:
+        raise BigPanelError(f"CSV {path}: the header names column {repeated[0]!r} more than once; rename one of them")
+
+
 def _check_same_schema(con: duckdb.DuckDBPyConnection, files: list[str], paths: str) -> None:
     """All files of a glob must hold the same columns (names and types), or nothing is read."""
     rows = con.execute(render("parquet_schemas", paths=paths)).fetchall()
@@ -125,6 +141,7 @@ def open_source(
                 raise BigPanelError(f"file not found: {location}")
             _check_not_empty(location)
             delim = "\t" if location.lower().endswith((".tsv", ".tsv.gz")) else ","
+            _check_header(location, delim)
             try:
                 con.execute(render("source_csv", path=literal(location), delim=literal(delim))).fetchall()
             except duckdb.Error as exc:

@@ -97,3 +97,29 @@ def test_volatile_filter_draws_one_sample(tmp_path, engine):
     assert rows["dropped_incomplete"] == 0 and rows["dropped_singletons"] >= 0
     assert rows["used"] + rows["dropped_singletons"] == rows["after_filter"] < rows["source"]
     assert res.solver.get("filter") == "materialised once (volatile)"
+
+
+def test_negative_max_iter_is_refused(panel):
+    _, path, _ = panel
+    for bad in (-5, 0):
+        with pytest.raises(BigPanelError, match="--max-iter must be a positive"):
+            bigpanel.fit(path, "y ~ x1", fe="unit", max_iter=bad)
+
+
+def test_csv_header_with_a_repeated_name_is_refused(tmp_path):
+    # DuckDB's reader renames the second 'x' to 'x_1' without a word.
+    (tmp_path / "dup.csv").write_text("y,x,x,g\n1,2,3,1\n2,3,4,1\n3,1,2,2\n4,5,6,2\n")
+    with pytest.raises(BigPanelError, match="header names column 'x' more than once"):
+        bigpanel.fit(str(tmp_path / "dup.csv"), "y ~ x", fe="g")
+
+
+@pytest.mark.parametrize("engine", ["duckdb", "memory"])
+def test_constant_outcome_is_refused(panel, tmp_path, engine):
+    # Common practice: with no variation in y~ every slope is 0 and carries no information.
+    df, _, _ = panel
+    df = df.assign(flat=3.0, per_unit=df["unit"] * 1.5)
+    df.to_parquet(tmp_path / "c.parquet")
+    with pytest.raises(BigPanelError, match="the outcome does not vary at all"):
+        bigpanel.fit(str(tmp_path / "c.parquet"), "flat ~ x1", fe="unit", engine=engine)
+    with pytest.raises(BigPanelError, match="within the fixed-effect levels"):
+        bigpanel.fit(str(tmp_path / "c.parquet"), "per_unit ~ x1", fe="unit", engine=engine)
