@@ -35,17 +35,18 @@ def test_null_nan_inf_dropped_listwise_and_counted(tmp_path):
 
 
 def test_wide_integers_do_not_overflow(tmp_path):
-    # BIGINT values near 1e15 (exact as doubles) in 20,000 rows: their integer sum would pass
-    # 2^63. They are summed as doubles after a shift, never as overflowing integers.
+    # BIGINT values near 2^62 (not exact as doubles) in 20,000 rows: their integer sum would
+    # pass 2^63. Reference: statsmodels LSDV on the small integers before the offset.
     rng = np.random.default_rng(52)
     g = np.repeat(np.arange(100), 200)
     x = rng.integers(0, 1000, len(g))
-    df = pd.DataFrame({"g": g, "x": (x + 10**15).astype(np.int64), "xs": x})
-    df["y"] = (3 * df["xs"] + rng.integers(0, 5, len(g)) + 9 * 10**14).astype(np.int64)
-    df.to_parquet(tmp_path / "big.parquet")
+    y = 3 * x + rng.integers(0, 5, len(g))
+    big = 2**62 + 12345
+    pq.write_table(pa.table({"g": g, "x": pa.array([int(v) + big for v in x], pa.int64()),
+                             "y": pa.array([int(v) + big for v in y], pa.int64())}), tmp_path / "big.parquet")
     res = bigpanel.fit(str(tmp_path / "big.parquet"), "y ~ x", fe="g")
-    ref = bigpanel.fit(str(tmp_path / "big.parquet"), "y ~ xs", fe="g")
-    assert rel(res.coef, ref.coef) < 1e-9
+    ref = lsdv(pd.DataFrame({"g": g, "x": x.astype(float), "y": y.astype(float)}), "y", ["x"], ["g"])
+    assert rel(res.coef, ref.params[:1]) < 1e-9 and rel(res.std_error, ref.bse[:1]) < 1e-8
 
 
 def test_awkward_names_and_labels(tmp_path):
