@@ -21,7 +21,9 @@ def test_null_nan_inf_dropped_listwise_and_counted(tmp_path):
     x1 = df["x1"].to_numpy().copy()
     y[[0, 1]] = [np.nan, np.inf]
     x1[[2, 3, 4]] = [-np.inf, np.nan, np.nan]
-    unit = pa.array(df["unit"], mask=np.isin(np.arange(len(df)), [5]))
+    unit = df["unit"].to_numpy(dtype=float)
+    unit[5] = np.nan  # a NaN (not a NULL) in a float effect column: pa.array of numpy keeps it NaN
+    unit = pa.array(unit)
     sector = pa.array(df["sector"], mask=np.isin(np.arange(len(df)), [6, 7]))
     table = pa.table({"y": pa.array(y, mask=np.isin(np.arange(len(df)), [8])), "x1": x1, "x2": df["x2"],
                       "unit": unit, "sector": sector})
