@@ -57,6 +57,7 @@ def test_symlink_fifo_folder_and_file_parent_are_refused_before_the_fit(panel, t
     (tmp_path / "folder").mkdir()
     cases = [
         (["--save", tmp_path / "link.json"], "symbolic link"),
+        (["--save", "/dev/stdout"], "symbolic link"),  # as root it would become a regular file
         (["--save", tmp_path / "pipe"], "not a regular file"),
         (["--save", tmp_path / "folder"], "is a folder"),
         (["--save", path / "fit.json"], "is a file, not a folder"),
