@@ -26,8 +26,8 @@ _NUMERIC = re.compile(
     r"|FLOAT|DOUBLE|REAL|DECIMAL.*|BOOLEAN)$"
 )
 _FLOATS = ("FLOAT", "DOUBLE", "REAL")
-# integer and decimal types whose values need not fit a double's 53-bit mantissa
-_WIDE = re.compile(r"^(BIGINT|UBIGINT|HUGEINT|UHUGEINT|DECIMAL\((1[6-9]|[23][0-9]),.*)$")
+# integer types whose values need not fit a double's 53-bit mantissa (DECIMAL keeps its fraction: cast directly)
+_WIDE = re.compile(r"^(BIGINT|UBIGINT|HUGEINT|UHUGEINT)$")
 
 # The filter is a row expression over the source's columns: these parser node classes, the
 # functions below, and nothing else (no subquery, table function, parameter, lambda, star).
@@ -65,7 +65,7 @@ class Spec:
     time: str | None = None
     weights: str | None = None
     float_keys: tuple[str, ...] = ()  # effect and cluster columns of a floating type (NaN/inf possible)
-    wide_values: tuple[str, ...] = ()  # outcome/regressors of an integer or decimal type wider than a double
+    wide_values: tuple[str, ...] = ()  # outcome/regressors of an integer type wider than a double
 
     @property
     def volatile_where(self) -> bool:

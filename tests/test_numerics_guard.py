@@ -112,3 +112,20 @@ def test_nearly_perfect_fit_keeps_its_residual_sum_of_squares(tmp_path, engine, 
     assert res.rss == pytest.approx(rss, rel=1e-6)
     assert res.std_error[0] == pytest.approx(se, rel=1e-6)
     assert res.solver["rss_from"] == "residual pass"
+
+
+def test_wide_decimal_keeps_its_fraction(tmp_path):
+    # Reference: statsmodels LSDV on the same values as doubles. A DECIMAL(20,2) must not go
+    # through the integer offset (a cast to an integer would round 1.37 to 1).
+    import duckdb
+    from conftest import lsdv
+
+    path = tmp_path / "dec.duckdb"
+    con = duckdb.connect(str(path))
+    con.execute("CREATE TABLE t AS SELECT i % 20 AS g, CAST(sin(i) * 10 AS DECIMAL(20, 2)) AS x, "
+                "CAST(sin(i) * 20 + cos(i * 7) AS DOUBLE) AS y FROM range(400) r(i)")
+    df = con.execute("SELECT g, CAST(x AS DOUBLE) AS x, y FROM t").df()
+    con.close()
+    res = bigpanel.fit(str(path), "y ~ x", fe="g", table="t")
+    ref = lsdv(df, "y", ["x"], ["g"])
+    assert rel(res.coef, ref.params[:1]) < 1e-10
