@@ -89,7 +89,7 @@ def _key(spec: Spec, column: str) -> str:
 def _value(spec: Spec, column: str, j: int) -> str:
     """Value column j as a double; a wide integer first loses its offset in the integer domain."""
     if column in spec.wide_values:
-        return f"CAST(CAST({ident(column)} AS HUGEINT) - CAST(o.o{j} AS HUGEINT) AS DOUBLE)"
+        return f"CAST(CAST({ident(column)} AS DECIMAL(38, 0)) - CAST(o.o{j} AS DECIMAL(38, 0)) AS DOUBLE)"
     return f"CAST({ident(column)} AS DOUBLE)"
 
 
@@ -97,7 +97,8 @@ def _store_offsets(eng: Engine, spec: Spec) -> bool:
     """Store ``bp_offset``: an integer (exact as a double) per value column, 0 unless the column is wide.
 
     A BIGINT near 2^62 cast to a double keeps 53 of its bits; the difference from
-    an integer offset inside the data's range is exact in HUGEINT and, when the
+    an integer offset inside the data's range is exact in DECIMAL(38, 0) (a 128-bit integer
+    in DuckDB, NUMERIC in PostgreSQL, DECIMAL in Spark) and, when the
     column's spread is below 2^53, exact as a double too.
     """
     if not spec.wide_values:
