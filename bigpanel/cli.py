@@ -6,6 +6,8 @@ import contextlib
 import functools
 import inspect
 import json
+import os
+import signal
 import sys
 import traceback
 from pathlib import Path
@@ -15,11 +17,13 @@ import typer
 from rich import box
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 from .bench import bench_renderable, compare_engines
 from .demo import write_demo
 from .errors import BigPanelError
-from .files import write_parquet, write_text
+from .files import (check_output, input_files, parquet_writer, remove_pending, text_writer, unique_stems, write_all,
+                    write_text)
 from .estimate import fit as run_fit
 from .describe import describe_panel, describe_renderable
 from .plots import plot_effects, plot_periods
@@ -54,7 +58,7 @@ def guarded(debug: bool) -> Iterator[None]:
     except BigPanelError as exc:
         if debug:
             traceback.print_exc()
-        err.print(f"[bold red]bigpanel: error:[/] {exc}", highlight=False)
+        err.print(Text("bigpanel: error: ", style="bold red") + Text(str(exc)), highlight=False)
         raise typer.Exit(2) from None
     except KeyboardInterrupt:
         err.print("bigpanel: interrupted; nothing was written")
@@ -62,7 +66,8 @@ def guarded(debug: bool) -> Iterator[None]:
     except Exception as exc:  # noqa: BLE001 - the last line of defence against tracebacks
         if debug:
             traceback.print_exc()
-        err.print(f"[bold red]bigpanel: internal error:[/] {type(exc).__name__}: {exc} (rerun with --debug)")
+        err.print(Text("bigpanel: internal error: ", style="bold red")
+                  + Text(f"{type(exc).__name__}: {exc} (rerun with --debug)"))
         raise typer.Exit(1) from None
 
 
@@ -76,8 +81,21 @@ def progress(quiet: bool) -> Iterator:
         yield lambda label: status.update(label)
 
 
-def _safe_name(name: str) -> str:
-    return "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in name)
+def _effect_files(folder: Path, names: list[str]) -> dict[str, Path]:
+    """One Parquet file per effect in ``folder``, names made unique (``a b`` and ``a_b`` differ)."""
+    return {name: folder / f"{stem}.parquet" for name, stem in unique_stems(names, "effects_").items()}
+
+
+def _check_outputs(model: dict, files: dict[str, Optional[Path]], effects_dir: Optional[Path]) -> None:
+    """Check every output path before the first pass (``-`` is stdout); see :func:`check_output`."""
+    inputs = input_files(str(model["source"]))
+    for role, path in files.items():
+        if path is not None and str(path) != "-":
+            check_output(path, role, inputs)
+    if effects_dir is not None:
+        check_output(effects_dir, "effects folder", inputs, folder=True)
+        for path in _effect_files(effects_dir, [str(t) for t in model["fe"]]).values():
+            check_output(path, "effects file", inputs)
 
 
 def _model_options(
@@ -114,6 +132,8 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
     def wrapper(**kwargs: object) -> None:
         shared = {name: kwargs.pop(name) for name in _SHARED}
         with guarded(bool(shared.pop("debug"))):
+            if shared["temp_dir"]:
+                check_output(shared["temp_dir"], "--temp-dir", input_files(str(shared["source"])), folder=True)
             shared["x"] = shared["x"] or None
             shared["drop_singletons"] = not shared.pop("keep_singletons")
             fn(model=shared, **kwargs)
@@ -149,26 +169,27 @@ def fit_command(
 
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week --cluster store
     """
+    _check_outputs(model, {"--save": save}, effects_out)
     with progress(quiet or json_out) as on_step:
         res = run_fit(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
             weights=weights, on_step=on_step,
         )
-    if save is not None:
-        write_text(save, res.to_json())
-    if effects_out is not None:
-        for name, tab in res.effects.items():
-            write_parquet(Path(effects_out) / f"effects_{_safe_name(name)}.parquet", tab)
-    if json_out:
+    files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
+    writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]
+    if save is not None and str(save) != "-":
+        writers.insert(0, (Path(save), text_writer(res.to_json())))
+    write_all(writers)
+    if json_out or (save is not None and str(save) == "-"):
         sys.stdout.write(res.to_json() + "\n")
-    else:
+    if not json_out:
         out.print(fit_renderable(res))
         if effects_out is not None:
             for name, s in res.effects_summary().items():
                 out.print(
                     f"effects of {name}: {s['levels']:,} levels, mean {s['mean']:.4g}, sd {s['sd'] or 0:.4g}, "
-                    f"min {s['min']:.4g}, max {s['max']:.4g} -> {effects_out}/effects_{_safe_name(name)}.parquet",
-                    highlight=False,
+                    f"min {s['min']:.4g}, max {s['max']:.4g} -> {files[name]}",
+                    highlight=False, markup=False, emoji=False,
                 )
     if not res.solver["converged"]:
         raise typer.Exit(3)
@@ -188,22 +209,26 @@ def effects_command(
     row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
     Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
     """
+    _check_outputs(model, {"--plot": plot}, out_dir)
     with progress(quiet) as on_step:
         res = run_fit(**model, on_step=on_step)
+    files = _effect_files(Path(out_dir), list(res.effects))
+    writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items()]
+    if plot is not None:
+        writers.append((Path(plot), functools.partial(plot_effects, res.effects)))
+    write_all(writers)
     table = Table(box=box.SIMPLE_HEAD, title="estimated effects", title_justify="left")
     for col in ("effect", "levels", "mean", "sd", "min", "max", "file"):
         table.add_column(col, justify="left" if col in ("effect", "file") else "right")
-    for name, tab in res.effects.items():
-        path = Path(out_dir) / f"effects_{_safe_name(name)}.parquet"
-        write_parquet(path, tab)
+    for name in res.effects:
+        path = files[name]
         s = res.effects_summary()[name]
         sd = f"{s['sd']:.4g}" if s["sd"] is not None else ""
-        table.add_row(name, f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}", str(path))
-    if plot is not None:
-        plot_effects(res.effects, plot)
+        table.add_row(Text(name), f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}",
+                      Text(str(path)))
     out.print(table)
     if plot is not None:
-        out.print(f"histograms: {plot}", highlight=False)
+        out.print(f"histograms: {plot}", highlight=False, markup=False, emoji=False)
 
 
 @app.command("bench")
@@ -244,6 +269,8 @@ def describe_command(
     Example: bigpanel describe sales.parquet --id store --time week --effects store --effects product --plot periods.png
     """
     with guarded(debug):
+        if plot is not None:
+            check_output(plot, "--plot", input_files(source))
         if effects is not None and len(effects) != 2:
             raise BigPanelError(f"--effects takes exactly two columns (got {len(effects)}): --effects a --effects b")
         with progress(quiet or json_out) as on_step:
@@ -255,7 +282,7 @@ def describe_command(
         else:
             out.print(describe_renderable(desc))
             if plot is not None:
-                out.print(f"periods per unit: {plot}", highlight=False)
+                out.print(f"periods per unit: {plot}", highlight=False, markup=False, emoji=False)
 
 
 @app.command("table")
@@ -273,13 +300,15 @@ def table_command(
     Example: bigpanel table one.json two.json three.json --to latex --out table.tex
     """
     with guarded(debug):
+        if out_file is not None:
+            check_output(out_file, "--out", [Path(f) for f in fits])
         table = build_table(load_fits([str(f) for f in fits]), stars=stars, digits=digits, labels=label or None)
         rendered = render_table(table, to)
         if out_file is not None:
             if not isinstance(rendered, str):
                 raise BigPanelError("--out needs a file format: use --to markdown, latex or csv")
             write_text(out_file, rendered)
-            out.print(f"wrote {out_file}", highlight=False)
+            out.print(f"wrote {out_file}", highlight=False, markup=False, emoji=False)
         elif isinstance(rendered, str):
             sys.stdout.write(rendered)
         else:
@@ -298,6 +327,7 @@ def demo_command(
     Example: bigpanel demo sales.parquet --rows 10000000
     """
     with guarded(debug):
+        check_output(out_path, "demo file", [])
         panel = write_demo(str(out_path), rows=rows, seed=seed)
         out.print(
             f"wrote {panel.rows:,} rows to {panel.path}: {panel.stores:,} stores x {panel.products:,} products x "
@@ -310,6 +340,20 @@ def demo_command(
         )
 
 
+def _interrupted(signum: int, frame: object) -> None:
+    """SIGINT at any moment: remove half-written files, say so, exit 130 (no traceback, no abort).
+
+    Exiting from the handler does not depend on where the signal lands: inside a
+    DuckDB query (which this DuckDB reports in more than one way), in numpy, or
+    between passes.
+    """
+    remove_pending()
+    sys.stderr.write("bigpanel: interrupted; nothing was written\n")
+    sys.stderr.flush()
+    os._exit(130)
+
+
 def main() -> None:
     """Console-script entry point."""
+    signal.signal(signal.SIGINT, _interrupted)
     app()

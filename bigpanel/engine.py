@@ -77,6 +77,10 @@ class Engine:
             raise KeyboardInterrupt from None
         except duckdb.Error as exc:
             raise EngineError(label, _first_line(exc), self.name) from None
+        except RuntimeError as exc:  # this DuckDB reports an interrupted query as a plain RuntimeError
+            if "interrupted" in str(exc).lower():
+                raise KeyboardInterrupt from None
+            raise
         if record:
             self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
         if raw:

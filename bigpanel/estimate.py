@@ -23,7 +23,7 @@ from .inference import Inference, infer
 from .memory import MemoryBackend
 from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
 from .results import FitResult
-from .solve import ILL_CONDITIONED, solve_slopes
+from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
 from .source import open_session
 from .sqlpath import SqlBackend
 from .spec import build_spec, check_where, parse_formula
@@ -108,6 +108,8 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if tol <= 0 or not np.isfinite(tol):
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
+    if max_iter < 1:
+        raise BigPanelError(f"--max-iter must be a positive number of iterations, not {max_iter}")
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     if estimator not in ESTIMATORS:
@@ -159,6 +161,7 @@ def fit(
                 "every regressor is absorbed by the fixed effects or collinear: "
                 + ", ".join(names_all[j] for j, _ in slopes.dropped)
             )
+        slopes, rss_from = exact_rss(slopes, float(mom.q[0, 0]), back.rss)
         meat, terms = None, []
         if spec.vcov == "hc1":
             meat = back.meat_hc(slopes.keep, slopes.beta)
@@ -252,10 +255,12 @@ def fit(
             "tol": tol,
             "converged": proj.converged,
             "condition_number": slopes.condition,
+            "rss_from": rss_from,
             "max_mean_demeaned": float(np.max(np.abs(sum_e) / np.sqrt(n * np.maximum(red.sumsq, 1e-300)))),
             "raw_passes": back.raw_passes,
             "bytes_to_client": eng.bytes_to_client,
             "singleton_rounds": red.rounds,
+            **({"filter": "materialised once (volatile)"} if spec.volatile_where else {}),
             "seconds": round(perf_counter() - started, 4),
         },
         effects=effects,

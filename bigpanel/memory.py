@@ -21,7 +21,8 @@ from .errors import BigPanelError
 from .inference import ClusterTerm
 from .moments import Moments, cluster_sets
 from .project import Projection, components, solve_effects
-from .reduce import ONE_WAY, PAIR_TABLES, Reduction, Start, create_views, no_complete_rows, source_rows
+from .reduce import (ONE_WAY, PAIR_TABLES, Reduction, Start, check_scale, create_views, no_complete_rows, source_rows,
+                     value_offsets)
 from .spec import Spec
 from .sqltext import render
 
@@ -98,8 +99,9 @@ class MemoryBackend:
         self.w = self.w[complete]
         self.rows = tab.filter(pa.array(complete))
         shift = self.values[:1000].mean(axis=0)
+        check_scale(spec, shift)
         self.t = self.values - shift
-        return Start(n_source, n_filtered, shift)
+        return Start(n_source, n_filtered, shift + value_offsets(self.eng, spec))
 
     def incomplete(self) -> dict[str, int]:
         return self.bad
@@ -180,6 +182,11 @@ class MemoryBackend:
     def _resid(self, keep: list[int], beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         x = self.e[:, keep]
         return (self.e[:, 0] - x @ beta) * self.w, x
+
+    def rss(self, keep: list[int], beta: np.ndarray) -> float:
+        """The residual sum of squares, sum_i w_i (y~_i - x~_i'b)^2, each residual formed first."""
+        r = self.e[:, 0] - self.e[:, keep] @ beta
+        return float(np.dot(self.w * r, r))
 
     def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
         u, x = self._resid(keep, beta)

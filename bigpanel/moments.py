@@ -179,3 +179,12 @@ def _square(row: dict, keep: list[int]) -> np.ndarray:
         for c in range(a, k):
             out[a, c] = out[c, a] = row[f"h_{keep[a]}_{keep[c]}"]
     return out
+
+
+def residual_ss(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> float:
+    """A pass over the rows: RSS = sum_i w_i (y~_i - x~_i'b)^2 (w = 1 unweighted), each residual
+    formed before it is squared, so a nearly perfect fit keeps its digits (see :func:`bigpanel.solve.exact_rss`)."""
+    _store_coef(eng, keep, beta)
+    fit = " + ".join(f"b.b{j} * e{j}" for j in keep)
+    sql = render("residual_ss", weight=spec.w, resid=f"(e0 - ({fit}))", carry=", w" if spec.weights else "")
+    return float(eng.one("residual sum of squares, row by row", sql, raw=True)["rss"])

@@ -7,8 +7,10 @@ session. Only the level tables and the K x K moments come back, as Arrow.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 from typing import Any, Callable
+from urllib.parse import unquote
 
 import pyarrow as pa
 
@@ -151,6 +153,30 @@ def _duck_type(row: dict) -> str:
     return _DUCK_TYPES.get(kind, str(row["udt_name"]).upper())
 
 
+_USERINFO = re.compile(r"^(?P<scheme>[A-Za-z][A-Za-z0-9+.-]*://)(?P<user>[^:@/]*):(?P<password>[^@]*)@")
+_QUERY_PASSWORD = re.compile(r"(?i)(password=)([^&]*)")
+
+
+def _secrets(url: str) -> list[str]:
+    """The password(s) a URL holds, read by pattern so that a URL the driver rejects still gives them up."""
+    found = [m.group("password") for m in [_USERINFO.match(url)] if m]
+    found += [m.group(2) for m in _QUERY_PASSWORD.finditer(url)]
+    secrets = {s for s in found if s}
+    return sorted(secrets | {unquote(s) for s in secrets}, key=len, reverse=True)
+
+
+def _redacted(url: str) -> str:
+    """``url`` with its password(s) replaced by ***."""
+    return _scrub(url, url)
+
+
+def _scrub(text: str, url: str) -> str:
+    """``text`` with every password of ``url`` replaced by *** (for messages that quote the URL)."""
+    for secret in _secrets(url):
+        text = text.replace(secret, "***")
+    return text
+
+
 def _where(url: str) -> tuple[dict, str]:
     """The URL's connection settings and 'postgresql://user@host:port/database' (no password) for messages."""
     import psycopg
@@ -159,7 +185,7 @@ def _where(url: str) -> tuple[dict, str]:
     try:
         info = conninfo_to_dict(url)
     except psycopg.Error as exc:
-        raise BigPanelError(f"bad PostgreSQL URL: {_first_line(exc)}") from None
+        raise BigPanelError(f"bad PostgreSQL URL {_redacted(url)}: {_scrub(_first_line(exc), url)}") from None
     user = f"{info['user']}@" if info.get("user") else ""
     host = info.get("host") or "localhost"
     return info, f"postgresql://{user}{host}:{info.get('port') or 5432}/{info.get('dbname') or ''}"
@@ -202,7 +228,7 @@ def open_postgres(
     try:
         con = psycopg.connect(url, autocommit=True, application_name="bigpanel", **timeout)
     except psycopg.Error as exc:
-        raise BigPanelError(f"cannot connect to PostgreSQL at {where}: {_first_line(exc)}") from None
+        raise BigPanelError(f"cannot connect to PostgreSQL at {where}: {_scrub(_first_line(exc), url)}") from None
     eng = PostgresEngine(con, on_step=on_step, driver_errors=(psycopg.Error,))
     try:
         schema, name = _resolve(eng, table, where)

@@ -105,24 +105,83 @@ def _complete(spec: Spec) -> str:
     return " AND ".join(parts)
 
 
+def _key(spec: Spec, column: str) -> str:
+    """An effect or cluster column; NaN and +-inf in a floating column become NULL (an incomplete row)."""
+    if column in spec.float_keys:
+        return f"CASE WHEN isfinite({ident(column)}) THEN {ident(column)} END"
+    return ident(column)
+
+
+def _value(spec: Spec, column: str, j: int) -> str:
+    """Value column j as a double; a wide integer first loses its offset in the integer domain."""
+    if column in spec.wide_values:
+        return f"CAST(CAST({ident(column)} AS DECIMAL(38, 0)) - CAST(o.o{j} AS DECIMAL(38, 0)) AS DOUBLE)"
+    return f"CAST({ident(column)} AS DOUBLE)"
+
+
+def _store_offsets(eng: Engine, spec: Spec) -> bool:
+    """Store ``bp_offset``: an integer (exact as a double) per value column, 0 unless the column is wide.
+
+    A BIGINT near 2^62 cast to a double keeps 53 of its bits; the difference from
+    an integer offset inside the data's range is exact in DECIMAL(38, 0) (a 128-bit integer
+    in DuckDB, NUMERIC in PostgreSQL, DECIMAL in Spark) and, when the
+    column's spread is below 2^53, exact as a double too.
+    """
+    if not spec.wide_values:
+        return False
+    names = [spec.y, *spec.x]
+    mins = join([f"CAST(min({ident(c)}) AS DOUBLE) AS o{j}" for j, c in enumerate(names) if c in spec.wide_values])
+    row = eng.one("integer offsets", render("wide_offsets", columns=mins))
+    values = {f"o{j}": float(round(row.get(f"o{j}") or 0.0)) for j in range(len(names))}
+    put_one_row(eng, "bp_offset", values)
+    return True
+
+
+def value_offsets(eng: Engine, spec: Spec) -> np.ndarray:
+    """The offsets ``bp_filtered`` subtracted from each value column (zeros without wide integers)."""
+    if not spec.wide_values:
+        return np.zeros(len(spec.value_aliases))
+    row = eng.one("read the integer offsets", render("read_offsets"))
+    return np.array([row[f"o{j}"] for j in range(len(spec.value_aliases))], dtype=float)
+
+
+def check_scale(spec: Spec, shift: np.ndarray) -> None:
+    """Refuse values whose squares leave a double's range (about 1e-308 to 1e308) in one line.
+
+    Sums of squares are formed from the shifted values: a typical magnitude beyond
+    1e150 overflows them, one below 1e-150 underflows them to zero (a regressor
+    would look absorbed).
+    """
+    for name, m in zip([spec.y, *spec.x], np.abs(shift)):
+        if m > 1e150 or 0 < m < 1e-150:
+            raise BigPanelError(
+                f"column {name!r} holds values near {m:.0e}: their squares leave the range of a double; "
+                "rescale it (for example divide by a power of ten) and fit again"
+            )
+
+
 def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     """``bp_filtered`` (used columns, internal names) and the view ``bp_sample``.
 
     ``materialize`` makes ``bp_filtered`` a table, read once from the source: for
-    CSV, whose every scan would otherwise parse the text again.
+    CSV, whose every scan would otherwise parse the text again. A volatile filter
+    (``random() < 0.5``) always makes it a table, so that every pass sees the
+    same sample (as a view, each pass would draw another one).
     """
-    columns = [f"CAST({ident(spec.y)} AS DOUBLE) AS v0"]
-    columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
+    offsets = _store_offsets(eng, spec)
+    columns = [f"{_value(spec, name, j)} AS v{j}" for j, name in enumerate([spec.y, *spec.x])]
     for d, cols in enumerate(spec.fe):
-        columns += [f"{ident(c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
-    columns += [f"{ident(c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
+        columns += [f"{_key(spec, c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
+    columns += [f"{_key(spec, c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
     if spec.time:
         columns.append(f"{ident(spec.time)} AS tm")
     if spec.weights:
         columns.append(f"CAST({ident(spec.weights)} AS DOUBLE) AS w")
     where = f"({spec.where})" if spec.where else "TRUE"
+    materialize = materialize or spec.volatile_where
     kind = "TABLE" if materialize else "VIEW"
-    eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where), raw=materialize)
+    eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where,
+                                       offsets=" CROSS JOIN bp_offset AS o" if offsets else ""), raw=materialize)
     eng.execute("sample view", render("sample", complete=_complete(spec)))
 
 
@@ -150,7 +209,7 @@ def start(eng: Engine, spec: Spec, source_kind: str) -> Start:
     it reads the rows (and counts as a pass) under a filter on Parquet or on an
     engine whose count scans its tables.
     """
-    scans = eng.count_scans or (bool(spec.where) and source_kind != "csv")
+    scans = eng.count_scans or (bool(spec.where) and source_kind != "csv" and not spec.volatile_where)
     n_filtered = int(eng.one("count rows", render("count_filtered"), raw=scans)["n"])
     n_source = source_rows(eng, spec, n_filtered)
     avgs = join([f"avg({v}) AS m{j}" for j, v in enumerate(spec.value_aliases)])
@@ -158,8 +217,9 @@ def start(eng: Engine, spec: Spec, source_kind: str) -> Start:
     if row["m0"] is None:
         raise no_complete_rows(incomplete(eng, spec), n_filtered)
     shift = np.array([row[f"m{j}"] for j in range(len(spec.value_aliases))], dtype=float)
+    check_scale(spec, shift)
     put_one_row(eng, "bp_shift", {f"m{j}": float(v) for j, v in enumerate(shift)})
-    return Start(n_source, n_filtered, shift)
+    return Start(n_source, n_filtered, shift + value_offsets(eng, spec))
 
 
 def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:

@@ -47,7 +47,7 @@ def fit_renderable(res: FitResult) -> Group:
         table.add_column(col, justify="right")
     for i, name in enumerate(res.names):
         table.add_row(
-            name,
+            Text(name),  # a name is plain text: never rich markup or emoji codes
             _g(res.coef[i]),
             _g(res.std_error[i], 4),
             f"{res.t[i]:.2f}",

@@ -9,17 +9,22 @@ in the order given, it is explained by the regressors already kept up to a
 residual share below 1e-12 of its demeaned sum of squares. The slopes solve
 (X~'X~) b = X~'y~ on the kept columns, scaled to unit diagonal, by an SVD-based
 least-squares solver; the condition number reported is that of the scaled X~.
+Sums that overflowed (values beyond about 1e150) are refused in one line.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from typing import Callable
 
 import numpy as np
 from scipy import linalg
 
+from .errors import BigPanelError
+
 ABSORBED_SHARE = 1e-18
 COLLINEAR_SHARE = 1e-12
+RSS_CANCELLED = 1e-6  # RSS / y~'y~ below this: the cross-product formula kept < ~10 of its 16 digits
 ILL_CONDITIONED = 1e5  # cond(X~) above this: cond(X~'X~) > 1e10, the normal equations keep < 6 digits
 
 
@@ -37,8 +42,19 @@ class Slopes:
 
 def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slopes:
     """Slopes of column 0 of ``q`` on the others; see the module docstring for the rules."""
+    if not all(np.all(np.isfinite(a)) for a in (q, st, tt)):
+        bad = "the outcome" if not np.all(np.isfinite(q[0])) else "a regressor"
+        raise BigPanelError(
+            f"the sums of squares of {bad} overflowed a double (values beyond about 1e150 in magnitude): "
+            "rescale it and fit again"
+        )
     m = q.shape[0]
     total = np.maximum(tt - st**2 / n, 0.0)
+    if total[0] <= 0 or q[0, 0] <= ABSORBED_SHARE * total[0]:
+        raise BigPanelError(
+            "the outcome does not vary " + ("at all" if total[0] <= 0 else "within the fixed-effect levels")
+            + ": every slope would be 0 with no information; check the outcome column or the effects"
+        )
     dropped: list[tuple[int, str]] = []
     keep: list[int] = []
     for j in range(1, m):
@@ -66,3 +82,18 @@ def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slope
     eig = np.linalg.eigvalsh(scaled)
     condition = float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else float("inf")
     return Slopes(keep, dropped, beta, bread, max(rss, 0.0), condition)
+
+
+def exact_rss(slopes: Slopes, yy: float, residual: Callable[[list[int], np.ndarray], float]) -> tuple[Slopes, str]:
+    """The RSS, from the cross-products or, when they cancel, from a residual pass ``residual(keep, beta)``.
+
+    RSS = y~'y~ - 2 b'X~'y~ + b'X~'X~b carries a rounding error of a few units of
+    1e-16 times y~'y~, so when RSS / y~'y~ (one minus the within R-squared) is
+    below ``RSS_CANCELLED`` at most about ten digits are left (none when a
+    1e8-scale fit leaves a residual of scale 1). The residual pass forms each
+    residual before squaring it, whose error is about 1e-16 times |y~_i| per
+    row instead. Returns the slopes with the RSS used and where it came from.
+    """
+    if not slopes.keep or yy <= 0 or slopes.rss > RSS_CANCELLED * yy:
+        return slopes, "cross-products"
+    return replace(slopes, rss=max(float(residual(slopes.keep, slopes.beta)), 0.0)), "residual pass"

@@ -6,8 +6,11 @@ files, and every later pass reads through it.
 
 from __future__ import annotations
 
+import csv
 import glob as globlib
+import gzip
 import os
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
@@ -43,6 +46,7 @@ def connect(
     if temp_dir:
         Path(temp_dir).mkdir(parents=True, exist_ok=True)
         config["temp_directory"] = temp_dir
+    threads = threads or _threads_for(memory_limit)
     if threads:
         config["threads"] = int(threads)
     try:
@@ -51,6 +55,31 @@ def connect(
         raise BigPanelError(f"bad engine setting ({_first_line(exc)})") from None
     con.execute(render("session_settings")).fetchall()
     return con
+
+
+_SIZE = re.compile(r"^\s*([0-9.]+)\s*([KMGT]?)(I?B)?\s*$", re.IGNORECASE)
+MEMORY_PER_THREAD = 256 * 2**20  # bytes of --memory-limit per DuckDB thread, at least
+
+
+def _threads_for(memory_limit: str | None) -> int | None:
+    """Threads under a tight memory limit: one per ``MEMORY_PER_THREAD`` (at least 1, at most the cores).
+
+    Every thread builds its own partition of a grouped pass's hash table before
+    spilling; under 100MB with two threads the 10M-row three-effect demo ran out
+    of memory where one thread spilled and finished. None (DuckDB's default, all
+    cores) when no limit is set or the limit leaves every core its share.
+    """
+    if not memory_limit:
+        return None
+    m = _SIZE.match(memory_limit)
+    if not m:
+        return None  # DuckDB's own parser judges (and names) the value
+    unit = m.group(2).upper()
+    base = 1024 if (m.group(3) or "").upper() == "IB" else 1000
+    size = float(m.group(1)) * base ** "KMGT".find(unit) * base if unit else float(m.group(1))
+    cores = os.cpu_count() or 1
+    wanted = max(1, int(size // MEMORY_PER_THREAD))
+    return wanted if wanted < cores else None
 
 
 def _kind_of(location: str, table: str | None) -> str:
@@ -90,6 +119,20 @@ def _check_not_empty(path: str) -> None:
         raise BigPanelError(f"file {path} is empty")
 
 
+def _check_header(path: str, delim: str) -> None:
+    """A CSV header naming a column twice is refused (the reader would rename the second silently)."""
+    opener = gzip.open if path.lower().endswith(".gz") else open
+    try:
+        with opener(path, "rt", newline="", encoding="utf-8", errors="replace") as fh:
+            header = next(csv.reader(fh, delimiter=delim), [])
+    except (OSError, csv.Error):
+        return  # the reader's own error names the problem
+    names = [h.strip() for h in header]
+    repeated = sorted({n for n in names if names.count(n) > 1})
+    if repeated:
+        raise BigPanelError(f"CSV {path}: the header names column {repeated[0]!r} more than once; rename one of them")
+
+
 def _check_same_schema(con: duckdb.DuckDBPyConnection, files: list[str], paths: str) -> None:
     """All files of a glob must hold the same columns (names and types), or nothing is read."""
     rows = con.execute(render("parquet_schemas", paths=paths)).fetchall()
@@ -125,6 +168,7 @@ def open_source(
                 raise BigPanelError(f"file not found: {location}")
             _check_not_empty(location)
             delim = "\t" if location.lower().endswith((".tsv", ".tsv.gz")) else ","
+            _check_header(location, delim)
             try:
                 con.execute(render("source_csv", path=literal(location), delim=literal(delim))).fetchall()
             except duckdb.Error as exc:

@@ -9,6 +9,7 @@ and cluster column j is ``clj``.
 from __future__ import annotations
 
 import difflib
+import json
 import re
 
 import duckdb
@@ -24,6 +25,27 @@ _NUMERIC = re.compile(
     r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
     r"|FLOAT|DOUBLE|REAL|DECIMAL.*|BOOLEAN)$"
 )
+_FLOATS = ("FLOAT", "DOUBLE", "REAL")
+# integer types whose values need not fit a double's 53-bit mantissa (DECIMAL keeps its fraction: cast directly)
+_WIDE = re.compile(r"^(BIGINT|UBIGINT|HUGEINT|UHUGEINT)$")
+
+# The filter is a row expression over the source's columns: these parser node classes, the
+# functions below, and nothing else (no subquery, table function, parameter, lambda, star).
+_NODE_CLASSES = {"COLUMN_REF", "CONSTANT", "COMPARISON", "CONJUNCTION", "BETWEEN", "OPERATOR", "CASE", "CAST",
+                 "FUNCTION", "TYPE"}
+_OPERATOR_TYPES = {"OPERATOR_NOT", "OPERATOR_IS_NULL", "OPERATOR_IS_NOT_NULL", "COMPARE_IN", "COMPARE_NOT_IN",
+                   "OPERATOR_COALESCE", "OPERATOR_NULLIF"}
+_BOOLEAN_FUNCTIONS = {"~~", "!~~", "~~*", "!~~*", "isfinite", "isnan", "isinf", "starts_with", "ends_with",
+                      "contains", "prefix", "suffix", "regexp_matches"}
+VOLATILE_FUNCTIONS = {"random", "now", "current_timestamp", "get_current_timestamp", "get_current_time",
+                      "transaction_timestamp", "today", "uuid", "gen_random_uuid"}
+DETERMINISTIC_FUNCTIONS = _BOOLEAN_FUNCTIONS | {
+    "+", "-", "*", "/", "//", "%", "**", "^", "||", "abs", "round", "floor", "ceil", "ceiling", "trunc", "sign",
+    "ln", "log", "log2", "log10", "exp", "sqrt", "cbrt", "power", "pow", "mod", "lower", "upper", "length",
+    "strlen", "substr", "substring", "trim", "ltrim", "rtrim", "concat", "year", "month", "day", "dayofweek",
+    "dayofyear", "week", "quarter", "hour", "minute", "second", "date_part", "datepart", "extract", "date_trunc",
+    "datetrunc", "coalesce", "least", "greatest", "nullif", "ifnull",
+}
 
 
 @dataclass(frozen=True)
@@ -42,6 +64,13 @@ class Spec:
     where: str | None
     time: str | None = None
     weights: str | None = None
+    float_keys: tuple[str, ...] = ()  # effect and cluster columns of a floating type (NaN/inf possible)
+    wide_values: tuple[str, ...] = ()  # outcome/regressors of an integer type wider than a double
+
+    @property
+    def volatile_where(self) -> bool:
+        """Whether the filter calls a function whose value changes between evaluations (random, now, ...)."""
+        return bool(self.where) and bool(_functions(_parse_where(self.where)) & VOLATILE_FUNCTIONS)
 
     @property
     def w(self) -> str:
@@ -149,28 +178,121 @@ def build_spec(
     for name in cluster:
         _check_column(name, source, "cluster")
     if where is not None:
-        where = canonical_where(where) if where.strip() else None
+        where = canonical_where(where, source.columns) if where.strip() else None
     if time is not None:
         _check_column(time, source, "time")
     if weights is not None:
         _check_column(weights, source, "weights")
         if not _NUMERIC.match(source.columns[weights]):
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
+    keys = [c for cols in effects for c in cols] + cluster
     return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where, time=time,
-                weights=weights)
+                weights=weights, float_keys=tuple(c for c in keys if source.columns[c] in _FLOATS),
+                wide_values=tuple(c for c in [y, *x] if _WIDE.match(source.columns[c])))
 
 
-def canonical_where(where: str) -> str:
+def canonical_where(where: str, columns: dict[str, str] | None = None) -> str:
     """Parse ``where`` as exactly one SQL expression and return DuckDB's own rendering of it.
 
     Only the re-rendered expression is ever placed in a query, so text that closes
     the parenthesis, comments out the rest or adds a statement cannot get through.
+    With ``columns`` (the source's), the rendering is parsed again by DuckDB's own
+    parser and walked: only references to those columns, literals, operators,
+    comparisons, BETWEEN, IN lists, IS NULL, CASE, CAST and the functions of
+    ``DETERMINISTIC_FUNCTIONS`` or ``VOLATILE_FUNCTIONS`` may appear, and the
+    expression must be a condition (true or false), not a value.
     """
     try:
-        return str(duckdb.SQLExpression(where))
+        text = str(duckdb.SQLExpression(where))
     except duckdb.Error as exc:
         detail = str(exc).strip().splitlines()[0]
         raise BigPanelError(f"--where {where!r} must be a single SQL expression ({detail})") from None
+    if columns is not None:
+        tree = _parse_where(text)
+        _walk(tree, columns, where)
+        if not _is_condition(tree, columns):
+            raise BigPanelError(f"--where {where!r} is a value, not a condition: compare it (as in 'x > 0')")
+    return text
+
+
+def _parse_where(text: str) -> dict:
+    """DuckDB's parse tree of the filter as placed in the query: ``... WHERE (text)``."""
+    con = duckdb.connect(":memory:", config={"enable_external_access": False})
+    try:
+        raw = con.execute("SELECT json_serialize_sql($q)", {"q": f"SELECT * FROM bp_source WHERE ({text})"}).fetchone()
+    finally:
+        con.close()
+    parsed = json.loads(raw[0])
+    if parsed.get("error") or len(parsed["statements"]) != 1:
+        raise BigPanelError(f"--where {text!r} must be a single SQL expression")
+    return parsed["statements"][0]["node"]["where_clause"]
+
+
+def _walk(node: object, columns: dict[str, str], where: str) -> None:
+    """Refuse, with one line naming it, the first part of the filter outside the allow-list."""
+    if isinstance(node, list):
+        for item in node:
+            _walk(item, columns, where)
+        return
+    if not isinstance(node, dict):
+        return
+    kind = node.get("class")
+    if kind is not None:
+        _check_node(node, kind, columns, where)
+    for key, value in node.items():
+        if key != "qualified_name":
+            _walk(value, columns, where)
+
+
+def _check_node(node: dict, kind: str, columns: dict[str, str], where: str) -> None:
+    refuse = f"--where {where!r} is not a valid filter: "
+    if kind not in _NODE_CLASSES:
+        raise BigPanelError(refuse + f"{kind.lower().replace('_', ' ')} is not allowed in a row filter "
+                            "(only the source's columns, literals, operators and plain functions)")
+    if kind == "COLUMN_REF":
+        names = node["column_names"]
+        if len(names) != 1 or names[0] not in columns:
+            raise BigPanelError(refuse + f"{'.'.join(names)!r} is not a column of the source")
+    elif kind == "OPERATOR" and node["type"] not in _OPERATOR_TYPES:
+        raise BigPanelError(refuse + f"the operator {node['type'].lower()} is not allowed in a row filter")
+    elif kind == "FUNCTION":
+        name = str(node["function_name"]).lower()
+        plain = not node["schema"] and not node["catalog"] and not node["filter"] and not node["distinct"]
+        if not plain or not (name in DETERMINISTIC_FUNCTIONS or name in VOLATILE_FUNCTIONS):
+            raise BigPanelError(refuse + f"the function {node['function_name']!r} is not allowed in a row filter "
+                                "(allowed: comparisons, arithmetic and plain scalar functions such as abs, ln, "
+                                "lower, year, coalesce)")
+
+
+def _is_condition(node: dict, columns: dict[str, str]) -> bool:
+    """Whether the expression's value is true/false/NULL by its form (the outcome of a boolean type check)."""
+    kind = node["class"]
+    if kind in ("COMPARISON", "CONJUNCTION", "BETWEEN"):
+        return True
+    if kind == "OPERATOR":
+        return node["type"] not in ("OPERATOR_COALESCE", "OPERATOR_NULLIF")
+    if kind == "FUNCTION":
+        return str(node["function_name"]).lower() in _BOOLEAN_FUNCTIONS
+    if kind == "COLUMN_REF":
+        return columns.get(node["column_names"][0]) == "BOOLEAN"
+    if kind == "CONSTANT":
+        return node.get("literal", {}).get("kind") in ("BOOLEAN", "NULL_LITERAL")
+    if kind == "CASE":
+        branches = [c["then_expr"] for c in node["case_checks"]] + [node["else_expr"]]
+        return all(_is_condition(b, columns) for b in branches)
+    if kind == "CAST":
+        return node["type_expr"].get("type_name", "").upper() in ("BOOLEAN", "BOOL")
+    return False
+
+
+def _functions(node: object) -> set[str]:
+    """Lower-case names of every function called in a parse tree."""
+    if isinstance(node, list):
+        return set().union(*(_functions(n) for n in node)) if node else set()
+    if not isinstance(node, dict):
+        return set()
+    own = {str(node["function_name"]).lower()} if node.get("class") == "FUNCTION" else set()
+    return own.union(*(_functions(v) for v in node.values()))
 
 
 def check_where(eng: Engine, where: str) -> None:

@@ -7,7 +7,8 @@ import pyarrow as pa
 
 from .engine import Engine
 from .inference import ClusterTerm
-from .moments import Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, store_effects
+from .moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
+                      store_effects)
 from .project import Projection, components, expanded_cross_products, solve_effects
 from .reduce import (IN_ENGINE, ONE_WAY, ROW_CODES, Plan, Reduction, Start, create_views, incomplete, plan_reduction,
                      reduce_cells, start)
@@ -146,6 +147,11 @@ class SqlBackend:
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
         return meat_cluster(self.eng, self.spec, keep, beta)
 
+    def rss(self, keep: list[int], beta: np.ndarray) -> float:
+        """The residual sum of squares from a pass over the demeaned rows."""
+        self._demeaned()
+        return residual_ss(self.eng, self.spec, keep, beta)
+
     def level_keys(self, d: int) -> pa.Table:
         sql = render("level_table", columns=join(self.spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")
         return self.eng.arrow("effect keys", sql)
@@ -156,7 +162,7 @@ def _accurate(q: np.ndarray, squares: np.ndarray) -> bool:
     t'Wt / E'WE of a column (``squares`` holds t'Wt) times the condition number of the scaled
     E'WE stays below ``TRUSTED``; a column with no variation left always fails."""
     diag = np.diag(q)
-    if np.any(diag <= 0):
+    if not np.all(np.isfinite(q)) or np.any(diag <= 0):
         return False
     scale = np.sqrt(diag)
     eig = np.linalg.eigvalsh(q / np.outer(scale, scale))

@@ -3,5 +3,5 @@
 -- A view over Parquet and tables; a table (parsed once) over CSV.
 CREATE OR REPLACE TEMP {{kind}} bp_filtered AS
 SELECT {{columns}}
-FROM bp_source
+FROM bp_source{{offsets}}
 WHERE {{where}}

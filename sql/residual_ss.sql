@@ -1,0 +1,5 @@
+-- The residual sum of squares formed row by row: sum of w (y~ - x~'b)^2 (w = 1 unweighted),
+-- with b from the one-row table bp_coef; used when the cross-product formula cancels.
+SELECT fsum({{weight}}r * r) AS rss
+FROM (SELECT {{resid}} AS r{{carry}}
+      FROM bp_tilde CROSS JOIN bp_coef AS b) AS t

@@ -1,0 +1,50 @@
+"""SIGINT sent to a child `bigpanel fit` at several moments: exit 130, one line, no file (issue 19 item 11).
+
+Common practice: a Unix command interrupted by SIGINT exits 128 + 2.
+"""
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import duckdb
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+@pytest.fixture(scope="module")
+def big_panel(tmp_path_factory):
+    path = tmp_path_factory.mktemp("interrupt") / "p.parquet"
+    con = duckdb.connect()
+    con.execute(f"""COPY (SELECT i // 3 AS g, (i * 7) % 997 AS h, sin(i) AS x,
+                    cos(i * 3) + 0.5 * sin(i) AS y FROM range(3000000) r(i)) TO '{path}' (FORMAT parquet)""")
+    con.close()
+    return path
+
+
+def _start(path: Path, save: Path) -> subprocess.Popen:
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    code = "from bigpanel.cli import main; import sys; sys.argv[0] = 'bigpanel'; print('ready', flush=True); main()"
+    return subprocess.Popen(
+        [sys.executable, "-c", code, "fit", str(path), "y ~ x", "--fe", "g", "--fe", "h", "--cluster", "h",
+         "--save", str(save), "--quiet"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+
+
+@pytest.mark.parametrize("delay", [0.1, 0.3, 1.0, 2.5])
+def test_sigint_exits_130_and_writes_nothing(big_panel, tmp_path, delay):
+    save = tmp_path / "fit.json"
+    proc = _start(big_panel, save)
+    assert proc.stdout.readline().strip() == "ready"  # past the imports: the handler is next
+    time.sleep(delay)
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=120)
+    if proc.returncode == 0:
+        pytest.skip(f"the fit finished within {delay} s, before the signal")
+    assert proc.returncode == 130, err
+    assert err.strip() == "bigpanel: interrupted; nothing was written"
+    assert not save.exists() and not list(tmp_path.glob(".*.tmp"))
