@@ -32,7 +32,7 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     )
     try:
         spec = build_spec(
-            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("vcov"), model.get("where")
+            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("variance"), model.get("where")
         )
         aggs = [f"sum(CAST({ident(c)} AS DOUBLE)) AS s{i}" for i, c in enumerate([spec.y, *spec.x])]
         keys = [c for cols in spec.fe for c in cols] + list(spec.cluster)

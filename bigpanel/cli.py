@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import enum
 import functools
 import inspect
 import json
@@ -12,6 +13,7 @@ from pathlib import Path
 from typing import Callable, Iterator, List, Optional
 
 import typer
+from typer.core import TyperGroup
 from rich import box
 from rich.console import Console
 from rich.table import Table
@@ -20,14 +22,56 @@ from .bench import bench_renderable, compare_engines
 from .demo import write_demo
 from .errors import BigPanelError
 from .files import write_parquet, write_text
+from .estimate import ENGINES
 from .estimate import fit as run_fit
+from .family import ESTIMATORS
+from .spec import SINGLETONS, VARIANCE_TYPES
 from .describe import describe_panel, describe_renderable
 from .plots import plot_effects, plot_periods
 from .report import fit_renderable
 from .tables import build_table, load_fits
+from .tables import RENDERERS
 from .tables import render as render_table
 
+# options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
+RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
+
+
+def _choices(name: str, values: object) -> type[enum.Enum]:
+    """An enumeration of ``values``, so that the help lists them and typer refuses any other."""
+    return enum.Enum(name, {str(v): str(v) for v in values}, type=str)  # type: ignore[return-value]
+
+
+Variance = _choices("Variance", VARIANCE_TYPES)
+Singletons = _choices("Singletons", SINGLETONS)
+Estimator = _choices("Estimator", ESTIMATORS)
+EngineName = _choices("EngineName", ENGINES)
+TableFormat = _choices("TableFormat", RENDERERS)
+
+
+class OneLineErrors(TyperGroup):
+    """Usage mistakes (unknown command or option, bad or missing value) as one line on stderr, exit 2."""
+
+    def main(self, *args: object, standalone_mode: bool = True, **kwargs: object) -> object:
+        if not standalone_mode:
+            return super().main(*args, standalone_mode=False, **kwargs)
+        try:
+            code = super().main(*args, standalone_mode=False, **kwargs)
+        except typer.Abort:
+            err.print("bigpanel: aborted")
+            sys.exit(1)
+        except Exception as exc:  # noqa: BLE001 - click's usage errors carry exit_code 2
+            if not hasattr(exc, "format_message") or getattr(exc, "exit_code", None) != 2:
+                raise
+            name = getattr(exc, "option_name", None)
+            message = f"{name} is no longer an option: use {RENAMED[name]}" if name in RENAMED else exc.format_message()
+            err.print(f"[bold red]bigpanel: error:[/] {' '.join(message.split())} (see --help)", highlight=False)
+            sys.exit(2)
+        sys.exit(code if isinstance(code, int) else 0)
+
+
 app = typer.Typer(
+    cls=OneLineErrors,
     help=(
         "Fixed-effects (within) regressions on panels too big for memory. The data stay in "
         "DuckDB; only small matrices reach Python.\n\n"
@@ -89,12 +133,17 @@ def _model_options(
     cluster: Optional[List[str]] = typer.Option(
         None, "--cluster", help="Cluster column for cluster-robust (CR1) errors; repeat for multi-way clustering."
     ),
-    vcov: Optional[str] = typer.Option(None, "--vcov", help="iid, hc1 or cluster (default: cluster if --cluster, else iid)."),
+    variance: Optional[Variance] = typer.Option(
+        None, "--variance",
+        help="Standard errors: classical, hc1 (robust to unequal variances) or cr1 (cluster-robust; implied by --cluster).",
+    ),
     where: Optional[str] = typer.Option(None, "--where", help="Row filter: one SQL boolean expression over the source's columns."),
     table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
     tol: float = typer.Option(1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns."),
     max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations."),
-    keep_singletons: bool = typer.Option(False, "--keep-singletons", help="Keep rows alone in a fixed-effect level."),
+    singletons: Singletons = typer.Option(
+        "drop", "--singletons", help="Rows alone in a level of some fixed effect: drop (default) or keep."
+    ),
     memory_limit: Optional[str] = typer.Option(None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills."),
     temp_dir: Optional[str] = typer.Option(None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit."),
     threads: Optional[int] = typer.Option(None, "--threads", help="DuckDB worker threads (default: all cores)."),
@@ -115,8 +164,8 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
         shared = {name: kwargs.pop(name) for name in _SHARED}
         with guarded(bool(shared.pop("debug"))):
             shared["x"] = shared["x"] or None
-            shared["drop_singletons"] = not shared.pop("keep_singletons")
-            fn(model=shared, **kwargs)
+            shared = {k: v.value if isinstance(v, enum.Enum) else v for k, v in shared.items()}
+            fn(model=shared, **{k: v.value if isinstance(v, enum.Enum) else v for k, v in kwargs.items()})
 
     params = list(_SHARED.values()) + own
     wrapper.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
@@ -128,15 +177,20 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
 @model_command
 def fit_command(
     model: dict,
-    engine: str = typer.Option(
+    engine: EngineName = typer.Option(
         "duckdb", "--engine", help="duckdb (default; data stay in the engine), spark (Spark SQL) or memory (load into numpy)."
     ),
     spark_master: Optional[str] = typer.Option(None, "--spark-master", help="Spark master URL for --engine spark (default local[*])."),
-    estimator: str = typer.Option(
-        "within", "--estimator", help="within (fixed effects, default), between, fd (first differences) or random (GLS)."
+    estimator: Estimator = typer.Option(
+        "within", "--estimator",
+        help="within (fixed effects, default), between (unit means), first-difference or random-effects (GLS).",
     ),
-    time: Optional[str] = typer.Option(None, "--time", help="Period column that orders rows within a unit (for --estimator fd)."),
-    hausman: bool = typer.Option(False, "--hausman", help="With --estimator random: Hausman test against the within fit."),
+    time: Optional[str] = typer.Option(
+        None, "--time", help="Period column that orders rows within a unit (for --estimator first-difference)."
+    ),
+    hausman: bool = typer.Option(
+        False, "--hausman", help="With --estimator random-effects: Hausman test against the within fit."
+    ),
     weights: Optional[str] = typer.Option(
         None, "--weights", help="Column of analytic weights (any estimator); rows with a missing or non-positive weight are dropped."
     ),
@@ -261,7 +315,7 @@ def describe_command(
 @app.command("table")
 def table_command(
     fits: List[Path] = typer.Argument(..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json')."),
-    to: str = typer.Option("terminal", "--to", help="terminal, markdown, latex (booktabs) or csv."),
+    to: TableFormat = typer.Option("terminal", "--to", help="terminal, markdown, latex (booktabs) or csv."),
     stars: bool = typer.Option(False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1)."),
     digits: int = typer.Option(4, "--digits", help="Decimals shown for estimates and standard errors."),
     label: Optional[List[str]] = typer.Option(None, "--label", help="Column heading; repeat once per fit."),
@@ -274,7 +328,7 @@ def table_command(
     """
     with guarded(debug):
         table = build_table(load_fits([str(f) for f in fits]), stars=stars, digits=digits, labels=label or None)
-        rendered = render_table(table, to)
+        rendered = render_table(table, to.value)
         if out_file is not None:
             if not isinstance(rendered, str):
                 raise BigPanelError("--out needs a file format: use --to markdown, latex or csv")

@@ -27,7 +27,7 @@ from .results import FitResult
 from .solve import ILL_CONDITIONED, solve_slopes
 from .source import open_session
 from .sqlpath import SqlBackend
-from .spec import build_spec, check_where, parse_formula
+from .spec import SINGLETONS, build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
 ENGINES = {"duckdb": SqlBackend, "spark": SqlBackend, "memory": MemoryBackend}
@@ -49,12 +49,12 @@ def fit(
     x: str | Sequence[str] | None = None,
     fe: str | Sequence[str] = (),
     cluster: str | Sequence[str] | None = None,
-    vcov: str | None = None,
+    variance: str | None = None,
     where: str | None = None,
     table: str | None = None,
     tol: float = 1e-8,
     max_iter: int = 10_000,
-    drop_singletons: bool = True,
+    singletons: str = "drop",
     memory_limit: str | None = None,
     temp_dir: str | None = None,
     threads: int | None = None,
@@ -72,18 +72,19 @@ def fit(
     ``source`` is a Parquet file, folder or glob, a CSV file, or a DuckDB file with
     ``table``. Either ``formula`` (``"y ~ x1 + x2"``) or ``y`` and ``x`` name the
     variables; ``fe`` lists effect columns (``"a:b"`` for one effect per pair).
-    ``vcov`` is ``iid`` (default), ``hc1`` or ``cluster`` (CR1 on ``cluster``, one
-    column or several for multi-way clustering).
+    ``variance`` is ``classical`` (default), ``hc1`` or ``cr1`` (cluster-robust on
+    ``cluster``, one column or several for multi-way clustering; the default when
+    ``cluster`` is given).
     Rows with a missing or non-finite used value are dropped listwise; rows alone
     in a level of any effect (singletons) are dropped unless
-    ``drop_singletons=False``. See :mod:`bigpanel.inference` and
+    ``singletons="keep"``. See :mod:`bigpanel.inference` and
     :mod:`bigpanel.dof` for the variance formulas and degrees of freedom.
     ``engine="memory"`` loads the used columns into numpy and fits the same
     model there (the reference for checking the SQL path on a sample);
     ``engine="spark"`` runs the same SQL on Spark (``spark_master``, default
     local mode); a ``postgresql://`` source runs it on PostgreSQL.
-    ``estimator`` is ``within`` (default), ``between``, ``fd`` (first differences
-    along ``time``) or ``random`` (GLS, Swamy-Arora; ``hausman=True`` adds the
+    ``estimator`` is ``within`` (default), ``between``, ``first-difference`` (along
+    ``time``) or ``random-effects`` (GLS, Swamy-Arora; ``hausman=True`` adds the
     test against the within fit); for those, the one ``fe`` column is the unit.
     See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
     machine's memory) bounds the pair tables fetched to numpy; above it the
@@ -108,16 +109,19 @@ def fit(
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     if estimator not in ESTIMATORS:
         raise BigPanelError(f"unknown estimator {estimator!r}: choose one of {', '.join(ESTIMATORS)}")
-    if hausman and estimator != "random":
-        raise BigPanelError("--hausman compares fixed and random effects: use it with --estimator random")
+    if hausman and estimator != "random-effects":
+        raise BigPanelError("--hausman compares fixed and random effects: use it with --estimator random-effects")
+    if singletons not in SINGLETONS:
+        raise BigPanelError(f"--singletons {singletons!r}: choose one of {', '.join(SINGLETONS)}")
+    drop_singletons = singletons == "drop"
     if estimator != "within":
         return _fit_family(
-            estimator, source, y, xs, _as_list(fe), _as_list(cluster), vcov, where, table, time, hausman, weights,
+            estimator, source, y, xs, _as_list(fe), _as_list(cluster), variance, where, table, time, hausman, weights,
             engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads),
             on_step, started,
         )
     if time is not None:
-        raise BigPanelError("--time orders rows for --estimator fd; the within estimator does not use it")
+        raise BigPanelError("--time orders rows for --estimator first-difference; the within estimator does not use it")
     eng, src = open_session(
         source,
         table,
@@ -129,7 +133,7 @@ def fit(
         on_step=on_step,
     )
     try:
-        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), vcov, where, weights=weights)
+        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights)
         if spec.where:
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
@@ -220,7 +224,7 @@ def fit(
         names=[names_all[j] for j in slopes.keep],
         coef=slopes.beta,
         **_inference_fields(inf),
-        vcov_type=spec.vcov,
+        vcov_type=spec.variance,
         cluster=" x ".join(spec.cluster) or None,
         n_clusters=n_clusters,
         cluster_counts=counts,
@@ -229,7 +233,7 @@ def fit(
         absorbed=absorbed.total,
         components=n_comp,
         r2_within=1.0 - slopes.rss / q[0, 0] if q[0, 0] > 0 else float("nan"),
-        r2_overall=1.0 - slopes.rss / tss if tss > 0 else float("nan"),
+        r2_full_model=1.0 - slopes.rss / tss if tss > 0 else float("nan"),
         rss=slopes.rss,
         df_resid=int(n - len(slopes.keep) - absorbed.total),
         rows={
@@ -286,7 +290,7 @@ def _fit_family(
     xs: list[str],
     fe: list[str],
     cluster: list[str],
-    vcov: str | None,
+    variance: str | None,
     where: str | None,
     table: str | None,
     time: str | None,
@@ -301,13 +305,13 @@ def _fit_family(
     if engine == "memory":
         raise BigPanelError(f"--estimator {estimator} runs in the SQL engines only, not with --engine memory")
     within = None
-    if estimator == "random":
-        within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, drop_singletons=False, engine=engine,
+    if estimator == "random-effects":
+        within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, singletons="keep", engine=engine,
                      weights=weights, on_step=on_step, **settings)
     backend = "spark" if engine == "spark" else "duckdb"
     eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
     try:
-        spec = build_spec(src, y, xs, fe, cluster, vcov, where, time=time, weights=weights)
+        spec = build_spec(src, y, xs, fe, cluster, variance, where, time=time, weights=weights)
         if spec.where:
             check_where(eng, spec.where)
         fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)
@@ -333,7 +337,7 @@ def _fit_family(
         names=fam.names,
         coef=fam.coef,
         **_inference_fields(inf),
-        vcov_type=spec.vcov,
+        vcov_type=spec.variance,
         cluster=" x ".join(spec.cluster) or None,
         n_clusters=min(fam.cluster_counts.values()) if fam.cluster_counts else None,
         cluster_counts=fam.cluster_counts,
@@ -343,7 +347,8 @@ def _fit_family(
         absorbed=0,
         components=None,
         r2_within=float("nan"),
-        r2_overall=fam.r2,
+        r2_full_model=float("nan"),
+        r2_transformed=fam.r2,
         rss=fam.rss,
         df_resid=int(fam.df_resid),
         rows={"source": first.n_source, "after_filter": first.n_filtered, "incomplete": {k: v for k, v in lost.items() if v},

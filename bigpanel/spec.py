@@ -19,7 +19,9 @@ from .engine import Engine, EngineError
 from .source import Source
 from .sqltext import render
 
-VCOV_TYPES = ("iid", "hc1", "cluster")
+# the user's names of the variance estimators and the internal codes the SQL steps test for
+VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}
+SINGLETONS = ("drop", "keep")
 _NUMERIC = re.compile(
     r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
     r"|FLOAT|DOUBLE|REAL|DECIMAL.*|BOOLEAN)$"
@@ -42,6 +44,11 @@ class Spec:
     where: str | None
     time: str | None = None
     weights: str | None = None
+
+    @property
+    def variance(self) -> str:
+        """The user's name of the variance estimator: ``classical``, ``hc1`` or ``cr1``."""
+        return next(name for name, code in VARIANCE_TYPES.items() if code == self.vcov)
 
     @property
     def w(self) -> str:
@@ -104,7 +111,7 @@ def build_spec(
     x: list[str],
     fe: list[str],
     cluster: list[str] | None = None,
-    vcov: str | None = None,
+    variance: str | None = None,
     where: str | None = None,
     time: str | None = None,
     weights: str | None = None,
@@ -134,16 +141,16 @@ def build_spec(
             _check_column(name, source, "fixed-effect")
     if len(set(effects)) != len(effects):
         raise BigPanelError("the same fixed effect is listed twice")
-    if vcov is None:
-        vcov = "cluster" if cluster else "iid"
-    vcov = vcov.lower()
-    if vcov not in VCOV_TYPES:
-        raise BigPanelError(f"unknown variance type {vcov!r}: choose one of {', '.join(VCOV_TYPES)}")
-    if vcov == "cluster" and not cluster:
-        raise BigPanelError("--vcov cluster needs a --cluster column")
+    if variance is None:
+        variance = "cr1" if cluster else "classical"
+    variance = variance.lower()
+    if variance not in VARIANCE_TYPES:
+        raise BigPanelError(f"unknown variance type {variance!r}: choose one of {', '.join(VARIANCE_TYPES)}")
+    if variance == "cr1" and not cluster:
+        raise BigPanelError("--variance cr1 needs a --cluster column")
     cluster = list(cluster or [])
-    if cluster and vcov != "cluster":
-        raise BigPanelError(f"--cluster {', '.join(cluster)} conflicts with --vcov {vcov}: drop one of them")
+    if cluster and variance != "cr1":
+        raise BigPanelError(f"--cluster {', '.join(cluster)} conflicts with --variance {variance}: drop one of them")
     if len(set(cluster)) != len(cluster):
         raise BigPanelError("the same cluster column is listed twice")
     for name in cluster:
@@ -156,7 +163,7 @@ def build_spec(
         _check_column(weights, source, "weights")
         if not _NUMERIC.match(source.columns[weights]):
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
-    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where, time=time,
+    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=VARIANCE_TYPES[variance], where=where, time=time,
                 weights=weights)
 
 

@@ -21,7 +21,7 @@ from rich.text import Text
 from .errors import BigPanelError
 
 STARS = ((0.01, "***"), (0.05, "**"), (0.1, "*"))
-VCOV_NAMES = {"iid": "iid", "hc1": "HC1", "cluster": "cluster-robust"}
+VCOV_NAMES = {"classical": "classical", "hc1": "HC1", "cr1": "CR1"}
 LATEX_SPECIAL = {
     "\\": r"\textbackslash{}",
     "~": r"\textasciitilde{}",
@@ -97,7 +97,7 @@ def _variance(fit: dict[str, Any]) -> str:
     vcov = fit.get("vcov") or {}
     kind = vcov.get("type", "")
     name = VCOV_NAMES.get(kind, kind)
-    return f"{name} by {vcov['cluster']}" if kind == "cluster" and vcov.get("cluster") else name
+    return f"{name}: {vcov['cluster']}" if kind == "cr1" and vcov.get("cluster") else name
 
 
 def _coefficient_rows(fits: list[dict[str, Any]], stars: bool, digits: int) -> list[Row]:

@@ -115,8 +115,8 @@ def test_memory_limit_spills_and_gives_the_same_answer(tmp_path):
     # 1.5 million levels: the grouped pass needs more than 200 MB, so DuckDB must spill.
     path = tmp_path / "spill.parquet"
     _spill_panel(path)
-    free = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], vcov="hc1")
-    tight = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], vcov="hc1", memory_limit="200MB",
+    free = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], variance="hc1")
+    tight = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], variance="hc1", memory_limit="200MB",
                          temp_dir=str(tmp_path / "spill"), threads=1)
     assert rel(tight.coef, free.coef) < 1e-10 and rel(tight.std_error, free.std_error) < 1e-10
 

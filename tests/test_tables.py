@@ -21,7 +21,7 @@ CELL = re.compile(r"(\()?([^()*]+)(\))?(\**)")
 SPECS = [
     ("y ~ x1 + log_price + noise_x", {"fe": ["unit"]}),
     ("y ~ x1 + log_price + scaled_up", {"fe": ["unit", "period"], "cluster": "unit"}),
-    ("y ~ log_price + scaled_down", {"fe": ["period"], "vcov": "hc1"}),
+    ("y ~ log_price + scaled_down", {"fe": ["period"], "variance": "hc1"}),
 ]
 
 
@@ -112,7 +112,7 @@ def check_grid(rows: list[list[str]], docs: list[dict], stars: bool, digits: int
     assert all("," in c for c in footer["N"])  # 400 - singletons < 1,000 would have none
     assert footer["unit effects"] == ["yes", "yes", ""]
     assert footer["period effects"] == ["", "yes", "yes"]
-    assert footer["variance"] == ["iid", "cluster-robust by unit", "HC1"]
+    assert footer["variance"] == ["classical", "CR1: unit", "HC1"]
     for cell, doc in zip(footer["within R-squared"], docs):
         value, half = number(cell, digits)
         assert abs(value - doc["fit"]["r2_within"]) <= half * (1 + 1e-9)
@@ -224,7 +224,7 @@ def test_render_dispatch(saved):
     buf = io.StringIO()
     Console(file=buf, width=160, no_color=True).print(rich_table)
     shown = buf.getvalue()
-    assert "(3)" in shown and "cluster-robust by unit" in shown
+    assert "(3)" in shown and "CR1: unit" in shown
     assert format_number(saved[1][0]["coefficients"]["x1"]["estimate"]) in shown
     with pytest.raises(BigPanelError, match="terminal, markdown, latex, csv"):
         render(table, "html")
