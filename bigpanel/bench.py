@@ -32,9 +32,10 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     )
     try:
         spec = build_spec(
-            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("variance"), model.get("where")
+            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("variance"), model.get("where"),
+            eng=eng,
         )
-        aggs = [f"sum(CAST({ident(c)} AS DOUBLE)) AS s{i}" for i, c in enumerate([spec.y, *spec.x])]
+        aggs = [f"sum(CAST({c} AS DOUBLE)) AS s{i}" for i, c in enumerate(spec.value_sql)]
         keys = [c for cols in spec.fe for c in cols] + list(spec.cluster)
         aggs += [f"min({ident(c)}) AS k{i}" for i, c in enumerate(dict.fromkeys(keys))]
         where = f"({spec.where})" if spec.where else "TRUE"

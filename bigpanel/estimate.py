@@ -133,7 +133,7 @@ def fit(
         on_step=on_step,
     )
     try:
-        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights)
+        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
@@ -266,6 +266,7 @@ def fit(
         weights=spec.weights,
         warnings=warnings,
         timings=dict(back.timings),
+        extras={"categorical": spec.categorical_levels},
     )
 
 
@@ -311,7 +312,7 @@ def _fit_family(
     backend = "spark" if engine == "spark" else "duckdb"
     eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
     try:
-        spec = build_spec(src, y, xs, fe, cluster, variance, where, time=time, weights=weights)
+        spec = build_spec(src, y, xs, fe, cluster, variance, where, time=time, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
         fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)
@@ -324,7 +325,7 @@ def _fit_family(
         timings = dict(eng.timings)
     finally:
         eng.close()
-    extras = dict(fam.extras)
+    extras = dict(fam.extras, categorical=spec.categorical_levels)
     warnings: list[str] = []
     if hausman and within is not None:
         extras["hausman"] = hausman_test(within, fam, spec.vcov)

@@ -85,8 +85,7 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     ``materialize`` makes ``bp_filtered`` a table, read once from the source: for
     CSV, whose every scan would otherwise parse the text again.
     """
-    columns = [f"CAST({ident(spec.y)} AS DOUBLE) AS v0"]
-    columns += [f"CAST({ident(name)} AS DOUBLE) AS v{j + 1}" for j, name in enumerate(spec.x)]
+    columns = [f"CAST({sql} AS DOUBLE) AS v{j}" for j, sql in enumerate(spec.value_sql)]
     for d, cols in enumerate(spec.fe):
         columns += [f"{ident(c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
     columns += [f"{ident(c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]

@@ -72,6 +72,9 @@ def fit_renderable(res: FitResult) -> Group:
         lines.append("; dropped " + "; ".join(drops))
     if res.weights:
         lines.append(f"; each row counts in proportion to {res.weights}")
+    for c in res.extras.get("categorical", []):
+        lines.append("\nlevels    ", style="bold")
+        lines.append(f"{c['term']}: {_n(c['levels'])} levels, one indicator each but the base {c['base']!r}")
     lines.append("\nvariance  ", style="bold")
     lines.append(VCOV_LABEL[res.vcov_type])
     if res.cluster:
