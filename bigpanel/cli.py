@@ -342,7 +342,7 @@ def table_command(
 
 @app.command("demo")
 def demo_command(
-    out_path: Path = typer.Argument(..., help="Parquet file to write."),
+    out_path: Path = typer.Argument(..., help="File to write: .parquet, or .csv (with a header row)."),
     rows: int = typer.Option(1_000_000, "--rows", help="Number of store-product-week rows."),
     seed: int = typer.Option(7, "--seed", help="Seed of the pseudo-random draws."),
     debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),

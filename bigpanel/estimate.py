@@ -105,6 +105,8 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if tol <= 0 or not np.isfinite(tol):
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
+    if max_iter < 0:
+        raise BigPanelError(f"--max-iter must be 0 or more, not {max_iter}")
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     if estimator not in ESTIMATORS:
@@ -179,6 +181,7 @@ def fit(
             meat=meat,
             cluster_terms=terms,
             cluster_names=spec.cluster,
+            mean_weight=total_weight / n,
         )
         fx = recover(proj, red.counts, slopes.keep, slopes.beta, first.shift, labels)
         effects = effect_tables(spec, back.level_keys, fx, red.rows)
@@ -189,7 +192,12 @@ def fit(
     tss = float(red.sumsq[0] - sum_t[0] ** 2 / total_weight)
     sum_e = sum_t - sum(c @ a for c, a in zip(red.counts, proj.alpha))  # D'(t - D a), summed
     warnings: list[str] = []
-    if not proj.converged:
+    if not proj.converged and proj.iterations == 0:
+        warnings.append(
+            "NOT CONVERGED: no projection was run (--max-iter 0), so the fixed effects are not fully removed: these "
+            "are not fixed-effects estimates (raise --max-iter)"
+        )
+    elif not proj.converged:
         warnings.append(
             f"NOT CONVERGED: the projections stopped after {proj.iterations} iterations with change "
             f"{proj.change:.2e} > tol {tol:.0e}; the estimates are not reliable (raise --max-iter)"
@@ -205,6 +213,11 @@ def fit(
     for name, g in counts.items():
         if g < FEW_CLUSTERS:
             warnings.append(f"only {g} clusters in {name}: cluster-robust errors can be unreliable with few clusters")
+        elif g > n / 2:
+            warnings.append(
+                f"{g:,} clusters in {name} for {n:,} rows: most clusters hold a single row, so the errors are "
+                "close to HC1 and say little about correlation within clusters (is this the right cluster column?)"
+            )
     if inf.psd_fixed:
         warnings.append(
             "the multi-way cluster variance was not positive semi-definite; its negative eigenvalues were set to zero"
@@ -315,7 +328,7 @@ def _fit_family(
         spec = build_spec(src, y, xs, fe, cluster, variance, where, time=time, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
-        fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)
+        fam, first = run_family(eng, spec, src.kind, estimator, within.rss / within.df_resid if within else None)
         if hausman:
             varying = [n for n in within.names if n in spec.x]
             fam.extras["mundlak"] = mundlak(eng, spec, first.shift, varying)

@@ -146,9 +146,10 @@ def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
     keys += list(zip(spec.cluster, spec.cluster_aliases))
     if spec.time:
         keys.append((spec.time, "tm"))
-    if spec.weights:
-        aggs.append("sum(CASE WHEN isfinite(w) AND w > 0 THEN 0 ELSE 1 END) AS bad_w")
-        checks.append((spec.weights, "bad_w"))
+    if spec.weights:  # a missing weight and a zero or negative one are different mistakes
+        aggs.append("sum(CASE WHEN isfinite(w) THEN 0 ELSE 1 END) AS bad_w")
+        aggs.append("sum(CASE WHEN isfinite(w) AND w <= 0 THEN 1 ELSE 0 END) AS low_w")
+        checks += [(spec.weights, "bad_w"), (f"{spec.weights} zero or negative", "low_w")]
     for name, alias in keys:
         aggs.append(f"sum(CASE WHEN {alias} IS NULL THEN 1 ELSE 0 END) AS bad_{alias}")
         checks.append((name, f"bad_{alias}"))

@@ -65,7 +65,7 @@ def fit_renderable(res: FitResult) -> Group:
         drops.append(f"{_n(r['source'] - r['after_filter'])} outside the filter")
     if r["dropped_incomplete"]:
         cols = ", ".join(f"{c} {_n(v)}" for c, v in r["incomplete"].items())
-        drops.append(f"{_n(r['dropped_incomplete'])} incomplete ({cols})")
+        drops.append(f"{_n(r['dropped_incomplete'])} with a missing or unusable value ({cols})")
     if r["dropped_singletons"]:
         drops.append(f"{_n(r['dropped_singletons'])} singletons")
     if drops:
@@ -98,10 +98,9 @@ def fit_renderable(res: FitResult) -> Group:
         lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
         lines.append("\nsolver    ", style="bold")
         conv = "converged" if s["converged"] else "NOT CONVERGED"
-        lines.append(
-            f"{s['path']}; {s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv}); "
-            f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s"
-        )
+        steps = (f"{s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv})"
+                 if s["converged"] or s["iterations"] else "no iterations run (NOT CONVERGED)")
+        lines.append(f"{s['path']}; {steps}; {s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")
     else:
         lines.append("\nsolver    ", style="bold")
         lines.append(f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")

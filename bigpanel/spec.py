@@ -24,6 +24,7 @@ from .sqltext import ident, literal, render
 # the user's names of the variance estimators and the internal codes the SQL steps test for
 VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}
 SINGLETONS = ("drop", "keep")
+_FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe
 _NUMERIC = re.compile(
     r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
@@ -148,6 +149,18 @@ def _check_factor(factor: Factor, source: Source, role: str, eng: Engine | None)
         raise BigPanelError(f"term {factor.label!r} has type {kind}, not a number")
 
 
+def _check_whole_numbers(name: str, source: Source, eng: Engine | None) -> None:
+    """Refuse a floating-point effect or cluster column unless every value is a whole number:
+    levels that differ in the 16th digit would silently split one group in two."""
+    if eng is None or name not in source.columns or not _FLOAT.match(source.columns[name]):
+        return
+    if eng.one(f"whole numbers in {name}", render("fractional_key", column=ident(name)), raw=True)["n"]:
+        raise BigPanelError(
+            f"column {name!r} ({source.columns[name]}) has values that are not whole numbers: it cannot define "
+            "fixed-effect levels or clusters; round or cast it, or give an integer or text column"
+        )
+
+
 def _levels(eng: Engine | None, column: str, where: str | None) -> list[str]:
     """The levels of a categorical regressor under the filter, in text order (one pass over the rows)."""
     if eng is None:
@@ -232,6 +245,8 @@ def build_spec(
             _check_column(name, source, "fixed-effect")
     if len(set(effects)) != len(effects):
         raise BigPanelError("the same fixed effect is listed twice")
+    for name in dict.fromkeys([c for cols in effects for c in cols] + list(cluster or [])):
+        _check_whole_numbers(name, source, eng)
     if variance is None:
         variance = "cr1" if cluster else "classical"
     variance = variance.lower()
