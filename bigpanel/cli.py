@@ -315,14 +315,18 @@ def describe_command(
 @app.command("table")
 def table_command(
     fits: List[Path] = typer.Argument(..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json')."),
-    to: TableFormat = typer.Option("terminal", "--to", help="terminal, markdown, latex (booktabs) or csv."),
+    to: TableFormat = typer.Option(
+        "terminal", "--to", help="terminal, markdown, latex (booktabs), or csv: one row per model and term, unrounded."
+    ),
     stars: bool = typer.Option(False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1)."),
-    digits: int = typer.Option(4, "--digits", help="Decimals shown for estimates and standard errors."),
+    digits: int = typer.Option(
+        2, "--digits", help="Significant digits of each standard error; its estimate gets as many decimals."
+    ),
     label: Optional[List[str]] = typer.Option(None, "--label", help="Column heading; repeat once per fit."),
     out_file: Optional[Path] = typer.Option(None, "--out", help="Write the table to this file instead of the terminal."),
     debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
 ) -> None:
-    """Lay saved fits side by side: slopes with standard errors beneath, N, effects, variance, within R2.
+    """Lay saved fits side by side: slopes with standard errors beneath, N, effects, clusters, variance, R-squared.
 
     Example: bigpanel table one.json two.json three.json --to latex --out table.tex
     """
