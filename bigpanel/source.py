@@ -55,6 +55,8 @@ def connect(
 
 def _kind_of(location: str, table: str | None) -> str:
     low = location.lower()
+    if table is not None and low.endswith(_CSV + _PARQUET):
+        raise BigPanelError(f"--table names a table inside a database file; {location} is a file of its own: drop --table")
     if table is not None:
         return "table"
     if low.endswith(_PARQUET) or os.path.isdir(location):

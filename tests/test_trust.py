@@ -81,3 +81,11 @@ def test_demo_writes_csv_or_refuses(tmp_path):
     assert len(df) == 500 and {"store", "log_units", "log_price"} <= set(df.columns)
     bad = CliRunner().invoke(app, ["demo", str(tmp_path / "d.txt")])
     assert bad.exit_code == 2 and "as .parquet or .csv" in bad.stderr and not (tmp_path / "d.txt").exists()
+
+
+def test_table_option_on_a_file_is_refused(tmp_path):
+    out = CliRunner().invoke(app, ["demo", str(tmp_path / "d.csv"), "--rows", "300"])
+    assert out.exit_code == 0
+    bad = CliRunner().invoke(app, ["fit", str(tmp_path / "d.csv"), "log_units ~ promo", "--fe", "store",
+                                   "--table", "sales"])
+    assert bad.exit_code == 2 and "drop --table" in bad.stderr and len(bad.stderr.strip().splitlines()) == 1
