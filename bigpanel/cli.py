@@ -281,8 +281,12 @@ def bench_command(
 @app.command("describe")
 def describe_command(
     source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
-    id: str = typer.Option(..., "--id", help="Unit identifier column (worker, firm, store...)."),
-    time: str = typer.Option(..., "--time", help="Period column (year, quarter, week...)."),
+    id: str = typer.Option(
+        ..., "--id", help="Unit identifier column (worker, firm, store...); 'a:b' is one unit per distinct pair."
+    ),
+    time: str = typer.Option(
+        ..., "--time", help="Period column (year, quarter, week...): integer, date, timestamp or floating-point."
+    ),
     effects: Optional[List[str]] = typer.Option(
         None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them."
     ),
@@ -295,7 +299,7 @@ def describe_command(
     """Describe the panel before any model: shape, balance, gaps, duplicated keys, missing values,
     time-invariant columns, and connected components of two effects.
 
-    Example: bigpanel describe sales.parquet --id store --time week --effects store --effects product --plot periods.png
+    Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product --plot periods.png
     """
     with guarded(debug):
         if effects is not None and len(effects) != 2:

@@ -184,7 +184,7 @@ def test_describe_command(panel_path, tmp_path):
     assert doc["balanced"] is False and "one" in doc["time_invariant"]
     assert (tmp_path / "p.png").exists()
     text = run("describe", path, "--id", "unit", "--time", "period")
-    assert text.exit_code == 0 and "periods per unit" in text.stdout
+    assert text.exit_code == 0 and "coverage: units by the share" in text.stdout
 
 
 def test_weighted_estimators_say_so(panel_path, tmp_path):
