@@ -33,6 +33,11 @@ from .tables import build_table, load_fits
 from .tables import RENDERERS
 from .tables import render as render_table
 
+SOURCE_HELP = "Parquet file, folder or glob; CSV file; DuckDB file or postgresql:// URL with --table."
+TABLE_HELP = (
+    "Table to read: in a DuckDB database file, in PostgreSQL (SOURCE a postgresql:// URL; schema.table allowed) "
+    "or in the Spark catalog (with --engine spark)."
+)
 # options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
 RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
 
@@ -81,6 +86,7 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    rich_markup_mode=None,  # plain help: option, value placeholder (COL, N, the choices) and text
 )
 out = Console()
 if not out.is_terminal:
@@ -125,29 +131,49 @@ def _safe_name(name: str) -> str:
 
 
 def _model_options(
-    source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
-    formula: Optional[str] = typer.Argument(None, help="Model as 'y ~ x1 + x2' (or use --y and --x)."),
-    y: Optional[str] = typer.Option(None, "--y", help="Outcome column."),
-    x: Optional[List[str]] = typer.Option(None, "--x", help="Regressor column; repeat for more."),
-    fe: List[str] = typer.Option(..., "--fe", help="Fixed-effect column; repeat for more; 'a:b' is one effect per pair."),
+    source: str = typer.Argument(
+        ..., help=SOURCE_HELP, metavar="SOURCE"
+    ),
+    formula: Optional[str] = typer.Argument(
+        None, help="Model as 'y ~ x1 + x2' (or use --y and --x).", metavar="FORMULA"
+    ),
+    y: Optional[str] = typer.Option(None, "--y", help="Outcome column.", metavar="COL"),
+    x: Optional[List[str]] = typer.Option(None, "--x", help="Regressor column; repeat for more.", metavar="COL"),
+    fe: List[str] = typer.Option(
+        ..., "--fe", help="Fixed-effect column; repeat for more; 'a:b' is one effect per pair.", metavar="COL"
+    ),
     cluster: Optional[List[str]] = typer.Option(
-        None, "--cluster", help="Cluster column for cluster-robust (CR1) errors; repeat for multi-way clustering."
+        None, "--cluster", help="Cluster column for cluster-robust (CR1) errors; repeat for multi-way clustering.",
+        metavar="COL",
     ),
     variance: Optional[Variance] = typer.Option(
         None, "--variance",
-        help="Standard errors: classical, hc1 (robust to unequal variances) or cr1 (cluster-robust; implied by --cluster).",
+        help="Standard errors: classical, hc1 (robust to unequal variances) or cr1 (cluster-robust; "
+        "implied by --cluster).",
     ),
-    where: Optional[str] = typer.Option(None, "--where", help="Row filter: one SQL boolean expression over the source's columns."),
-    table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
-    tol: float = typer.Option(1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns."),
-    max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations."),
+    where: Optional[str] = typer.Option(
+        None, "--where", help="Row filter: one SQL boolean expression over the source's columns.", metavar="EXPR"
+    ),
+    table: Optional[str] = typer.Option(
+        None, "--table", help=TABLE_HELP, metavar="NAME"
+    ),
+    tol: float = typer.Option(
+        1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns.", metavar="X"
+    ),
+    max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations.", metavar="N"),
     singletons: Singletons = typer.Option(
         "drop", "--singletons", help="Rows alone in a level of some fixed effect: drop (default) or keep."
     ),
-    memory_limit: Optional[str] = typer.Option(None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills."),
-    temp_dir: Optional[str] = typer.Option(None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit."),
-    threads: Optional[int] = typer.Option(None, "--threads", help="DuckDB worker threads (default: all cores)."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    memory_limit: Optional[str] = typer.Option(
+        None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills.", metavar="SIZE"
+    ),
+    temp_dir: Optional[str] = typer.Option(
+        None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit.", metavar="DIR"
+    ),
+    threads: Optional[int] = typer.Option(
+        None, "--threads", help="DuckDB worker threads (default: all cores).", metavar="N"
+    ),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """The model options shared by every command that fits (their declarations live here once)."""
 
@@ -180,24 +206,36 @@ def fit_command(
     engine: EngineName = typer.Option(
         "duckdb", "--engine", help="duckdb (default; data stay in the engine), spark (Spark SQL) or memory (load into numpy)."
     ),
-    spark_master: Optional[str] = typer.Option(None, "--spark-master", help="Spark master URL for --engine spark (default local[*])."),
+    spark_master: Optional[str] = typer.Option(
+        None, "--spark-master", help="Spark master URL for --engine spark (default local[*]).", metavar="URL"
+    ),
     estimator: Estimator = typer.Option(
         "within", "--estimator",
         help="within (fixed effects, default), between (unit means), first-difference or random-effects (GLS).",
     ),
     time: Optional[str] = typer.Option(
-        None, "--time", help="Period column that orders rows within a unit (for --estimator first-difference)."
+        None, "--time", help="Period column that orders rows within a unit (for --estimator first-difference).",
+        metavar="COL",
     ),
     hausman: bool = typer.Option(
-        False, "--hausman", help="With --estimator random-effects: Hausman test against the within fit."
+        False, "--hausman", help="With --estimator random-effects: Hausman test against the within fit.", metavar=""
     ),
     weights: Optional[str] = typer.Option(
-        None, "--weights", help="Column of analytic weights (any estimator); rows with a missing or non-positive weight are dropped."
+        None, "--weights",
+        help="Column of analytic weights (any estimator); rows with a missing weight and with a zero or negative "
+        "one are dropped and counted apart.",
+        metavar="COL",
     ),
-    json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
-    save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
-    effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
+    json_out: bool = typer.Option(
+        False, "--json", help="Print the full result as one JSON object instead of the table.", metavar=""
+    ),
+    save: Optional[Path] = typer.Option(
+        None, "--save", help="Also store the full result as JSON in this file.", metavar="FILE.json"
+    ),
+    effects_out: Optional[Path] = typer.Option(
+        None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect.", metavar="DIR"
+    ),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
@@ -233,8 +271,10 @@ def fit_command(
 def effects_command(
     model: dict,
     out_dir: Path = typer.Option(..., "--out", help="Folder for one Parquet file per effect (level, effect, rows)."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the effects' histograms to this PNG (needs matplotlib)."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
+    plot: Optional[Path] = typer.Option(
+        None, "--plot", help="Also draw the effects' histograms to this PNG (needs matplotlib).", metavar="FILE.png"
+    ),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
     """Fit the model and export the estimated fixed effects of every dimension, with a summary.
 
@@ -280,21 +320,30 @@ def bench_command(
 
 @app.command("describe")
 def describe_command(
-    source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
+    source: str = typer.Argument(
+        ..., help=SOURCE_HELP, metavar="SOURCE"
+    ),
     id: str = typer.Option(
-        ..., "--id", help="Unit identifier column (worker, firm, store...); 'a:b' is one unit per distinct pair."
+        ..., "--id", help="Unit identifier column (worker, firm, store...); 'a:b' is one unit per distinct pair.",
+        metavar="COL",
     ),
     time: str = typer.Option(
-        ..., "--time", help="Period column (year, quarter, week...): integer, date, timestamp or floating-point."
+        ..., "--time", help="Period column (year, quarter, week...): integer, date, timestamp or floating-point.",
+        metavar="COL",
     ),
     effects: Optional[List[str]] = typer.Option(
-        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them."
+        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them.",
+        metavar="COL",
     ),
-    table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Draw the distribution of periods per unit to this PNG."),
-    json_out: bool = typer.Option(False, "--json", help="Print the description as JSON."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    table: Optional[str] = typer.Option(
+        None, "--table", help=TABLE_HELP, metavar="NAME"
+    ),
+    plot: Optional[Path] = typer.Option(
+        None, "--plot", help="Draw the distribution of periods per unit to this PNG.", metavar="FILE.png"
+    ),
+    json_out: bool = typer.Option(False, "--json", help="Print the description as JSON.", metavar=""),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """Describe the panel before any model: shape, balance, gaps, duplicated keys, missing values,
     time-invariant columns, and connected components of two effects.
@@ -318,17 +367,26 @@ def describe_command(
 
 @app.command("table")
 def table_command(
-    fits: List[Path] = typer.Argument(..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json')."),
+    fits: List[Path] = typer.Argument(
+        ..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json').", metavar="FILE.json"
+    ),
     to: TableFormat = typer.Option(
         "terminal", "--to", help="terminal, markdown, latex (booktabs), or csv: one row per model and term, unrounded."
     ),
-    stars: bool = typer.Option(False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1)."),
-    digits: int = typer.Option(
-        2, "--digits", help="Significant digits of each standard error; its estimate gets as many decimals."
+    stars: bool = typer.Option(
+        False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1).", metavar=""
     ),
-    label: Optional[List[str]] = typer.Option(None, "--label", help="Column heading; repeat once per fit."),
-    out_file: Optional[Path] = typer.Option(None, "--out", help="Write the table to this file instead of the terminal."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    digits: int = typer.Option(
+        2, "--digits", help="Significant digits of each standard error; its estimate gets as many decimals.",
+        metavar="N",
+    ),
+    label: Optional[List[str]] = typer.Option(
+        None, "--label", help="Column heading; repeat once per fit.", metavar="TEXT"
+    ),
+    out_file: Optional[Path] = typer.Option(
+        None, "--out", help="Write the table to this file instead of the terminal.", metavar="FILE"
+    ),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """Lay saved fits side by side: slopes with standard errors beneath, N, effects, clusters, variance, R-squared.
 
@@ -350,10 +408,10 @@ def table_command(
 
 @app.command("demo")
 def demo_command(
-    out_path: Path = typer.Argument(..., help="File to write: .parquet, or .csv (with a header row)."),
-    rows: int = typer.Option(1_000_000, "--rows", help="Number of store-product-week rows."),
-    seed: int = typer.Option(7, "--seed", help="Seed of the pseudo-random draws."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    out_path: Path = typer.Argument(..., help="File to write: .parquet, or .csv (with a header row).", metavar="FILE"),
+    rows: int = typer.Option(1_000_000, "--rows", help="Number of store-product-week rows.", metavar="N"),
+    seed: int = typer.Option(7, "--seed", help="Seed of the pseudo-random draws.", metavar="N"),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """Write an invented retail panel (stores x products x weeks) with known coefficients.
 

@@ -202,3 +202,13 @@ def test_weighted_estimators_say_so(panel_path, tmp_path):
         files.append(str(f))
     out = run("table", *files, "--to", "markdown")
     assert out.exit_code == 0 and re.search(r"\| weights +\| w +\| w +\| w +\| w +\|", out.stdout)
+
+
+@pytest.mark.parametrize("command", ["fit", "effects", "bench", "describe", "table", "demo"])
+def test_help_shows_placeholders_and_choices_not_type_names(command):
+    out = run(command, "--help")
+    assert out.exit_code == 0
+    assert "<bool>" not in out.stdout and "list[str]" not in out.stdout and "<int>" not in out.stdout
+    if command == "fit":
+        assert "--variance <classical|hc1|cr1>" in out.stdout and "--singletons <drop|keep>" in out.stdout
+        assert "--fe COL" in out.stdout and "PostgreSQL" in out.stdout and "Spark" in out.stdout
