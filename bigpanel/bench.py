@@ -28,7 +28,7 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], _as_list(model["x"])))
     eng, src = open_session(
         model["source"], model.get("table"), memory_limit=model.get("memory_limit"),
-        temp_dir=model.get("temp_dir"), threads=model.get("threads"),
+        temp_dir=model.get("temp_dir"), threads=model.get("threads"), delimiter=model.get("delimiter"),
     )
     try:
         spec = build_spec(

@@ -34,6 +34,7 @@ from .tables import RENDERERS
 from .tables import render as render_table
 
 SOURCE_HELP = "Parquet file, folder or glob; CSV file; DuckDB file or postgresql:// URL with --table."
+DELIMITER_HELP = "Field separator of a CSV source, e.g. ';' or tab (default: comma; tab for .tsv)."
 TABLE_HELP = (
     "Table to read: in a DuckDB database file, in PostgreSQL (SOURCE a postgresql:// URL; schema.table allowed) "
     "or in the Spark catalog (with --engine spark)."
@@ -173,6 +174,7 @@ def _model_options(
     threads: Optional[int] = typer.Option(
         None, "--threads", help="DuckDB worker threads (default: all cores).", metavar="N"
     ),
+    delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
     debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """The model options shared by every command that fits (their declarations live here once)."""
@@ -338,6 +340,7 @@ def describe_command(
     table: Optional[str] = typer.Option(
         None, "--table", help=TABLE_HELP, metavar="NAME"
     ),
+    delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
     plot: Optional[Path] = typer.Option(
         None, "--plot", help="Draw the distribution of periods per unit to this PNG.", metavar="FILE.png"
     ),
@@ -354,7 +357,8 @@ def describe_command(
         if effects is not None and len(effects) != 2:
             raise BigPanelError(f"--effects takes exactly two columns (got {len(effects)}): --effects a --effects b")
         with progress(quiet or json_out) as on_step:
-            desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None, on_step=on_step)
+            desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None,
+                                 on_step=on_step, delimiter=delimiter)
         if plot is not None:
             plot_periods(desc, plot)
         if json_out:

@@ -208,15 +208,18 @@ def describe_panel(
     temp_dir: str | None = None,
     threads: int | None = None,
     on_step: Callable[[str], None] | None = None,
+    delimiter: str | None = None,
 ) -> PanelDescription:
     """Describe the panel in ``source`` whose units are ``id`` and periods ``time``.
 
     ``effects=(a, b)`` adds the number of connected components of the graph linking
     levels of ``a`` and ``b`` that share a row (the C in P = G_1 + G_2 - C).
-    ``memory_limit``, ``temp_dir`` and ``threads`` are DuckDB's settings.
+    ``memory_limit``, ``temp_dir`` and ``threads`` are DuckDB's settings; ``delimiter``
+    is a CSV source's field separator.
     """
     eng, src = open_session(
-        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step
+        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step,
+        delimiter=delimiter,
     )
     try:
         _check_columns(src, id, time, effects)

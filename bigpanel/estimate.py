@@ -65,6 +65,7 @@ def fit(
     hausman: bool = False,
     cell_budget: int | None = None,
     weights: str | None = None,
+    delimiter: str | None = None,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (within estimator).
@@ -92,7 +93,8 @@ def fit(
     a column of analytic weights (every estimator; the weighted forms are stated
     in :mod:`bigpanel.family`): the effects are weighted level means and every
     moment is weighted; rows with a missing or non-positive weight are dropped
-    and counted.
+    and counted. ``delimiter`` is a CSV source's field separator (default comma,
+    tab for .tsv).
     """
     started = perf_counter()
     if formula is not None:
@@ -119,7 +121,8 @@ def fit(
     if estimator != "within":
         return _fit_family(
             estimator, source, y, xs, _as_list(fe), _as_list(cluster), variance, where, table, time, hausman, weights,
-            engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads),
+            engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads,
+                         delimiter=delimiter),
             on_step, started,
         )
     if time is not None:
@@ -133,6 +136,7 @@ def fit(
         temp_dir=temp_dir,
         threads=threads,
         on_step=on_step,
+        delimiter=delimiter,
     )
     try:
         spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights, eng=eng)

@@ -89,3 +89,28 @@ def test_table_option_on_a_file_is_refused(tmp_path):
     bad = CliRunner().invoke(app, ["fit", str(tmp_path / "d.csv"), "log_units ~ promo", "--fe", "store",
                                    "--table", "sales"])
     assert bad.exit_code == 2 and "drop --table" in bad.stderr and len(bad.stderr.strip().splitlines()) == 1
+
+
+def test_semicolon_and_headerless_csv(tmp_path):
+    df = make_panel(seed=66)
+    df.to_csv(tmp_path / "semi.csv", sep=";", index=False)
+    df.to_csv(tmp_path / "bare.csv", header=False, index=False)
+    runner = CliRunner()
+    out = runner.invoke(app, ["fit", str(tmp_path / "semi.csv"), "y ~ x1 + x2", "--fe", "unit"])
+    assert out.exit_code == 2 and "give --delimiter ';'" in out.stderr and len(out.stderr.strip().splitlines()) == 1
+    res = bigpanel.fit(str(tmp_path / "semi.csv"), "y ~ x1 + x2", fe="unit", delimiter=";")
+    ref = bigpanel.fit(write_parquet_path(df, tmp_path), "y ~ x1 + x2", fe="unit")  # the same rows from Parquet
+    assert rel(res.coef, ref.coef) < 1e-12 and res.nobs == ref.nobs
+    bare = runner.invoke(app, ["fit", str(tmp_path / "bare.csv"), "y ~ x1", "--fe", "unit"])
+    assert bare.exit_code == 2 and "looks like data, not a header" in bare.stderr
+    desc = runner.invoke(app, ["describe", str(tmp_path / "semi.csv"), "--id", "unit", "--time", "period",
+                               "--delimiter", ";", "--json"])
+    assert desc.exit_code == 0, desc.output
+    bad = runner.invoke(app, ["fit", str(tmp_path / "semi.csv"), "y ~ x1", "--fe", "unit", "--delimiter", ";;"])
+    assert bad.exit_code == 2 and "must be one character" in bad.stderr
+
+
+def write_parquet_path(df, tmp_path):
+    path = tmp_path / "plain.parquet"
+    df.to_parquet(path, index=False)
+    return str(path)
