@@ -191,7 +191,9 @@ def _term_columns(term: Term, source: Source, eng: Engine | None, where: str | N
         if f.kind == "levels":
             levels = _levels(eng, f.arg, where)
             categorical[f.arg] = (f.label, len(levels), levels[0])
-            parts = [(f"{f.arg}[{lvl}]", f"CAST(CAST({ident(f.arg)} AS VARCHAR) = {literal(lvl)} AS DOUBLE)")
+            col = ident(f.arg)  # NULL stays NULL (the row is incomplete); no boolean cast, which PostgreSQL lacks
+            parts = [(f"{f.arg}[{lvl}]",
+                      f"CASE WHEN CAST({col} AS VARCHAR) = {literal(lvl)} THEN 1.0 WHEN {col} IS NOT NULL THEN 0.0 END")
                      for lvl in levels[1:]]
         else:
             parts = [(_shown(f), factor_sql(f, source.columns))]

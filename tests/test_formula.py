@@ -94,6 +94,18 @@ def test_categorical_levels_reported(panel):
     assert "levels(region): 4 levels" in res.summary()
 
 
+def test_missing_category_drops_the_row(panel, tmp_path):
+    df, _ = panel
+    d = df[df.x1 > 0].copy()
+    d.loc[d.index[:3], "region"] = None
+    path = tmp_path / "na.parquet"
+    d.to_parquet(path)
+    res = bigpanel.fit(str(path), "y ~ x2 + levels(region)", fe="unit")
+    assert res.nobs == len(d) - 3 and res.rows["incomplete"]["region[north]"] == 3
+    ref = _reference(d.dropna(subset=["region"]), "y ~ x2 + C(region)")  # statsmodels formula OLS, unit dummies
+    assert abs(res.params["x2"] - ref.params["x2"]) < 1e-8 * abs(ref.params["x2"])
+
+
 def test_outcome_transform_matches_statsmodels(panel, tmp_path):
     df, _ = panel
     d = df[df.x1 > 0].assign(pos=lambda t: np.exp(t.y))
