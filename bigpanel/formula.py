@@ -33,7 +33,10 @@ from dataclasses import dataclass
 from .errors import BigPanelError
 from .sqltext import ident
 
-TRANSFORMS = {"log": "ln", "exp": "exp", "sqrt": "sqrt"}
+# each transform's SQL and the condition on its argument a under which it is defined; outside
+# it the value is NULL (the row is dropped and counted), the same on every engine (PostgreSQL
+# raises an error where DuckDB returns NaN or infinity); 709 keeps exp below DOUBLE's maximum
+TRANSFORMS = {"log": ("ln", "{a} > 0"), "exp": ("exp", "{a} < 709"), "sqrt": ("sqrt", "{a} >= 0")}
 SQL_FUNCTIONS = frozenset({
     "abs", "ln", "log", "log10", "log2", "exp", "sqrt", "cbrt", "pow", "power", "round", "floor", "ceil",
     "ceiling", "sign", "greatest", "least", "coalesce", "nullif", "sin", "cos", "tan", "asin", "acos", "atan",
@@ -169,10 +172,11 @@ class _Parser:
             raise self.fail(f"{value!r} where a term should be")
         if self.peek() == ("op", "^"):
             self.take()
+            sign = -1.0 if self.peek() == ("op", "-") and self.take() else 1.0
             exponent = self.take()
             if exponent is None or exponent[0] != "number" or factor.kind == "levels":
-                raise self.fail("^ raises one numeric factor to a number, as in x^2")
-            factor = Factor("power", factor.label, power=float(exponent[1]))
+                raise self.fail("^ raises one numeric factor to a number, as in x^2 or x^-1")
+            factor = Factor("power", factor.label, power=sign * float(exponent[1]))
         return [(factor,)]
 
     def call(self, name: str, arg: str) -> Factor:
@@ -283,7 +287,11 @@ def factor_sql(factor: Factor, columns: dict[str, str]) -> str:
     if factor.kind == "sql":
         return f"({sql_expression(factor.arg, columns)[0]})"
     if factor.kind == "power":
-        base = parse_term(factor.arg)[0]
-        return f"pow(CAST({factor_sql(base, columns)} AS DOUBLE), {factor.power!r})"
+        base = f"CAST({factor_sql(parse_term(factor.arg)[0], columns)} AS DOUBLE)"
+        p = factor.power
+        defined = f"{base} > 0" if p != int(p) else f"{base} <> 0" if p < 0 else "TRUE"
+        return f"CASE WHEN {defined} THEN pow({base}, {p!r}) END"
     inner = ident(factor.arg) if factor.arg in columns else sql_expression(factor.arg, columns)[0]
-    return f"{TRANSFORMS[factor.func]}(CAST(({inner}) AS DOUBLE))"
+    func, defined = TRANSFORMS[factor.func]
+    arg = f"CAST(({inner}) AS DOUBLE)"
+    return f"CASE WHEN {defined.format(a=arg)} THEN {func}({arg}) END"

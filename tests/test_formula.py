@@ -161,3 +161,14 @@ def test_cli_formula_error_is_one_line(panel):
     _, path = panel
     out = CliRunner().invoke(app, ["fit", path, "y ~ x2 + poly(z)", "--fe", "unit"])
     assert out.exit_code == 2 and len(out.stderr.strip().splitlines()) == 1
+
+
+def test_undefined_transforms_are_dropped_and_counted(panel):
+    df, path = panel
+    res = bigpanel.fit(path, "y ~ sqrt(x2) + z^-1 + exp(z)", fe="unit")
+    neg = int((df.x2 < 0).sum())
+    assert res.rows["incomplete"]["sqrt(x2)"] == neg
+    sample = df[df.x2 >= 0]
+    ref = _reference(sample, "y ~ np.sqrt(x2) + I(z ** -1) + np.exp(z)")  # statsmodels formula OLS, unit dummies
+    assert rel([res.params["sqrt(x2)"], res.params["z^-1"], res.params["exp(z)"]],
+               ref.params[["np.sqrt(x2)", "I(z ** -1)", "np.exp(z)"]].to_numpy()) < 1e-8
