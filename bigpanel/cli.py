@@ -342,7 +342,7 @@ def describe_command(
     ),
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
     plot: Optional[Path] = typer.Option(
-        None, "--plot", help="Draw the distribution of periods per unit to this PNG.", metavar="FILE.png"
+        None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.", metavar="FILE.png"
     ),
     json_out: bool = typer.Option(False, "--json", help="Print the description as JSON.", metavar=""),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
@@ -366,7 +366,7 @@ def describe_command(
         else:
             out.print(describe_renderable(desc))
             if plot is not None:
-                out.print(f"periods per unit: {plot}", highlight=False)
+                out.print(f"coverage curve: {plot}", highlight=False)
 
 
 @app.command("table")
