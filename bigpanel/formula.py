@@ -166,7 +166,8 @@ class _Parser:
             factor = Factor("column", value)
         elif kind == "number":
             raise self.fail(
-                f"term {value!r}: the intercept is absorbed by the fixed effects (other estimators add it); leave it out"
+                f"term {value!r}: the intercept is absorbed by the fixed effects (the other estimators add "
+                "it); leave it out"
             )
         else:
             raise self.fail(f"{value!r} where a term should be")

@@ -269,9 +269,9 @@ def build_spec(
         _check_column(weights, source, "weights")
         if not _NUMERIC.match(source.columns[weights]):
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
-    return Spec(y=y, x=tuple(regressors), x_sql=tuple(regressors.values()), y_sql=factor_sql(outcome[0], source.columns),
-                categorical=tuple(categorical.values()), fe=effects, cluster=tuple(cluster), vcov=VARIANCE_TYPES[variance], where=where, time=time,
-                weights=weights)
+    return Spec(y=y, x=tuple(regressors), fe=effects, cluster=tuple(cluster), vcov=VARIANCE_TYPES[variance],
+                where=where, time=time, weights=weights, y_sql=factor_sql(outcome[0], source.columns),
+                x_sql=tuple(regressors.values()), categorical=tuple(categorical.values()))
 
 
 def canonical_where(where: str) -> str:
