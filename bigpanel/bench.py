@@ -28,13 +28,14 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], _as_list(model["x"])))
     eng, src = open_session(
         model["source"], model.get("table"), memory_limit=model.get("memory_limit"),
-        temp_dir=model.get("temp_dir"), threads=model.get("threads"),
+        temp_dir=model.get("temp_dir"), threads=model.get("threads"), delimiter=model.get("delimiter"),
     )
     try:
         spec = build_spec(
-            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("vcov"), model.get("where")
+            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("variance"), model.get("where"),
+            eng=eng,
         )
-        aggs = [f"sum(CAST({ident(c)} AS DOUBLE)) AS s{i}" for i, c in enumerate([spec.y, *spec.x])]
+        aggs = [f"sum(CAST({c} AS DOUBLE)) AS s{i}" for i, c in enumerate(spec.value_sql)]
         keys = [c for cols in spec.fe for c in cols] + list(spec.cluster)
         aggs += [f"min({ident(c)}) AS k{i}" for i, c in enumerate(dict.fromkeys(keys))]
         where = f"({spec.where})" if spec.where else "TRUE"

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import enum
 import functools
 import inspect
 import json
@@ -14,6 +15,7 @@ from pathlib import Path
 from typing import Callable, Iterator, List, Optional
 
 import typer
+from typer.core import TyperGroup
 from rich import box
 from rich.console import Console
 from rich.table import Table
@@ -24,14 +26,62 @@ from .demo import write_demo
 from .errors import BigPanelError
 from .files import (check_output, input_files, parquet_writer, remove_pending, text_writer, unique_stems, write_all,
                     write_text)
+from .estimate import ENGINES
 from .estimate import fit as run_fit
+from .family import ESTIMATORS
+from .spec import SINGLETONS, VARIANCE_TYPES
 from .describe import describe_panel, describe_renderable
 from .plots import plot_effects, plot_periods
 from .report import fit_renderable
 from .tables import build_table, load_fits
+from .tables import RENDERERS
 from .tables import render as render_table
 
+SOURCE_HELP = "Parquet file, folder or glob; CSV file; DuckDB file or postgresql:// URL with --table."
+DELIMITER_HELP = "Field separator of a CSV source, e.g. ';' or tab (default: comma; tab for .tsv)."
+TABLE_HELP = (
+    "Table to read: in a DuckDB database file, in PostgreSQL (SOURCE a postgresql:// URL; schema.table allowed) "
+    "or in the Spark catalog (with --engine spark)."
+)
+# options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
+RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
+
+
+def _choices(name: str, values: object) -> type[enum.Enum]:
+    """An enumeration of ``values``, so that the help lists them and typer refuses any other."""
+    return enum.Enum(name, {str(v): str(v) for v in values}, type=str)  # type: ignore[return-value]
+
+
+Variance = _choices("Variance", VARIANCE_TYPES)
+Singletons = _choices("Singletons", SINGLETONS)
+Estimator = _choices("Estimator", ESTIMATORS)
+EngineName = _choices("EngineName", ENGINES)
+TableFormat = _choices("TableFormat", RENDERERS)
+
+
+class OneLineErrors(TyperGroup):
+    """Usage mistakes (unknown command or option, bad or missing value) as one line on stderr, exit 2."""
+
+    def main(self, *args: object, standalone_mode: bool = True, **kwargs: object) -> object:
+        if not standalone_mode:
+            return super().main(*args, standalone_mode=False, **kwargs)
+        try:
+            code = super().main(*args, standalone_mode=False, **kwargs)
+        except typer.Abort:
+            err.print("bigpanel: aborted")
+            sys.exit(1)
+        except Exception as exc:  # noqa: BLE001 - click's usage errors carry exit_code 2
+            if not hasattr(exc, "format_message") or getattr(exc, "exit_code", None) != 2:
+                raise
+            name = getattr(exc, "option_name", None)
+            message = f"{name} is no longer an option: use {RENAMED[name]}" if name in RENAMED else exc.format_message()
+            err.print(f"[bold red]bigpanel: error:[/] {' '.join(message.split())} (see --help)", highlight=False)
+            sys.exit(2)
+        sys.exit(code if isinstance(code, int) else 0)
+
+
 app = typer.Typer(
+    cls=OneLineErrors,
     help=(
         "Fixed-effects (within) regressions on panels too big for memory. The data stay in "
         "DuckDB; only small matrices reach Python.\n\n"
@@ -41,6 +91,7 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    rich_markup_mode=None,  # plain help: option, value placeholder (COL, N, the choices) and text
 )
 out = Console()
 if not out.is_terminal:
@@ -99,24 +150,50 @@ def _check_outputs(model: dict, files: dict[str, Optional[Path]], effects_dir: O
 
 
 def _model_options(
-    source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
-    formula: Optional[str] = typer.Argument(None, help="Model as 'y ~ x1 + x2' (or use --y and --x)."),
-    y: Optional[str] = typer.Option(None, "--y", help="Outcome column."),
-    x: Optional[List[str]] = typer.Option(None, "--x", help="Regressor column; repeat for more."),
-    fe: List[str] = typer.Option(..., "--fe", help="Fixed-effect column; repeat for more; 'a:b' is one effect per pair."),
-    cluster: Optional[List[str]] = typer.Option(
-        None, "--cluster", help="Cluster column for cluster-robust (CR1) errors; repeat for multi-way clustering."
+    source: str = typer.Argument(
+        ..., help=SOURCE_HELP, metavar="SOURCE"
     ),
-    vcov: Optional[str] = typer.Option(None, "--vcov", help="iid, hc1 or cluster (default: cluster if --cluster, else iid)."),
-    where: Optional[str] = typer.Option(None, "--where", help="Row filter: one SQL boolean expression over the source's columns."),
-    table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
-    tol: float = typer.Option(1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns."),
-    max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations."),
-    keep_singletons: bool = typer.Option(False, "--keep-singletons", help="Keep rows alone in a fixed-effect level."),
-    memory_limit: Optional[str] = typer.Option(None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills."),
-    temp_dir: Optional[str] = typer.Option(None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit."),
-    threads: Optional[int] = typer.Option(None, "--threads", help="DuckDB worker threads (default: all cores)."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    formula: Optional[str] = typer.Argument(
+        None, help="Model as 'y ~ x1 + x2' (or use --y and --x).", metavar="FORMULA"
+    ),
+    y: Optional[str] = typer.Option(None, "--y", help="Outcome column.", metavar="COL"),
+    x: Optional[List[str]] = typer.Option(None, "--x", help="Regressor column; repeat for more.", metavar="COL"),
+    fe: List[str] = typer.Option(
+        ..., "--fe", help="Fixed-effect column; repeat for more; 'a:b' is one effect per pair.", metavar="COL"
+    ),
+    cluster: Optional[List[str]] = typer.Option(
+        None, "--cluster", help="Cluster column for cluster-robust (CR1) errors; repeat for multi-way clustering.",
+        metavar="COL",
+    ),
+    variance: Optional[Variance] = typer.Option(
+        None, "--variance",
+        help="Standard errors: classical, hc1 (robust to unequal variances) or cr1 (cluster-robust; "
+        "implied by --cluster).",
+    ),
+    where: Optional[str] = typer.Option(
+        None, "--where", help="Row filter: one SQL boolean expression over the source's columns.", metavar="EXPR"
+    ),
+    table: Optional[str] = typer.Option(
+        None, "--table", help=TABLE_HELP, metavar="NAME"
+    ),
+    tol: float = typer.Option(
+        1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns.", metavar="X"
+    ),
+    max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations.", metavar="N"),
+    singletons: Singletons = typer.Option(
+        "drop", "--singletons", help="Rows alone in a level of some fixed effect: drop (default) or keep."
+    ),
+    memory_limit: Optional[str] = typer.Option(
+        None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills.", metavar="SIZE"
+    ),
+    temp_dir: Optional[str] = typer.Option(
+        None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit.", metavar="DIR"
+    ),
+    threads: Optional[int] = typer.Option(
+        None, "--threads", help="DuckDB worker threads (default: all cores).", metavar="N"
+    ),
+    delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """The model options shared by every command that fits (their declarations live here once)."""
 
@@ -135,8 +212,8 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
             if shared["temp_dir"]:
                 check_output(shared["temp_dir"], "--temp-dir", input_files(str(shared["source"])), folder=True)
             shared["x"] = shared["x"] or None
-            shared["drop_singletons"] = not shared.pop("keep_singletons")
-            fn(model=shared, **kwargs)
+            shared = {k: v.value if isinstance(v, enum.Enum) else v for k, v in shared.items()}
+            fn(model=shared, **{k: v.value if isinstance(v, enum.Enum) else v for k, v in kwargs.items()})
 
     params = list(_SHARED.values()) + own
     wrapper.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
@@ -148,22 +225,39 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
 @model_command
 def fit_command(
     model: dict,
-    engine: str = typer.Option(
+    engine: EngineName = typer.Option(
         "duckdb", "--engine", help="duckdb (default; data stay in the engine), spark (Spark SQL) or memory (load into numpy)."
     ),
-    spark_master: Optional[str] = typer.Option(None, "--spark-master", help="Spark master URL for --engine spark (default local[*])."),
-    estimator: str = typer.Option(
-        "within", "--estimator", help="within (fixed effects, default), between, fd (first differences) or random (GLS)."
+    spark_master: Optional[str] = typer.Option(
+        None, "--spark-master", help="Spark master URL for --engine spark (default local[*]).", metavar="URL"
     ),
-    time: Optional[str] = typer.Option(None, "--time", help="Period column that orders rows within a unit (for --estimator fd)."),
-    hausman: bool = typer.Option(False, "--hausman", help="With --estimator random: Hausman test against the within fit."),
+    estimator: Estimator = typer.Option(
+        "within", "--estimator",
+        help="within (fixed effects, default), between (unit means), first-difference or random-effects (GLS).",
+    ),
+    time: Optional[str] = typer.Option(
+        None, "--time", help="Period column that orders rows within a unit (for --estimator first-difference).",
+        metavar="COL",
+    ),
+    hausman: bool = typer.Option(
+        False, "--hausman", help="With --estimator random-effects: Hausman test against the within fit.", metavar=""
+    ),
     weights: Optional[str] = typer.Option(
-        None, "--weights", help="Column of analytic weights (any estimator); rows with a missing or non-positive weight are dropped."
+        None, "--weights",
+        help="Column of analytic weights (any estimator); rows with a missing weight and with a zero or negative "
+        "one are dropped and counted apart.",
+        metavar="COL",
     ),
-    json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object instead of the table."),
-    save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file."),
-    effects_out: Optional[Path] = typer.Option(None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
+    json_out: bool = typer.Option(
+        False, "--json", help="Print the full result as one JSON object instead of the table.", metavar=""
+    ),
+    save: Optional[Path] = typer.Option(
+        None, "--save", help="Also store the full result as JSON in this file.", metavar="FILE.json"
+    ),
+    effects_out: Optional[Path] = typer.Option(
+        None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect.", metavar="DIR"
+    ),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
@@ -200,8 +294,10 @@ def fit_command(
 def effects_command(
     model: dict,
     out_dir: Path = typer.Option(..., "--out", help="Folder for one Parquet file per effect (level, effect, rows)."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the effects' histograms to this PNG (needs matplotlib)."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
+    plot: Optional[Path] = typer.Option(
+        None, "--plot", help="Also draw the effects' histograms to this PNG (needs matplotlib).", metavar="FILE.png"
+    ),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
     """Fit the model and export the estimated fixed effects of every dimension, with a summary.
 
@@ -251,22 +347,36 @@ def bench_command(
 
 @app.command("describe")
 def describe_command(
-    source: str = typer.Argument(..., help="Parquet file, folder or glob; CSV file; or DuckDB file with --table."),
-    id: str = typer.Option(..., "--id", help="Unit identifier column (worker, firm, store...)."),
-    time: str = typer.Option(..., "--time", help="Period column (year, quarter, week...)."),
-    effects: Optional[List[str]] = typer.Option(
-        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them."
+    source: str = typer.Argument(
+        ..., help=SOURCE_HELP, metavar="SOURCE"
     ),
-    table: Optional[str] = typer.Option(None, "--table", help="Table name inside a DuckDB database file."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Draw the distribution of periods per unit to this PNG."),
-    json_out: bool = typer.Option(False, "--json", help="Print the description as JSON."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    id: str = typer.Option(
+        ..., "--id", help="Unit identifier column (worker, firm, store...); 'a:b' is one unit per distinct pair.",
+        metavar="COL",
+    ),
+    time: str = typer.Option(
+        ..., "--time", help="Period column (year, quarter, week...): integer, date, timestamp or floating-point.",
+        metavar="COL",
+    ),
+    effects: Optional[List[str]] = typer.Option(
+        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them.",
+        metavar="COL",
+    ),
+    table: Optional[str] = typer.Option(
+        None, "--table", help=TABLE_HELP, metavar="NAME"
+    ),
+    delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    plot: Optional[Path] = typer.Option(
+        None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.", metavar="FILE.png"
+    ),
+    json_out: bool = typer.Option(False, "--json", help="Print the description as JSON.", metavar=""),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """Describe the panel before any model: shape, balance, gaps, duplicated keys, missing values,
     time-invariant columns, and connected components of two effects.
 
-    Example: bigpanel describe sales.parquet --id store --time week --effects store --effects product --plot periods.png
+    Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product --plot periods.png
     """
     with guarded(debug):
         if plot is not None:
@@ -274,7 +384,8 @@ def describe_command(
         if effects is not None and len(effects) != 2:
             raise BigPanelError(f"--effects takes exactly two columns (got {len(effects)}): --effects a --effects b")
         with progress(quiet or json_out) as on_step:
-            desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None, on_step=on_step)
+            desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None,
+                                 on_step=on_step, delimiter=delimiter)
         if plot is not None:
             plot_periods(desc, plot)
         if json_out:
@@ -282,20 +393,33 @@ def describe_command(
         else:
             out.print(describe_renderable(desc))
             if plot is not None:
-                out.print(f"periods per unit: {plot}", highlight=False, markup=False, emoji=False)
+                out.print(f"coverage curve: {plot}", highlight=False, markup=False, emoji=False)
 
 
 @app.command("table")
 def table_command(
-    fits: List[Path] = typer.Argument(..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json')."),
-    to: str = typer.Option("terminal", "--to", help="terminal, markdown, latex (booktabs) or csv."),
-    stars: bool = typer.Option(False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1)."),
-    digits: int = typer.Option(4, "--digits", help="Decimals shown for estimates and standard errors."),
-    label: Optional[List[str]] = typer.Option(None, "--label", help="Column heading; repeat once per fit."),
-    out_file: Optional[Path] = typer.Option(None, "--out", help="Write the table to this file instead of the terminal."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    fits: List[Path] = typer.Argument(
+        ..., help="Saved fits (JSON from 'bigpanel fit ... --save FILE.json').", metavar="FILE.json"
+    ),
+    to: TableFormat = typer.Option(
+        "terminal", "--to", help="terminal, markdown, latex (booktabs), or csv: one row per model and term, unrounded."
+    ),
+    stars: bool = typer.Option(
+        False, "--stars", help="Mark significance with stars (*** p<0.01, ** p<0.05, * p<0.1).", metavar=""
+    ),
+    digits: int = typer.Option(
+        2, "--digits", help="Significant digits of each standard error; its estimate gets as many decimals.",
+        metavar="N",
+    ),
+    label: Optional[List[str]] = typer.Option(
+        None, "--label", help="Column heading; repeat once per fit.", metavar="TEXT"
+    ),
+    out_file: Optional[Path] = typer.Option(
+        None, "--out", help="Write the table to this file instead of the terminal.", metavar="FILE"
+    ),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
-    """Lay saved fits side by side: slopes with standard errors beneath, N, effects, variance, within R2.
+    """Lay saved fits side by side: slopes with standard errors beneath, N, effects, clusters, variance, R-squared.
 
     Example: bigpanel table one.json two.json three.json --to latex --out table.tex
     """
@@ -303,7 +427,7 @@ def table_command(
         if out_file is not None:
             check_output(out_file, "--out", [Path(f) for f in fits])
         table = build_table(load_fits([str(f) for f in fits]), stars=stars, digits=digits, labels=label or None)
-        rendered = render_table(table, to)
+        rendered = render_table(table, to.value)
         if out_file is not None:
             if not isinstance(rendered, str):
                 raise BigPanelError("--out needs a file format: use --to markdown, latex or csv")
@@ -317,10 +441,10 @@ def table_command(
 
 @app.command("demo")
 def demo_command(
-    out_path: Path = typer.Argument(..., help="Parquet file to write."),
-    rows: int = typer.Option(1_000_000, "--rows", help="Number of store-product-week rows."),
-    seed: int = typer.Option(7, "--seed", help="Seed of the pseudo-random draws."),
-    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error."),
+    out_path: Path = typer.Argument(..., help="File to write: .parquet, or .csv (with a header row).", metavar="FILE"),
+    rows: int = typer.Option(1_000_000, "--rows", help="Number of store-product-week rows.", metavar="N"),
+    seed: int = typer.Option(7, "--seed", help="Seed of the pseudo-random draws.", metavar="N"),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """Write an invented retail panel (stores x products x weeks) with known coefficients.
 

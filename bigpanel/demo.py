@@ -14,6 +14,7 @@ from .sqltext import literal, render
 TRUE_COEFFICIENTS = {"log_price": -1.8, "promo": 0.35}
 WEEKS = 104
 REGIONS = 12
+FORMATS = {".parquet": "FORMAT parquet, ROW_GROUP_SIZE 1000000", ".csv": "FORMAT csv, HEADER true"}
 
 
 @dataclass(frozen=True)
@@ -37,7 +38,7 @@ def shape_for(rows: int) -> tuple[int, int, int]:
 
 
 def write_demo(path: str, rows: int = 1_000_000, seed: int = 7, threads: int | None = None) -> DemoPanel:
-    """Write the demo panel to ``path`` (Parquet).
+    """Write the demo panel to ``path``: Parquet, or CSV with a header when it ends in ``.csv``.
 
     log_units = 2 - 1.8 log_price + 0.35 promo + store + product + week effects + noise;
     log price moves with the store and product effects (so pooled OLS is biased),
@@ -45,6 +46,9 @@ def write_demo(path: str, rows: int = 1_000_000, seed: int = 7, threads: int | N
     """
     if rows < 1:
         raise BigPanelError(f"--rows must be at least 1, not {rows}")
+    fmt = FORMATS.get(Path(path).suffix.lower())
+    if fmt is None:
+        raise BigPanelError(f"the demo is written as .parquet or .csv, not {Path(path).name!r}")
     stores, products, weeks = shape_for(rows)
     params = {
         "rows": rows,
@@ -60,7 +64,7 @@ def write_demo(path: str, rows: int = 1_000_000, seed: int = 7, threads: int | N
         for statement in con.extract_statements(render("demo_macros")):
             con.execute(statement).fetchall()
         with atomic_path(path) as tmp:
-            con.execute(render("demo", path=literal(str(tmp))), params).fetchall()
+            con.execute(render("demo", path=literal(str(tmp)), format=fmt), params).fetchall()
     finally:
         con.close()
     return DemoPanel(str(Path(path)), rows, stores, products, weeks, dict(TRUE_COEFFICIENTS))

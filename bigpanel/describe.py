@@ -10,7 +10,6 @@ two effect columns; only the histogram of periods per unit and those pairs reach
 
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import asdict, dataclass
 from typing import Any, Callable
@@ -32,9 +31,12 @@ from .sqltext import ident, join, render
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 _ORDERED_TIME = re.compile(
     r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
-    r"|DATE|TIMESTAMP.*)$"
+    r"|FLOAT|DOUBLE|REAL|DECIMAL.*|DATE|TIMESTAMP.*)$"
 )
-HISTOGRAM_ROWS = 12
+# bands of the share of all periods in which a unit is seen, for the coverage section
+COVERAGE_BANDS = ((1.0, "every period"), (0.75, "three quarters or more"), (0.5, "half to three quarters"),
+                  (0.25, "a quarter to half"), (0.0, "under a quarter"))
+BAR_WIDTH = 30
 
 
 @dataclass
@@ -103,13 +105,34 @@ def _finite(kind: str, j: int) -> str:
     return f" FILTER (WHERE isfinite({_col(j)}))" if _FLOAT.match(kind) else ""
 
 
+def _id_columns(src: Source, id: str) -> list[str]:
+    """The columns of the unit: ``id`` itself, or the parts of ``a:b`` (one unit per distinct pair)."""
+    return [id] if id in src.columns else [part.strip() for part in id.split(":")]
+
+
+def _unit_sql(columns: list[str]) -> str:
+    """The unit as one value: the column, or its parts as text, each but the last prefixed by its
+    length so that no two different tuples give the same text; NULL when any part is NULL."""
+    if len(columns) == 1:
+        return ident(columns[0])
+    text = [f"CAST({ident(c)} AS VARCHAR)" for c in columns]
+    pieces = [f"CAST(length({t}) AS VARCHAR) || ':' || {t}" for t in text[:-1]] + [text[-1]]
+    return " || ':' || ".join(pieces)
+
+
+def _time_sql(time: str, kind: str) -> str:
+    """The period; a NaN or infinite floating-point period counts as missing."""
+    return f"CASE WHEN isfinite({ident(time)}) THEN {ident(time)} END" if _FLOAT.match(kind) else ident(time)
+
+
 def _check_columns(src: Source, id: str, time: str, effects: tuple[str, str] | None) -> None:
     if effects is not None and len(effects) != 2:
         raise BigPanelError(f"effects needs exactly two columns, got {len(effects)}")
-    _check_column(id, src, "id")
+    for name in _id_columns(src, id):
+        _check_column(name, src, "id")
     _check_column(time, src, "time")
-    if id == time:
-        raise BigPanelError(f"column {id!r} cannot be both the id and the time")
+    if time in _id_columns(src, id):
+        raise BigPanelError(f"column {time!r} cannot be both the id (or part of it) and the time")
     for name in effects or ():
         _check_column(name, src, "effect")
 
@@ -185,23 +208,28 @@ def describe_panel(
     temp_dir: str | None = None,
     threads: int | None = None,
     on_step: Callable[[str], None] | None = None,
+    delimiter: str | None = None,
 ) -> PanelDescription:
     """Describe the panel in ``source`` whose units are ``id`` and periods ``time``.
 
     ``effects=(a, b)`` adds the number of connected components of the graph linking
     levels of ``a`` and ``b`` that share a row (the C in P = G_1 + G_2 - C).
-    ``memory_limit``, ``temp_dir`` and ``threads`` are DuckDB's settings.
+    ``memory_limit``, ``temp_dir`` and ``threads`` are DuckDB's settings; ``delimiter``
+    is a CSV source's field separator.
     """
     eng, src = open_session(
-        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step
+        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step,
+        delimiter=delimiter,
     )
     try:
         _check_columns(src, id, time, effects)
         names, kinds = list(src.columns), list(src.columns.values())
+        keys = [*_id_columns(src, id), time]
         numeric = [j for j, (name, kind) in enumerate(src.columns.items())
-                   if name not in (id, time) and _NUMERIC.match(kind)]
+                   if name not in keys and _NUMERIC.match(kind)]
         columns = join([f"{ident(name)} AS {_col(j)}" for j, name in enumerate(names)])
-        eng.execute("name columns", render("describe_view", id=ident(id), time=ident(time), columns=columns))
+        eng.execute("name columns", render("describe_view", id=_unit_sql(_id_columns(src, id)),
+                                           time=_time_sql(time, src.columns[time]), columns=columns))
         counts = _count_missing(eng, kinds)
         shape = _group_units(eng, kinds, numeric)
         if shape["n_units"] == 0:
@@ -248,17 +276,25 @@ def describe_panel(
     return desc
 
 
-def _binned(histogram: list[list[int]], max_rows: int) -> list[tuple[str, int]]:
-    """The histogram as at most ``max_rows`` labelled rows: equal-width ranges of periods when longer."""
-    if len(histogram) <= max_rows:
-        return [(str(k), n) for k, n in histogram]
-    low, high = histogram[0][0], histogram[-1][0]
-    width = math.ceil((high - low + 1) / max_rows)
-    bins: dict[int, int] = {}
-    for k, n in histogram:
-        start = low + (k - low) // width * width
-        bins[start] = bins.get(start, 0) + n
-    return [(f"{s}-{min(s + width - 1, high)}", n) for s, n in bins.items()]
+def coverage(desc: PanelDescription) -> list[tuple[str, int]]:
+    """Units per band of coverage, the share of the panel's periods in which a unit is seen
+    (bands in :data:`COVERAGE_BANDS`, from every period down to under a quarter)."""
+    counts = [0] * len(COVERAGE_BANDS)
+    for k, n in desc.period_histogram:
+        share = k / desc.periods
+        counts[next(i for i, (low, _) in enumerate(COVERAGE_BANDS) if share >= low)] += n
+    return [(label, n) for (_, label), n in zip(COVERAGE_BANDS, counts)]
+
+
+def _coverage_table(desc: PanelDescription) -> Table:
+    table = Table.grid(padding=(0, 2))
+    for justify in ("left", "right", "left", "right"):
+        table.add_column(justify=justify)  # type: ignore[arg-type]
+    for label, n in coverage(desc):
+        share = n / desc.units
+        table.add_row(label, f"{n:,}", "\u2588" * round(BAR_WIDTH * share) or ("\u258f" if n else ""),
+                      f"{100 * share:.0f}%")
+    return table
 
 
 def _heading(title: str) -> Text:
@@ -275,8 +311,8 @@ def _pairs(items: list[tuple[str, str]]) -> Table:
 
 
 def describe_renderable(desc: PanelDescription) -> Group:
-    """The description laid out for the terminal: shape, periods per unit, missing values,
-    time-invariant columns, the effect graph and the warnings."""
+    """The description laid out for the terminal: shape, coverage of the periods by the units,
+    missing values, time-invariant columns, the effect graph and the warnings."""
     gaps = "not defined for this time type" if desc.units_with_gaps is None else f"{desc.units_with_gaps:,} units"
     parts: list[Any] = [
         Text(f"panel {desc.source}  (units: {desc.id}, periods: {desc.time})", style="bold magenta"),
@@ -289,18 +325,14 @@ def describe_renderable(desc: PanelDescription) -> Group:
             ("with gaps", gaps),
             ("duplicated keys", f"{desc.duplicate_keys:,} (in {desc.duplicate_rows:,} rows)"),
         ]),
-        _heading("periods per unit"),
+        _heading(f"coverage: units by the share of the {desc.periods:,} periods they are seen in"),
+        _coverage_table(desc),
         Text(
-            f"min {desc.periods_min}  q25 {desc.periods_q25:g}  median {desc.periods_median:g}  "
-            f"q75 {desc.periods_q75:g}  max {desc.periods_max}"
+            f"half the units are seen in {desc.periods_median:g} periods or more; the sparsest in "
+            f"{desc.periods_min}, the fullest in {desc.periods_max}",
+            style="dim",
         ),
     ]
-    hist = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
-    for name in ("periods", "units", "share"):
-        hist.add_column(name, justify="right")
-    for label, n in _binned(desc.period_histogram, HISTOGRAM_ROWS):
-        hist.add_row(label, f"{n:,}", f"{100 * n / desc.units:.1f}%")
-    parts.append(hist)
 
     parts.append(_heading("missing values"))
     missing = [name for name in desc.columns if desc.nulls[name] or desc.not_finite.get(name)]

@@ -26,7 +26,7 @@ from .results import FitResult
 from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
 from .source import open_session
 from .sqlpath import SqlBackend
-from .spec import build_spec, check_where, parse_formula
+from .spec import SINGLETONS, build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
 ENGINES = {"duckdb": SqlBackend, "spark": SqlBackend, "memory": MemoryBackend}
@@ -48,12 +48,12 @@ def fit(
     x: str | Sequence[str] | None = None,
     fe: str | Sequence[str] = (),
     cluster: str | Sequence[str] | None = None,
-    vcov: str | None = None,
+    variance: str | None = None,
     where: str | None = None,
     table: str | None = None,
     tol: float = 1e-8,
     max_iter: int = 10_000,
-    drop_singletons: bool = True,
+    singletons: str = "drop",
     memory_limit: str | None = None,
     temp_dir: str | None = None,
     threads: int | None = None,
@@ -64,6 +64,7 @@ def fit(
     hausman: bool = False,
     cell_budget: int | None = None,
     weights: str | None = None,
+    delimiter: str | None = None,
     strategy: str | None = None,
     on_step: Callable[[str], None] | None = None,
 ) -> FitResult:
@@ -72,18 +73,19 @@ def fit(
     ``source`` is a Parquet file, folder or glob, a CSV file, or a DuckDB file with
     ``table``. Either ``formula`` (``"y ~ x1 + x2"``) or ``y`` and ``x`` name the
     variables; ``fe`` lists effect columns (``"a:b"`` for one effect per pair).
-    ``vcov`` is ``iid`` (default), ``hc1`` or ``cluster`` (CR1 on ``cluster``, one
-    column or several for multi-way clustering).
+    ``variance`` is ``classical`` (default), ``hc1`` or ``cr1`` (cluster-robust on
+    ``cluster``, one column or several for multi-way clustering; the default when
+    ``cluster`` is given).
     Rows with a missing or non-finite used value are dropped listwise; rows alone
     in a level of any effect (singletons) are dropped unless
-    ``drop_singletons=False``. See :mod:`bigpanel.inference` and
+    ``singletons="keep"``. See :mod:`bigpanel.inference` and
     :mod:`bigpanel.dof` for the variance formulas and degrees of freedom.
     ``engine="memory"`` loads the used columns into numpy and fits the same
     model there (the reference for checking the SQL path on a sample);
     ``engine="spark"`` runs the same SQL on Spark (``spark_master``, default
     local mode); a ``postgresql://`` source runs it on PostgreSQL.
-    ``estimator`` is ``within`` (default), ``between``, ``fd`` (first differences
-    along ``time``) or ``random`` (GLS, Swamy-Arora; ``hausman=True`` adds the
+    ``estimator`` is ``within`` (default), ``between``, ``first-difference`` (along
+    ``time``) or ``random-effects`` (GLS, Swamy-Arora; ``hausman=True`` adds the
     test against the within fit); for those, the one ``fe`` column is the unit.
     See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
     machine's memory) is the Python-side memory budget: the pair tables or per-row
@@ -95,7 +97,8 @@ def fit(
     a column of analytic weights (every estimator; the weighted forms are stated
     in :mod:`bigpanel.family`): the effects are weighted level means and every
     moment is weighted; rows with a missing or non-positive weight are dropped
-    and counted.
+    and counted. ``delimiter`` is a CSV source's field separator (default comma,
+    tab for .tsv).
     """
     started = perf_counter()
     if formula is not None:
@@ -108,22 +111,26 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if tol <= 0 or not np.isfinite(tol):
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
-    if max_iter < 1:
-        raise BigPanelError(f"--max-iter must be a positive number of iterations, not {max_iter}")
+    if max_iter < 0:
+        raise BigPanelError(f"--max-iter must be 0 or more, not {max_iter}")
     if engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     if estimator not in ESTIMATORS:
         raise BigPanelError(f"unknown estimator {estimator!r}: choose one of {', '.join(ESTIMATORS)}")
-    if hausman and estimator != "random":
-        raise BigPanelError("--hausman compares fixed and random effects: use it with --estimator random")
+    if hausman and estimator != "random-effects":
+        raise BigPanelError("--hausman compares fixed and random effects: use it with --estimator random-effects")
+    if singletons not in SINGLETONS:
+        raise BigPanelError(f"--singletons {singletons!r}: choose one of {', '.join(SINGLETONS)}")
+    drop_singletons = singletons == "drop"
     if estimator != "within":
         return _fit_family(
-            estimator, source, y, xs, _as_list(fe), _as_list(cluster), vcov, where, table, time, hausman, weights,
-            engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads),
+            estimator, source, y, xs, _as_list(fe), _as_list(cluster), variance, where, table, time, hausman, weights,
+            engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads,
+                         delimiter=delimiter),
             on_step, started,
         )
     if time is not None:
-        raise BigPanelError("--time orders rows for --estimator fd; the within estimator does not use it")
+        raise BigPanelError("--time orders rows for --estimator first-difference; the within estimator does not use it")
     eng, src = open_session(
         source,
         table,
@@ -133,9 +140,10 @@ def fit(
         temp_dir=temp_dir,
         threads=threads,
         on_step=on_step,
+        delimiter=delimiter,
     )
     try:
-        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), vcov, where, weights=weights)
+        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
         back = ENGINES[engine](eng, spec, src.kind)
@@ -177,6 +185,7 @@ def fit(
             meat=meat,
             cluster_terms=terms,
             cluster_names=spec.cluster,
+            mean_weight=total_weight / n,
         )
         fx = recover(proj, red.counts, slopes.keep, slopes.beta, first.shift, labels)
         effects = effect_tables(spec, back.level_keys, fx, red.rows)
@@ -187,7 +196,12 @@ def fit(
     tss = float(red.sumsq[0] - sum_t[0] ** 2 / total_weight)
     sum_e = sum_t - sum(c @ a for c, a in zip(red.counts, proj.alpha))  # D'(t - D a), summed
     warnings: list[str] = []
-    if not proj.converged:
+    if not proj.converged and proj.iterations == 0:
+        warnings.append(
+            "NOT CONVERGED: no projection was run (--max-iter 0), so the fixed effects are not fully removed: these "
+            "are not fixed-effects estimates (raise --max-iter)"
+        )
+    elif not proj.converged:
         warnings.append(
             f"NOT CONVERGED: the projections stopped after {proj.iterations} iterations with change "
             f"{proj.change:.2e} > tol {tol:.0e}; the estimates are not reliable (raise --max-iter)"
@@ -203,6 +217,11 @@ def fit(
     for name, g in counts.items():
         if g < FEW_CLUSTERS:
             warnings.append(f"only {g} clusters in {name}: cluster-robust errors can be unreliable with few clusters")
+        elif g > n / 2:
+            warnings.append(
+                f"{g:,} clusters in {name} for {n:,} rows: most clusters hold a single row, so the errors are "
+                "close to HC1 and say little about correlation within clusters (is this the right cluster column?)"
+            )
     if inf.psd_fixed:
         warnings.append(
             "the multi-way cluster variance was not positive semi-definite; its negative eigenvalues were set to zero"
@@ -222,7 +241,7 @@ def fit(
         names=[names_all[j] for j in slopes.keep],
         coef=slopes.beta,
         **_inference_fields(inf),
-        vcov_type=spec.vcov,
+        vcov_type=spec.variance,
         cluster=" x ".join(spec.cluster) or None,
         n_clusters=n_clusters,
         cluster_counts=counts,
@@ -231,7 +250,7 @@ def fit(
         absorbed=absorbed.total,
         components=n_comp,
         r2_within=1.0 - slopes.rss / q[0, 0] if q[0, 0] > 0 else float("nan"),
-        r2_overall=1.0 - slopes.rss / tss if tss > 0 else float("nan"),
+        r2_full_model=1.0 - slopes.rss / tss if tss > 0 else float("nan"),
         rss=slopes.rss,
         df_resid=int(n - len(slopes.keep) - absorbed.total),
         rows={
@@ -269,6 +288,7 @@ def fit(
         weights=spec.weights,
         warnings=warnings,
         timings=dict(back.timings),
+        extras={"categorical": spec.categorical_levels},
     )
 
 
@@ -310,7 +330,7 @@ def _fit_family(
     xs: list[str],
     fe: list[str],
     cluster: list[str],
-    vcov: str | None,
+    variance: str | None,
     where: str | None,
     table: str | None,
     time: str | None,
@@ -325,16 +345,16 @@ def _fit_family(
     if engine == "memory":
         raise BigPanelError(f"--estimator {estimator} runs in the SQL engines only, not with --engine memory")
     within = None
-    if estimator == "random":
-        within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, drop_singletons=False, engine=engine,
+    if estimator == "random-effects":
+        within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, singletons="keep", engine=engine,
                      weights=weights, on_step=on_step, **settings)
     backend = "spark" if engine == "spark" else "duckdb"
     eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
     try:
-        spec = build_spec(src, y, xs, fe, cluster, vcov, where, time=time, weights=weights)
+        spec = build_spec(src, y, xs, fe, cluster, variance, where, time=time, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
-        fam, first = run_family(eng, spec, src.kind, estimator, within.sigma ** 2 if within else None)
+        fam, first = run_family(eng, spec, src.kind, estimator, within.rss / within.df_resid if within else None)
         if hausman:
             varying = [n for n in within.names if n in spec.x]
             fam.extras["mundlak"] = mundlak(eng, spec, first.shift, varying)
@@ -344,7 +364,7 @@ def _fit_family(
         timings = dict(eng.timings)
     finally:
         eng.close()
-    extras = dict(fam.extras)
+    extras = dict(fam.extras, categorical=spec.categorical_levels)
     warnings: list[str] = []
     if hausman and within is not None:
         extras["hausman"] = hausman_test(within, fam, spec.vcov)
@@ -357,7 +377,7 @@ def _fit_family(
         names=fam.names,
         coef=fam.coef,
         **_inference_fields(inf),
-        vcov_type=spec.vcov,
+        vcov_type=spec.variance,
         cluster=" x ".join(spec.cluster) or None,
         n_clusters=min(fam.cluster_counts.values()) if fam.cluster_counts else None,
         cluster_counts=fam.cluster_counts,
@@ -367,7 +387,8 @@ def _fit_family(
         absorbed=0,
         components=None,
         r2_within=float("nan"),
-        r2_overall=fam.r2,
+        r2_full_model=float("nan"),
+        r2_transformed=fam.r2,
         rss=fam.rss,
         df_resid=int(fam.df_resid),
         rows={"source": first.n_source, "after_filter": first.n_filtered, "incomplete": {k: v for k, v in lost.items() if v},

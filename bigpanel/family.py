@@ -68,7 +68,7 @@ from .solve import solve_slopes
 from .spec import Spec
 from .sqltext import join, render
 
-ESTIMATORS = ("within", "between", "fd", "random")
+ESTIMATORS = ("within", "between", "first-difference", "random-effects")
 
 
 @dataclass(frozen=True)
@@ -246,7 +246,7 @@ def mundlak(eng: Engine, spec: Spec, shift: np.ndarray, varying: list[str]) -> d
 def first_differences(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
     """OLS on within-unit first differences over consecutive periods (see the module docstring)."""
     if not spec.time:
-        raise BigPanelError("--estimator fd needs --time COL to order the rows within a unit")
+        raise BigPanelError("--estimator first-difference needs --time COL to order the rows within a unit")
     m = len(spec.value_aliases)
     keys = join(spec.key_aliases(0), ", ")
     diffs = [f"{v} - lag({v}) OVER by_unit AS e{j}" for j, v in enumerate(spec.value_aliases)]
@@ -288,7 +288,7 @@ def hausman_test(within: Any, fam: FamilyFit, vcov: str) -> dict[str, Any]:
     common = [n for n in within.names if n in fam.names and n != "const"]
     if vcov != "iid":
         return {"statistic": None, "df": None, "p_value": None, "regressors": common,
-                "note": "not computed: the contrast form compares iid variances; refit with --vcov iid"}
+                "note": "not computed: the contrast form compares iid variances; refit with --variance classical"}
     if not common:
         raise BigPanelError("the within and random-effects fits share no time-varying regressor to compare")
     iw = [within.names.index(n) for n in common]
@@ -301,14 +301,14 @@ def hausman_test(within: Any, fam: FamilyFit, vcov: str) -> dict[str, Any]:
 def run_family(
     eng: Engine, spec: Spec, source_kind: str, estimator: str, sigma_e2: float | None
 ) -> tuple[FamilyFit, Start]:
-    """Open the views, take the shifts, and run ``estimator`` (between, fd or random)."""
+    """Open the views, take the shifts, and run ``estimator`` (between, first-difference or random-effects)."""
     if len(spec.fe) != 1:
         raise BigPanelError(f"--estimator {estimator} takes exactly one --fe: the unit (one column, or columns joined by :)")
     create_views(eng, spec, materialize=source_kind == "csv")
     first = start(eng, spec, source_kind)
     if estimator == "between":
         return between(eng, spec, first.shift), first
-    if estimator == "fd":
+    if estimator == "first-difference":
         return first_differences(eng, spec, first.shift), first
     return random_effects(eng, spec, first.shift, float(sigma_e2))[0], first
 

@@ -70,8 +70,15 @@ def infer(
     cluster_terms: list[ClusterTerm] | None = None,
     cluster_names: tuple[str, ...] = (),
     level: float = 0.95,
+    mean_weight: float = 1.0,
 ) -> Inference:
-    """Standard errors, t and p values, intervals and the F test; see the module docstring."""
+    """Standard errors, t and p values, intervals and the F test; see the module docstring.
+
+    ``sigma`` is the residual standard error of a row of mean weight,
+    sqrt(sum_i w_i u_i^2 / (wbar df)) with wbar = ``mean_weight`` (1 unweighted), so
+    that it does not change when every weight is multiplied by the same number
+    (the variances do not either: s^2 and (X'WX)^-1 scale oppositely).
+    """
     k = len(beta)
     df_resid = n - k - absorbed.total
     if df_resid <= 0:
@@ -130,7 +137,7 @@ def infer(
         f_stat=wald,
         f_df=(float(k), df),
         f_p=f_p,
-        sigma=float(np.sqrt(sigma2)),
+        sigma=float(np.sqrt(sigma2 / mean_weight)),
         small_sample=float(factor if vcov != "iid" else 1.0),
         psd_fixed=psd_fixed,
     )

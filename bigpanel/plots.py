@@ -50,13 +50,21 @@ def plot_effects(effects: dict[str, pa.Table], path: str | Path) -> None:
 
 
 def plot_periods(desc: PanelDescription, path: str | Path) -> None:
-    """Bar chart of the number of units by number of distinct periods."""
+    """Coverage curve: the share of units seen in at least k distinct periods, for every k.
+
+    A balanced panel is a flat line at 100%; the drop shows where units start to thin out.
+    """
     plt = pyplot()
-    periods, units = zip(*desc.period_histogram)
+    periods = np.array([k for k, _ in desc.period_histogram])
+    units = np.array([n for _, n in desc.period_histogram])
+    ks = np.arange(1, desc.periods + 1)
+    at_least = np.array([units[periods >= k].sum() for k in ks]) / desc.units * 100
     fig, ax = plt.subplots(figsize=(7, 4), layout="constrained")
-    ax.bar(periods, units, width=0.8, color="#3b7d8c")
+    ax.step(ks, at_least, where="mid", color="#3b7d8c")
+    ax.fill_between(ks, at_least, step="mid", color="#3b7d8c", alpha=0.15)
+    ax.set_ylim(0, 105)
     ax.xaxis.get_major_locator().set_params(integer=True)
-    ax.set_xlabel(f"distinct periods ({desc.time}) per unit")
-    ax.set_ylabel(f"units ({desc.id})")
-    ax.set_title(f"periods per unit: {desc.units:,} units, {desc.periods:,} periods")
+    ax.set_xlabel(f"seen in at least this many of the {desc.periods:,} periods ({desc.time})")
+    ax.set_ylabel(f"share of the {desc.units:,} units ({desc.id}), %")
+    ax.set_title("coverage of the panel by its units")
     save_figure(fig, path)

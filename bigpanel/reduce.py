@@ -112,11 +112,12 @@ def _key(spec: Spec, column: str) -> str:
     return ident(column)
 
 
-def _value(spec: Spec, column: str, j: int) -> str:
-    """Value column j as a double; a wide integer first loses its offset in the integer domain."""
-    if column in spec.wide_values:
-        return f"CAST(CAST({ident(column)} AS DECIMAL(38, 0)) - CAST(o.o{j} AS DECIMAL(38, 0)) AS DOUBLE)"
-    return f"CAST({ident(column)} AS DOUBLE)"
+def _value(spec: Spec, name: str, j: int, sql: str) -> str:
+    """Value column j (the term ``name``, SQL ``sql``) as a double; a wide integer column first
+    loses its offset in the integer domain."""
+    if name in spec.wide_values:
+        return f"CAST(CAST({ident(name)} AS DECIMAL(38, 0)) - CAST(o.o{j} AS DECIMAL(38, 0)) AS DOUBLE)"
+    return f"CAST({sql} AS DOUBLE)"
 
 
 def _store_offsets(eng: Engine, spec: Spec) -> bool:
@@ -169,7 +170,8 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     same sample (as a view, each pass would draw another one).
     """
     offsets = _store_offsets(eng, spec)
-    columns = [f"{_value(spec, name, j)} AS v{j}" for j, name in enumerate([spec.y, *spec.x])]
+    terms = zip([spec.y, *spec.x], spec.value_sql)
+    columns = [f"{_value(spec, name, j, sql)} AS v{j}" for j, (name, sql) in enumerate(terms)]
     for d, cols in enumerate(spec.fe):
         columns += [f"{_key(spec, c)} AS {a}" for c, a in zip(cols, spec.key_aliases(d))]
     columns += [f"{_key(spec, c)} AS {a}" for c, a in zip(spec.cluster, spec.cluster_aliases)]
@@ -233,9 +235,10 @@ def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
     keys += list(zip(spec.cluster, spec.cluster_aliases))
     if spec.time:
         keys.append((spec.time, "tm"))
-    if spec.weights:
-        aggs.append("sum(CASE WHEN isfinite(w) AND w > 0 THEN 0 ELSE 1 END) AS bad_w")
-        checks.append((spec.weights, "bad_w"))
+    if spec.weights:  # a missing weight and a zero or negative one are different mistakes
+        aggs.append("sum(CASE WHEN isfinite(w) THEN 0 ELSE 1 END) AS bad_w")
+        aggs.append("sum(CASE WHEN isfinite(w) AND w <= 0 THEN 1 ELSE 0 END) AS low_w")
+        checks += [(spec.weights, "bad_w"), (f"{spec.weights} zero or negative", "low_w")]
     for name, alias in keys:
         aggs.append(f"sum(CASE WHEN {alias} IS NULL THEN 1 ELSE 0 END) AS bad_{alias}")
         checks.append((name, f"bad_{alias}"))

@@ -12,9 +12,9 @@ from rich.text import Text
 from .results import FitResult
 
 VCOV_LABEL = {
-    "iid": "classical (homoskedastic)",
-    "hc1": "heteroskedasticity-robust HC1",
-    "cluster": "cluster-robust CR1",
+    "classical": "classical (one error variance for every row)",
+    "hc1": "HC1, robust to unequal error variances",
+    "cr1": "CR1, robust to errors correlated within clusters",
 }
 
 
@@ -36,10 +36,10 @@ def fit_renderable(res: FitResult) -> Group:
     head.append(f"{res.estimator} estimate  ", style="bold")
     head.append(res.formula, style="bold magenta")
     if res.estimator == "within":
-        effects = " + ".join(f"{d['name']} ({_n(d['levels'])} levels)" for d in res.fe)
-        head.append(f"\nabsorbing  {effects}", style="dim")
+        effects = ", ".join(f"{d['name']} with {_n(d['levels'])} levels" for d in res.fe)
+        head.append(f"\nfixed effects removed: {effects}", style="dim")
     else:
-        head.append(f"\nunit  {res.fe[0]['name']}", style="dim")
+        head.append(f"\npanel unit: {res.fe[0]['name']}", style="dim")
 
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
     table.add_column("regressor")
@@ -65,50 +65,54 @@ def fit_renderable(res: FitResult) -> Group:
         drops.append(f"{_n(r['source'] - r['after_filter'])} outside the filter")
     if r["dropped_incomplete"]:
         cols = ", ".join(f"{c} {_n(v)}" for c, v in r["incomplete"].items())
-        drops.append(f"{_n(r['dropped_incomplete'])} incomplete ({cols})")
+        drops.append(f"{_n(r['dropped_incomplete'])} with a missing or unusable value ({cols})")
     if r["dropped_singletons"]:
         drops.append(f"{_n(r['dropped_singletons'])} singletons")
     if drops:
         lines.append("; dropped " + "; ".join(drops))
     if res.weights:
-        lines.append(f"; weighted by {res.weights} (analytic weights)")
+        lines.append(f"; each row counts in proportion to {res.weights}")
+    for c in res.extras.get("categorical", []):
+        lines.append("\nlevels    ", style="bold")
+        lines.append(f"{c['term']}: {_n(c['levels'])} levels, one indicator each but the base {c['base']!r}")
     lines.append("\nvariance  ", style="bold")
     lines.append(VCOV_LABEL[res.vcov_type])
     if res.cluster:
         nested = [d["name"] for d in res.fe if d["nested_in_cluster"]]
-        per = ", ".join(f"{_n(g)} {c}" for c, g in res.cluster_counts.items())
-        lines.append(f" by {res.cluster} ({per} clusters)")
+        per = ", ".join(f"{c} {_n(g)}" for c, g in res.cluster_counts.items())
+        lines.append(f"; clusters: {per}")
         if nested:
-            lines.append(f"; nested in the cluster: {', '.join(nested)}")
+            lines.append(f"; each level of {', '.join(nested)} lies inside one cluster")
     lines.append(f"; t on {_n(res.df)} df")
     lines.append("\nfit       ", style="bold")
-    r2 = f"within R2 {res.r2_within:.4f}; overall R2" if res.estimator == "within" else "R2 of the transformed regression"
+    r2 = (f"R-squared {res.r2_full_model:.4f} with the effects, {res.r2_within:.4f} after removing them"
+          if res.estimator == "within" else f"R-squared {res.r2_transformed:.4f} of the transformed regression")
     lines.append(
-        f"{r2} {res.r2_overall:.4f}; residual s.e. {_g(res.sigma, 4)} "
+        f"{r2}; residual s.e. {_g(res.sigma, 4)} "
         f"on {_n(res.df_resid)} df; F({_n(res.f_df[0])}, {_n(res.f_df[1])}) = {res.f_stat:.4g}, p {_p(res.f_p)}"
     )
     s = res.solver
     if res.estimator == "within":
         lines.append("\neffects   ", style="bold")
         comp = f" in {res.components} connected components" if res.components else ""
-        lines.append(f"{_n(res.absorbed)} absorbed parameters{comp}")
+        lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
         lines.append("\nsolver    ", style="bold")
         conv = "converged" if s["converged"] else "NOT CONVERGED"
-        lines.append(
-            f"{s['path']}; {s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv}); "
-            f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s"
-        )
+        steps = (f"{s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv})"
+                 if s["converged"] or s["iterations"] else "no iterations run (NOT CONVERGED)")
+        lines.append(f"{s['path']}; {steps}; {s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")
     else:
         lines.append("\nsolver    ", style="bold")
         lines.append(f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")
     re_ = res.extras.get("random_effects")
     if re_:
-        lines.append("\ncomponents", style="bold")
+        lines.append("\nerror parts", style="bold")
         th = re_["theta"]
         lines.append(
-            f" {re_['method']}: sigma_u {_g(re_['sigma_u'], 4)}, sigma_e {_g(re_['sigma_e'], 4)}; theta "
+            f" ({re_['method']}) s.d. of the unit part {_g(re_['sigma_u'], 4)}, of the row part "
+            f"{_g(re_['sigma_e'], 4)}; share of the unit mean taken out "
             + (f"{th['min']:.4f}" if th["min"] == th["max"] else f"{th['min']:.4f} to {th['max']:.4f}")
-            + ("; sigma_u^2 was negative and is set to 0" if re_["sigma_u_clipped_at_zero"] else "")
+            + ("; the unit part's variance came out negative and is set to 0" if re_["sigma_u_clipped_at_zero"] else "")
         )
     hs = res.extras.get("hausman")
     if hs:

@@ -48,7 +48,7 @@ class FitResult:
     absorbed: int
     components: int | None
     r2_within: float
-    r2_overall: float
+    r2_full_model: float
     rss: float
     sigma: float
     df_resid: int
@@ -66,6 +66,7 @@ class FitResult:
     estimator: str = "within"
     weights: str | None = None
     extras: dict[str, Any] = field(default_factory=dict)
+    r2_transformed: float = float("nan")
 
     @property
     def params(self) -> dict[str, float]:
@@ -131,7 +132,8 @@ class FitResult:
             "components": self.components,
             "fit": {
                 "r2_within": _num(self.r2_within),
-                "r2_overall": _num(self.r2_overall),
+                "r2_full_model": _num(self.r2_full_model),
+                "r2_transformed": _num(self.r2_transformed),
                 "rss": _num(self.rss),
                 "sigma": _num(self.sigma),
                 "df_resid": self.df_resid,

@@ -84,6 +84,8 @@ def _threads_for(memory_limit: str | None) -> int | None:
 
 def _kind_of(location: str, table: str | None) -> str:
     low = location.lower()
+    if table is not None and low.endswith(_CSV + _PARQUET):
+        raise BigPanelError(f"--table names a table inside a database file; {location} is a file of its own: drop --table")
     if table is not None:
         return "table"
     if low.endswith(_PARQUET) or os.path.isdir(location):
@@ -148,10 +150,46 @@ def _check_same_schema(con: duckdb.DuckDBPyConnection, files: list[str], paths: 
             raise BigPanelError(f"Parquet files differ in their columns: {f} vs {first} ({detail})")
 
 
+def _delimiter(given: str | None, location: str) -> str:
+    """The CSV field separator: ``given`` (one character, or ``tab``), else tab for .tsv and comma."""
+    if given is None:
+        return "\t" if location.lower().endswith((".tsv", ".tsv.gz")) else ","
+    given = "\t" if given in ("tab", "\\t") else given
+    if len(given) != 1:
+        raise BigPanelError(f"--delimiter {given!r} must be one character (or 'tab')")
+    return given
+
+
+def _check_csv_header(location: str, names: list[str], delimiter: str | None) -> None:
+    """Refuse a CSV read with the wrong separator (one column whose name holds ; tab or |) or
+    without a header row (more than half the column names are numbers or dates)."""
+    if len(names) == 1 and delimiter is None:
+        other = next((c for c in ";\t|" if c in names[0]), None)
+        if other is not None:
+            shown = "tab" if other == "\t" else other
+            raise BigPanelError(f"{location} reads as one column; its fields look {shown!r}-separated: "
+                                f"give --delimiter {shown!r}")
+    if 2 * sum(_is_number(name) for name in names) > len(names):
+        raise BigPanelError(f"{location}: the first row ({', '.join(names[:4])}...) looks like data, not a header; "
+                            "add a header row naming the columns")
+
+
+def _is_number(text: str) -> bool:
+    """A number or an ISO date: what a data row holds and a header rarely does."""
+    try:
+        float(text)
+    except ValueError:
+        return bool(re.fullmatch(r"\d{4}-\d{2}-\d{2}.*", text.strip()))
+    return True
+
+
 def open_source(
-    con: duckdb.DuckDBPyConnection, location: str, table: str | None = None
+    con: duckdb.DuckDBPyConnection, location: str, table: str | None = None, delimiter: str | None = None
 ) -> Source:
-    """Create the view ``bp_source`` over ``location`` and read its schema."""
+    """Create the view ``bp_source`` over ``location`` and read its schema.
+
+    ``delimiter`` separates a CSV file's fields (default: tab for .tsv, else comma).
+    """
     location = str(location)
     kind = _kind_of(location, table)
     try:
@@ -167,8 +205,7 @@ def open_source(
             if not os.path.exists(location):
                 raise BigPanelError(f"file not found: {location}")
             _check_not_empty(location)
-            delim = "\t" if location.lower().endswith((".tsv", ".tsv.gz")) else ","
-            _check_header(location, delim)
+            delim = _delimiter(delimiter, location)
             try:
                 con.execute(render("source_csv", path=literal(location), delim=literal(delim))).fetchall()
             except duckdb.Error as exc:
@@ -195,6 +232,9 @@ def open_source(
     columns = {row[0]: row[1] for row in described}
     if not columns:
         raise BigPanelError(f"{location} has no columns")
+    if kind == "csv":
+        _check_csv_header(location, list(columns), delimiter)
+        _check_header(location, _delimiter(delimiter, location))
     return Source(location=location, kind=kind, table=table, columns=columns)
 
 
@@ -208,6 +248,7 @@ def open_session(
     temp_dir: str | None = None,
     threads: int | None = None,
     on_step: Callable[[str], None] | None = None,
+    delimiter: str | None = None,
 ) -> tuple[Engine, Source]:
     """An engine holding the view ``bp_source`` over ``location``, and the source's schema.
 
@@ -225,7 +266,7 @@ def open_session(
         return open_spark(str(location), table, master=spark_master, on_step=on_step)
     con = connect(memory_limit, temp_dir, threads)
     try:
-        src = open_source(con, location, table)
+        src = open_source(con, location, table, delimiter)
     except BaseException:
         con.close()
         raise

@@ -13,14 +13,20 @@ import json
 import re
 
 import duckdb
+import pyarrow as pa
 from dataclasses import dataclass
 
 from .errors import BigPanelError
 from .engine import Engine, EngineError
+from .formula import Factor, Term, factor_sql, parse_outcome, parse_rhs, parse_term, sql_expression, term_label
 from .source import Source
-from .sqltext import render
+from .sqltext import ident, literal, render
 
-VCOV_TYPES = ("iid", "hc1", "cluster")
+# the user's names of the variance estimators and the internal codes the SQL steps test for
+VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}
+SINGLETONS = ("drop", "keep")
+_FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
+MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe
 _NUMERIC = re.compile(
     r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
     r"|FLOAT|DOUBLE|REAL|DECIMAL.*|BOOLEAN)$"
@@ -66,11 +72,29 @@ class Spec:
     weights: str | None = None
     float_keys: tuple[str, ...] = ()  # effect and cluster columns of a floating type (NaN/inf possible)
     wide_values: tuple[str, ...] = ()  # outcome/regressors of an integer type wider than a double
+    y_sql: str = ""
+    x_sql: tuple[str, ...] = ()
+    categorical: tuple[tuple[str, int, str], ...] = ()
 
     @property
     def volatile_where(self) -> bool:
         """Whether the filter calls a function whose value changes between evaluations (random, now, ...)."""
         return bool(self.where) and bool(_functions(_parse_where(self.where)) & VOLATILE_FUNCTIONS)
+
+    @property
+    def value_sql(self) -> list[str]:
+        """The SQL of the outcome and of each regressor over quoted source columns (``v0``, ``v1``...)."""
+        return [self.y_sql or ident(self.y), *(self.x_sql or map(ident, self.x))]
+
+    @property
+    def categorical_levels(self) -> list[dict[str, object]]:
+        """Each ``levels()`` term: its level count and the base level left out (JSON ``categorical``)."""
+        return [{"term": term, "levels": n, "base": base} for term, n, base in self.categorical]
+
+    @property
+    def variance(self) -> str:
+        """The user's name of the variance estimator: ``classical``, ``hc1`` or ``cr1``."""
+        return next(name for name, code in VARIANCE_TYPES.items() if code == self.vcov)
 
     @property
     def w(self) -> str:
@@ -98,19 +122,14 @@ class Spec:
 
 
 def parse_formula(formula: str) -> tuple[str, list[str]]:
-    """Split ``y ~ x1 + x2`` into the outcome and the regressors."""
+    """Split ``y ~ terms`` into the outcome and the regressors' labels, the operators
+    ``+ - : * ( )`` applied (see :mod:`bigpanel.formula`)."""
     if formula.count("~") != 1:
         raise BigPanelError(f"formula {formula!r} needs exactly one '~' (as in 'y ~ x1 + x2')")
     lhs, rhs = (part.strip() for part in formula.split("~"))
-    terms = [t.strip() for t in rhs.split("+")]
-    if not lhs or not terms or any(not t for t in terms):
+    if not lhs or not rhs:
         raise BigPanelError(f"formula {formula!r} is incomplete (write it as 'y ~ x1 + x2')")
-    for term in terms:
-        if term in ("0", "1", "-1"):
-            raise BigPanelError(
-                f"formula term {term!r}: the intercept is absorbed by the fixed effects; leave it out"
-            )
-    return lhs, terms
+    return parse_outcome(lhs).label, [term_label(t) for t in parse_rhs(rhs)]
 
 
 def _check_column(name: str, source: Source, role: str) -> None:
@@ -127,18 +146,113 @@ def _split_effect(term: str, source: Source) -> tuple[str, ...]:
     return tuple(part.strip() for part in term.split(":"))
 
 
+def _term(text: str, source: Source) -> Term:
+    """A regressor given by a column name or by a term's label."""
+    return (Factor("column", text),) if text in source.columns else parse_term(text)
+
+
+def _check_factor(factor: Factor, source: Source, role: str, eng: Engine | None) -> None:
+    """Columns exist and are numbers; an expression binds to a number (when an engine is at hand)."""
+    if factor.kind == "power":
+        _check_factor(parse_term(factor.arg)[0], source, role, eng)
+        return
+    if factor.kind in ("column", "levels") or factor.arg in source.columns:
+        _check_column(factor.arg, source, role)
+        if factor.kind != "levels" and not _NUMERIC.match(source.columns[factor.arg]):
+            raise BigPanelError(
+                f"column {factor.arg!r} has type {source.columns[factor.arg]}, not a number: it cannot be the "
+                "outcome or a regressor (levels(column) makes indicators of a categorical column)"
+            )
+        return
+    expression, used = sql_expression(factor.arg, source.columns)
+    for name in used:
+        _check_column(name, source, role)
+    if eng is None:
+        return
+    try:
+        kind = eng.arrow("check a term", render("check_term", expression=f"({expression})")).schema[0].type
+    except EngineError as exc:
+        raise BigPanelError(f"term {factor.label!r} is not a valid expression: {exc.detail}") from None
+    if not (pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind)
+            or pa.types.is_boolean(kind)):
+        raise BigPanelError(f"term {factor.label!r} has type {kind}, not a number")
+
+
+def _check_whole_numbers(name: str, source: Source, eng: Engine | None) -> None:
+    """Refuse a floating-point effect or cluster column unless every value is a whole number:
+    levels that differ in the 16th digit would silently split one group in two."""
+    if eng is None or name not in source.columns or not _FLOAT.match(source.columns[name]):
+        return
+    if eng.one(f"whole numbers in {name}", render("fractional_key", column=ident(name)), raw=True)["n"]:
+        raise BigPanelError(
+            f"column {name!r} ({source.columns[name]}) has values that are not whole numbers: it cannot define "
+            "fixed-effect levels or clusters; round or cast it, or give an integer or text column"
+        )
+
+
+def _levels(eng: Engine | None, column: str, where: str | None) -> list[str]:
+    """The levels of a categorical regressor under the filter, in text order (one pass over the rows)."""
+    if eng is None:
+        raise BigPanelError(f"levels({column}) needs the data: use it in bigpanel fit")
+    if where:
+        check_where(eng, where)
+    sql = render("term_levels", column=ident(column), where=f"({where})" if where else "TRUE")
+    rows = eng.arrow(f"levels of {column}", sql, {"limit": MAX_LEVELS + 1}, raw=True).column("level").to_pylist()
+    if len(rows) > MAX_LEVELS:
+        raise BigPanelError(f"levels({column}) has more than {MAX_LEVELS} levels: absorb it with --fe {column} instead")
+    if len(rows) < 2:
+        raise BigPanelError(f"levels({column}) has {len(rows)} level under the filter: nothing to compare")
+    return rows
+
+
+def _shown(factor: Factor) -> str:
+    """A factor's name in results: a column's own name, else the factor as written."""
+    return factor.arg if factor.kind == "column" else factor.label
+
+
+def _term_columns(term: Term, source: Source, eng: Engine | None, where: str | None,
+                  categorical: dict[str, tuple[str, int, str]]) -> list[tuple[str, str]]:
+    """(label, SQL) of every column a term makes: a product over its factors, each levels()
+    factor giving one indicator per level but the first."""
+    columns = [("", "")]
+    for f in term:
+        _check_factor(f, source, "regressor", eng)
+        if f.kind == "levels":
+            levels = _levels(eng, f.arg, where)
+            categorical[f.arg] = (f.label, len(levels), levels[0])
+            col = ident(f.arg)  # NULL stays NULL (the row is incomplete); no boolean cast, which PostgreSQL lacks
+            parts = [(f"{f.arg}[{lvl}]",
+                      f"CASE WHEN CAST({col} AS VARCHAR) = {literal(lvl)} THEN 1.0 WHEN {col} IS NOT NULL THEN 0.0 END")
+                     for lvl in levels[1:]]
+        else:
+            parts = [(_shown(f), factor_sql(f, source.columns))]
+        columns = [(f"{a}:{b}" if a else b, f"{sa} * CAST({sb} AS DOUBLE)" if sa else f"CAST({sb} AS DOUBLE)")
+                   for a, sa in columns for b, sb in parts]
+    if len(term) == 1 and term[0].kind != "levels":
+        columns = [(_shown(term[0]), factor_sql(term[0], source.columns))]
+    return columns
+
+
 def build_spec(
     source: Source,
     y: str,
     x: list[str],
     fe: list[str],
     cluster: list[str] | None = None,
-    vcov: str | None = None,
+    variance: str | None = None,
     where: str | None = None,
     time: str | None = None,
     weights: str | None = None,
+    *,
+    eng: Engine | None = None,
 ) -> Spec:
-    """Check names, types and options; return the spec or raise a one-line error."""
+    """Check names, types and options; return the spec or raise a one-line error.
+
+    Each regressor in ``x`` is a column name or a term's label (``log(price)``,
+    ``levels(region):promo``; see :mod:`bigpanel.formula`); it becomes one SQL
+    expression over quoted source columns, or one per level for ``levels()``.
+    ``eng`` binds expressions and reads the levels of categorical terms.
+    """
     if not x:
         raise BigPanelError("no regressors: give at least one --x (or a formula 'y ~ x1 + ...')")
     if not fe:
@@ -148,37 +262,36 @@ def build_spec(
         raise BigPanelError(f"regressor {dup!r} is listed twice")
     if y in x:
         raise BigPanelError(f"column {y!r} is both the outcome and a regressor")
-    _check_column(y, source, "outcome")
-    for name in x:
-        _check_column(name, source, "regressor")
-    for name in [y, *x]:
-        kind = source.columns[name]
-        if not _NUMERIC.match(kind):
-            raise BigPanelError(
-                f"column {name!r} has type {kind}, not a number: it cannot be the outcome or a regressor"
-            )
+    outcome = _term(y, source)
+    if len(outcome) != 1 or outcome[0].kind == "levels":
+        raise BigPanelError(f"the outcome {y!r} must be one numeric column or expression")
+    _check_factor(outcome[0], source, "outcome", eng)
+    if where is not None:
+        where = canonical_where(where, source.columns) if where.strip() else None
+    categorical: dict[str, tuple[str, int, str]] = {}
+    regressors = dict(col for name in x for col in _term_columns(_term(name, source), source, eng, where, categorical))
     effects = tuple(_split_effect(term, source) for term in fe)
     for cols in effects:
         for name in cols:
             _check_column(name, source, "fixed-effect")
     if len(set(effects)) != len(effects):
         raise BigPanelError("the same fixed effect is listed twice")
-    if vcov is None:
-        vcov = "cluster" if cluster else "iid"
-    vcov = vcov.lower()
-    if vcov not in VCOV_TYPES:
-        raise BigPanelError(f"unknown variance type {vcov!r}: choose one of {', '.join(VCOV_TYPES)}")
-    if vcov == "cluster" and not cluster:
-        raise BigPanelError("--vcov cluster needs a --cluster column")
+    for name in dict.fromkeys([c for cols in effects for c in cols] + list(cluster or [])):
+        _check_whole_numbers(name, source, eng)
+    if variance is None:
+        variance = "cr1" if cluster else "classical"
+    variance = variance.lower()
+    if variance not in VARIANCE_TYPES:
+        raise BigPanelError(f"unknown variance type {variance!r}: choose one of {', '.join(VARIANCE_TYPES)}")
+    if variance == "cr1" and not cluster:
+        raise BigPanelError("--variance cr1 needs a --cluster column")
     cluster = list(cluster or [])
-    if cluster and vcov != "cluster":
-        raise BigPanelError(f"--cluster {', '.join(cluster)} conflicts with --vcov {vcov}: drop one of them")
+    if cluster and variance != "cr1":
+        raise BigPanelError(f"--cluster {', '.join(cluster)} conflicts with --variance {variance}: drop one of them")
     if len(set(cluster)) != len(cluster):
         raise BigPanelError("the same cluster column is listed twice")
     for name in cluster:
         _check_column(name, source, "cluster")
-    if where is not None:
-        where = canonical_where(where, source.columns) if where.strip() else None
     if time is not None:
         _check_column(time, source, "time")
     if weights is not None:
@@ -186,9 +299,12 @@ def build_spec(
         if not _NUMERIC.match(source.columns[weights]):
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
     keys = [c for cols in effects for c in cols] + cluster
-    return Spec(y=y, x=tuple(x), fe=effects, cluster=tuple(cluster), vcov=vcov, where=where, time=time,
-                weights=weights, float_keys=tuple(c for c in keys if source.columns[c] in _FLOATS),
-                wide_values=tuple(c for c in [y, *x] if _WIDE.match(source.columns[c])))
+    plain = [c for c in [y, *regressors] if c in source.columns]
+    return Spec(y=y, x=tuple(regressors), fe=effects, cluster=tuple(cluster), vcov=VARIANCE_TYPES[variance],
+                where=where, time=time, weights=weights, y_sql=factor_sql(outcome[0], source.columns),
+                x_sql=tuple(regressors.values()), categorical=tuple(categorical.values()),
+                float_keys=tuple(c for c in keys if source.columns[c] in _FLOATS),
+                wide_values=tuple(c for c in plain if _WIDE.match(source.columns[c])))
 
 
 def canonical_where(where: str, columns: dict[str, str] | None = None) -> str:

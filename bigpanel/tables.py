@@ -1,8 +1,12 @@
-"""Side-by-side tables of saved fits: one grid of cells, rendered as Markdown, LaTeX, CSV or rich.
+"""Side-by-side tables of saved fits: one grid of cells, rendered as Markdown, LaTeX or rich, and
+the same numbers as machine-readable CSV.
 
 ``load_fits`` reads results written by ``FitResult.to_json()``; ``build_table``
 turns them into a :class:`ModelTable` (header, coefficient rows, footer rows,
-notes), every cell already a string; each renderer only lays that grid out.
+notes, every cell already a string; and one record per model and term for CSV);
+each renderer only lays that out. A standard error is shown to two significant
+digits and its estimate to the same decimal place, always in plain decimal
+notation (common practice in published tables).
 """
 
 from __future__ import annotations
@@ -10,6 +14,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
@@ -21,8 +26,11 @@ from rich.text import Text
 from .errors import BigPanelError
 
 STARS = ((0.01, "***"), (0.05, "**"), (0.1, "*"))
-VCOV_NAMES = {"iid": "iid", "hc1": "HC1", "cluster": "cluster-robust"}
+VCOV_NAMES = {"classical": "classical", "hc1": "HC1", "cr1": "CR1"}
+R2_DECIMALS = 3
+TIMES = " \u00d7 "  # between cluster columns; LaTeX gets $\times$
 LATEX_SPECIAL = {
+    "\u00d7": r"$\times$",
     "\\": r"\textbackslash{}",
     "~": r"\textasciitilde{}",
     "^": r"\textasciicircum{}",
@@ -41,14 +49,17 @@ class ModelTable:
     """The cells of a model table; every row is a label followed by one cell per fit.
 
     ``body`` alternates an estimate row (label: the regressor) and a standard
-    error row (label: empty); ``footer`` holds N, the effects, the variance type,
-    the within R-squared and, when they differ, the outcome, estimator and weights.
+    error row (label: empty); ``footer`` holds N, the effects, the clusters per
+    cluster column, the variance type, the full-model and within R-squared and,
+    when they differ, the outcome, estimator and weights. ``records`` has one
+    dict per model and term with the unrounded numbers (the CSV output).
     """
 
     header: Row
     body: list[Row]
     footer: list[Row]
     notes: list[str]
+    records: list[dict[str, Any]]
 
     def sections(self) -> list[list[Row]]:
         """Header, body and footer, in the order they are drawn."""
@@ -71,16 +82,18 @@ def load_fits(paths: list[str]) -> list[dict[str, Any]]:
     return fits
 
 
-def format_number(value: float | None, digits: int = 4) -> str:
-    """``value`` with ``digits`` decimals, or in exponent form with ``digits`` significant digits
-    (at least one) when it is nonzero and below 10^-digits or at least 10^6 in magnitude;
-    ``n/a`` when missing."""
+def decimals_for(error: float | None, significant: int = 2) -> int:
+    """Decimal places that show ``error`` to ``significant`` significant digits (at least 0)."""
+    if error is None or error == 0 or not math.isfinite(error):
+        return significant
+    return max(0, significant - 1 - math.floor(math.log10(abs(error))))
+
+
+def format_number(value: float | None, decimals: int) -> str:
+    """``value`` with ``decimals`` decimals in plain notation; ``n/a`` when missing."""
     if value is None:
         return MISSING
-    size = abs(value)
-    if size >= 1e6 or 0 < size < 10.0**-digits:
-        return f"{value:.{max(digits - 1, 0)}e}"
-    return f"{value:.{digits}f}"
+    return f"{value:.{decimals}f}"
 
 
 def _stars(p: float | None) -> str:
@@ -94,10 +107,12 @@ def _first_seen(groups: list[list[str]]) -> list[str]:
 
 
 def _variance(fit: dict[str, Any]) -> str:
+    """``classical``, ``HC1`` or ``CR1: store \u00d7 week`` (the cluster columns)."""
     vcov = fit.get("vcov") or {}
     kind = vcov.get("type", "")
     name = VCOV_NAMES.get(kind, kind)
-    return f"{name} by {vcov['cluster']}" if kind == "cluster" and vcov.get("cluster") else name
+    columns = list(vcov.get("clusters_per_column") or {})
+    return f"{name}: " + TIMES.join(columns) if kind == "cr1" and columns else name
 
 
 def _coefficient_rows(fits: list[dict[str, Any]], stars: bool, digits: int) -> list[Row]:
@@ -111,18 +126,25 @@ def _coefficient_rows(fits: list[dict[str, Any]], stars: bool, digits: int) -> l
                 errors.append("")
                 continue
             mark = _stars(coef.get("p_value")) if stars else ""
-            estimates.append(format_number(coef.get("estimate"), digits) + mark)
-            errors.append(f"({format_number(coef.get('std_error'), digits)})")
+            places = decimals_for(coef.get("std_error"), digits)
+            estimates.append(format_number(coef.get("estimate"), places) + mark)
+            errors.append(f"({format_number(coef.get('std_error'), places)})")
         rows += [estimates, errors]
     return rows
 
 
-def _footer_rows(fits: list[dict[str, Any]], digits: int) -> list[Row]:
+def _footer_rows(fits: list[dict[str, Any]]) -> list[Row]:
     effects = [[d["name"] for d in f.get("fixed_effects") or []] for f in fits]
+    clusters = [(f.get("vcov") or {}).get("clusters_per_column") or {} for f in fits]
     rows = [["N", *(f"{int(f['nobs']):,}" for f in fits)]]
     rows += [[f"{name} effects", *("yes" if name in have else "" for have in effects)] for name in _first_seen(effects)]
+    rows += [[f"clusters: {name}", *(f"{c[name]:,}" if name in c else "" for c in clusters)]
+             for name in _first_seen([list(c) for c in clusters])]
     rows.append(["variance", *map(_variance, fits)])
-    rows.append(["within R-squared", *(format_number((f.get("fit") or {}).get("r2_within"), digits) for f in fits)])
+    for label, key in (("R-squared, full model", "r2_full_model"), ("within R-squared", "r2_within")):
+        values = [(f.get("fit") or {}).get(key) for f in fits]
+        if any(v is not None for v in values):
+            rows.append([label, *(format_number(v, R2_DECIMALS) if v is not None else "" for v in values)])
     for key, usual in (("outcome", fits[0].get("outcome")), ("estimator", "within"), ("weights", None)):
         values = [f.get(key) for f in fits]
         if any(value != usual for value in values):
@@ -130,14 +152,33 @@ def _footer_rows(fits: list[dict[str, Any]], digits: int) -> list[Row]:
     return rows
 
 
+def _records(fits: list[dict[str, Any]], header: Row) -> list[dict[str, Any]]:
+    """One dict per model and term: the unrounded numbers and the model's facts, for CSV."""
+    out = []
+    for label, fit in zip(header[1:], fits):
+        vcov, stats = fit.get("vcov") or {}, fit.get("fit") or {}
+        for term, coef in fit["coefficients"].items():
+            out.append({
+                "model": label, "outcome": fit.get("outcome"), "term": term,
+                **{key: coef.get(key) for key in ("estimate", "std_error", "t", "p_value", "ci_low", "ci_high")},
+                "nobs": fit["nobs"], "variance": vcov.get("type"),
+                "cluster": vcov.get("cluster"), "clusters": vcov.get("clusters"),
+                "r2_full_model": stats.get("r2_full_model"), "r2_within": stats.get("r2_within"),
+                "estimator": fit.get("estimator"), "weights": fit.get("weights"),
+            })
+    return out
+
+
 def build_table(
     fits: list[dict[str, Any]],
     stars: bool = False,
-    digits: int = 4,
+    digits: int = 2,
     labels: list[str] | None = None,
 ) -> ModelTable:
     """One column per fit (headed ``(1)``, ``(2)``, ... or ``labels``): each regressor's estimate
     with its standard error in parentheses beneath, blank where a fit lacks it, then the footer.
+    ``digits`` is the number of significant digits of each standard error; the estimate
+    above it has as many decimals.
 
     With ``stars``, estimates get *** for p < 0.01, ** for p < 0.05 and * for p < 0.1.
     """
@@ -145,13 +186,13 @@ def build_table(
         raise BigPanelError("no fits to tabulate: give at least one saved result")
     if labels is not None and len(labels) != len(fits):
         raise BigPanelError(f"{len(labels)} column labels for {len(fits)} fits")
-    if digits < 0:
-        raise BigPanelError(f"digits must be 0 or more, not {digits}")
+    if digits < 1:
+        raise BigPanelError(f"--digits must be 1 or more, not {digits}")
     header = ["", *(labels if labels is not None else (f"({i})" for i in range(1, len(fits) + 1)))]
     notes = ["standard errors in parentheses"]
     if stars:
         notes.append("significance: " + "; ".join(f"{mark} p < {cut}" for cut, mark in STARS))
-    return ModelTable(header, _coefficient_rows(fits, stars, digits), _footer_rows(fits, digits), notes)
+    return ModelTable(header, _coefficient_rows(fits, stars, digits), _footer_rows(fits), notes, _records(fits, header))
 
 
 def to_markdown(table: ModelTable) -> str:
@@ -185,11 +226,12 @@ def to_latex(table: ModelTable) -> str:
 
 
 def to_csv(table: ModelTable) -> str:
-    """The grid as CSV rows (standard error rows have an empty first cell), then one row per note."""
+    """One row per model and term with a header row; numbers unrounded (``repr``), missing ones empty."""
     buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\n")
-    writer.writerows(row for section in table.sections() for row in section)
-    writer.writerows([note] for note in table.notes)
+    if table.records:
+        writer = csv.DictWriter(buf, fieldnames=list(table.records[0]), lineterminator="\n")
+        writer.writeheader()
+        writer.writerows({k: "" if v is None else v for k, v in row.items()} for row in table.records)
     return buf.getvalue()
 
 

@@ -46,4 +46,4 @@ COPY (
          2.0 + $beta_price * price_raw + $beta_promo * promo
              + store_fx + product_fx + week_fx + 0.3 * z_noise AS log_units
   FROM priced
-) TO {{path}} (FORMAT parquet, ROW_GROUP_SIZE 1000000)
+) TO {{path}} ({{format}})

@@ -121,8 +121,8 @@ def test_memory_limit_spills_and_gives_the_same_answer(tmp_path):
     # check is the unlimited fit's answer, itself checked against statsmodels in test_multiway_lsdv.
     path = tmp_path / "spill.parquet"
     _spill_panel(path)
-    free = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], vcov="hc1")
-    tight = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], vcov="hc1", memory_limit="100MB",
+    free = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], variance="hc1")
+    tight = bigpanel.fit(str(path), "y ~ x", fe=["g", "h"], variance="hc1", memory_limit="100MB",
                          temp_dir=str(tmp_path / "spill"))
     assert rel(tight.coef, free.coef) < 1e-10 and rel(tight.std_error, free.std_error) < 1e-10
 

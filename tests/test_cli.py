@@ -1,6 +1,7 @@
 """The command line, driven by typer's test runner: output, JSON, files and one-line errors."""
 
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -33,7 +34,7 @@ def run(*args):
 def test_fit_json_matches_lsdv(panel_path):
     # Reference: statsmodels LSDV on the complete rows.
     df, path = panel_path
-    out = run("fit", path, "y ~ x1 + x2", "--fe", "unit", "--vcov", "hc1", "--json")
+    out = run("fit", path, "y ~ x1 + x2", "--fe", "unit", "--variance", "hc1", "--json")
     assert out.exit_code == 0, out.output
     doc = json.loads(out.stdout)
     sample = df.dropna(subset=["x2"])
@@ -54,10 +55,10 @@ def test_fit_table_save_and_effects(panel_path, tmp_path):
     out = run("fit", path, "--y", "y", "--x", "x1", "--x", "x3", "--x", "one", "--fe", "unit", "--fe", "period",
               "--cluster", "unit", "--save", str(save), "--effects-out", str(fx))
     assert out.exit_code == 0, out.output
-    assert "x1" in out.stdout and "cluster-robust CR1 by unit" in out.stdout
+    assert "x1" in out.stdout and "CR1, robust to errors correlated within clusters; clusters: unit" in out.stdout
     assert "one (absorbed" in out.stdout
     doc = json.loads(save.read_text())
-    assert doc["vcov"]["type"] == "cluster"
+    assert doc["vcov"]["type"] == "cr1"
     eff = pd.read_parquet(fx / "effects_unit.parquet")
     assert list(eff.columns) == ["unit", "effect", "rows"]
     assert eff["rows"].sum() == doc["nobs"]
@@ -93,14 +94,23 @@ def test_demo_writes_panel_with_known_truth(tmp_path):
         (["describe", "{p}", "--id", "unt", "--time", "period"], "did you mean 'unit'"),
         (["describe", "{p}", "--id", "unit", "--time", "period", "--effects", "unit"], "--effects takes exactly two"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "one"], "cluster column 'one' takes a single value"),
-        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "unit", "--vcov", "hc1"], "conflicts with --vcov hc1"),
-        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--vcov", "hc9"], "unknown variance type 'hc9'"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--cluster", "unit", "--variance", "hc1"], "conflicts with --variance hc1"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--variance", "hc9"], "'hc9' is not one of 'classical', 'hc1', 'cr1'"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "1=1); DROP TABLE t; SELECT (1"], "must be a single SQL expression"),
         (["fit", "{p}", "y ~ x1", "--fe", "unit", "--where", "nosuchcol > 2"], "not a valid filter"),
         (["fit", "{p}", "y x1", "--fe", "unit"], "needs exactly one '~'"),
         (["fit", "{p}", "y ~ one", "--fe", "unit"], "every regressor is absorbed"),
         (["fit", "{p}", "y ~ x1", "--y", "y", "--fe", "unit"], "either a formula or --y/--x"),
         (["demo", "{d}", "--rows", "0"], "--rows must be at least 1"),
+        # renamed options and usage mistakes: one line too, not click's usage block
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--vcov", "hc1"], "--vcov is no longer an option: use --variance"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--keep-singletons"], "use --singletons keep"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--estimator", "fd"], "'fd' is not one of"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--singletons", "no"], "'no' is not one of 'drop', 'keep'"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--variance", "cr1"], "--variance cr1 needs a --cluster column"),
+        (["fit", "{p}", "y ~ x1", "--fe", "unit", "--colour"], "No such option: --colour"),
+        (["fitt", "{p}"], "No such command 'fitt'"),
+        (["fit", "{p}", "y ~ x1"], "Missing option '--fe'"),
     ],
 )
 def test_errors_are_one_line_with_exit_2(panel_path, tmp_path, args, needle):
@@ -124,7 +134,7 @@ def test_unreadable_parquet(tmp_path):
 def test_help_explains_options():
     out = run("fit", "--help")
     assert out.exit_code == 0
-    for word in ["--fe", "--cluster", "--vcov", "--where", "--effects-out", "--memory-limit", "Example"]:
+    for word in ["--fe", "--cluster", "--variance", "--where", "--effects-out", "--memory-limit", "Example"]:
         assert word in out.stdout
 
 
@@ -174,21 +184,31 @@ def test_describe_command(panel_path, tmp_path):
     assert doc["balanced"] is False and "one" in doc["time_invariant"]
     assert (tmp_path / "p.png").exists()
     text = run("describe", path, "--id", "unit", "--time", "period")
-    assert text.exit_code == 0 and "periods per unit" in text.stdout
+    assert text.exit_code == 0 and "coverage: units by the share" in text.stdout
 
 
 def test_weighted_estimators_say_so(panel_path, tmp_path):
     # Every estimator takes --weights; the report, the JSON and the model table name the column.
     df, path = panel_path
     files = []
-    for est in ["within", "between", "fd", "random"]:
+    for est in ["within", "between", "first-difference", "random-effects"]:
         f = tmp_path / f"{est}.json"
-        extra = ["--time", "period"] if est == "fd" else []
+        extra = ["--time", "period"] if est == "first-difference" else []
         out = run("fit", path, "y ~ x1 + x3", "--fe", "unit", "--estimator", est, "--weights", "w", *extra,
                   "--save", str(f))
         assert out.exit_code == 0, out.output
-        assert "weighted by w" in out.stdout
+        assert "each row counts in proportion to w" in out.stdout
         assert json.loads(f.read_text())["weights"] == "w"
         files.append(str(f))
-    out = run("table", *files, "--to", "csv")
-    assert out.exit_code == 0 and "weights,w,w,w,w" in out.stdout
+    out = run("table", *files, "--to", "markdown")
+    assert out.exit_code == 0 and re.search(r"\| weights +\| w +\| w +\| w +\| w +\|", out.stdout)
+
+
+@pytest.mark.parametrize("command", ["fit", "effects", "bench", "describe", "table", "demo"])
+def test_help_shows_placeholders_and_choices_not_type_names(command):
+    out = run(command, "--help")
+    assert out.exit_code == 0
+    assert "<bool>" not in out.stdout and "list[str]" not in out.stdout and "<int>" not in out.stdout
+    if command == "fit":
+        assert "--variance <classical|hc1|cr1>" in out.stdout and "--singletons <drop|keep>" in out.stdout
+        assert "--fe COL" in out.stdout and "PostgreSQL" in out.stdout and "Spark" in out.stdout

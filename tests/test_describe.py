@@ -12,7 +12,7 @@ import pytest
 from rich.console import Console
 
 from bigpanel import BigPanelError
-from bigpanel.describe import describe_panel, describe_renderable
+from bigpanel.describe import coverage, describe_panel, describe_renderable
 from bigpanel.plots import plot_periods
 
 
@@ -195,7 +195,7 @@ def test_missing_columns_name_the_column(tmp_path):
         describe_panel(path, "unit", "yaer")
     with pytest.raises(BigPanelError, match=r"effect column 'firm' not found"):
         describe_panel(path, "unit", "year", effects=("unit", "firm"))
-    with pytest.raises(BigPanelError, match="both the id and the time"):
+    with pytest.raises(BigPanelError, match="both the id .* and the time"):
         describe_panel(path, "unit", "unit")
 
 
@@ -211,23 +211,55 @@ def test_dict_is_json_and_rendering_has_sections(tmp_path):
     console = Console(width=120, record=True)
     console.print(describe_renderable(d))
     text = console.export_text()
-    for heading in ("shape", "periods per unit", "missing values", "time-invariant within units", "warnings"):
+    for heading in ("shape", "coverage: units by the share", "missing values", "time-invariant within units",
+                    "warnings"):
         assert f"\n{heading}" in text
     assert "DUPLICATED KEYS" in text
 
 
-def test_long_histogram_is_binned_in_the_rendering(tmp_path):
+def test_coverage_bands_match_pandas(tmp_path):
     rng = np.random.default_rng(9)
     df = grid(60, list(range(40)), seed=9)
     keep = np.linspace(0.05, 1.0, 60)[df["unit"]]  # units from about 2 to all 40 periods
     df = df[rng.random(len(df)) < keep]
     d = describe_panel(write(df, tmp_path), "unit", "year")
+    # Reference: pandas, each unit's share of the panel's distinct periods, banded
+    share = df.groupby("unit")["year"].nunique() / df["year"].nunique()
+    expected = [int((share == 1).sum()), int(((share >= 0.75) & (share < 1)).sum()),
+                int(((share >= 0.5) & (share < 0.75)).sum()), int(((share >= 0.25) & (share < 0.5)).sum()),
+                int((share < 0.25).sum())]
+    assert [n for _, n in coverage(d)] == expected
     console = Console(width=120, record=True)
     console.print(describe_renderable(d))
-    assert len(d.period_histogram) > 12
-    shares = [line for line in console.export_text().splitlines() if line.rstrip().endswith("%")]
-    assert len(shares) <= 12
-    assert sum(int(line.split()[1].replace(",", "")) for line in shares) == d.units
+    text = console.export_text()
+    assert "every period" in text and "under a quarter" in text and "q25" not in text
+
+
+def test_composite_id(tmp_path):
+    df = grid(6, [1, 2, 3], seed=12)
+    df["store"], df["product"] = df["unit"] // 2, df["unit"] % 2
+    path = write(df.drop(columns="unit"), tmp_path)
+    d = describe_panel(path, "store:product", "year")
+    # Reference: pandas groups of (store, product)
+    assert d.units == df.groupby(["store", "product"]).ngroups and d.duplicate_keys == 0 and d.balanced
+    assert describe_panel(path, "store", "year").duplicate_keys == df.groupby(["store", "year"]).ngroups
+    # text parts that would run together ("a:b" + "c" and "a" + "b:c") stay two units
+    odd = pd.DataFrame({"a": ["a:b", "a"], "b": ["c", "b:c"], "year": [1, 1]})
+    assert describe_panel(write(odd, tmp_path, "odd.parquet"), "a:b", "year").units == 2
+
+
+def test_float_time_column(tmp_path):
+    df = grid(5, [2001, 2002, 2003, 2004], seed=13)
+    df["year"] = df["year"].astype(float)
+    df = df[~((df["unit"] == 0) & (df["year"] == 2002.0))].reset_index(drop=True)
+    df.loc[df.index[-1], "year"] = np.inf
+    path = tmp_path / "f.parquet"
+    pq.write_table(pa.Table.from_pandas(df, preserve_index=False), path)
+    d = describe_panel(str(path), "unit", "year")
+    finite = df[np.isfinite(df["year"])]
+    assert d.rows_missing_key == 1 and d.periods == finite["year"].nunique()
+    assert d.units_with_gaps == pandas_gaps(finite, "unit", "year")  # reference: pandas dense ranks
+    assert d.units_with_gaps >= 1
 
 
 def test_plot_writes_png(tmp_path):

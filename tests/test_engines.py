@@ -105,7 +105,7 @@ CASES = {
     "three-way, a LIKE filter, cluster store": dict(
         fe=["store", "week", "item"], cluster="store", where="store LIKE 'S0%'"
     ),
-    "two-way, hc1": dict(fe=["store", "week"], vcov="hc1"),
+    "two-way, hc1": dict(fe=["store", "week"], variance="hc1"),
 }
 FORMULA = "y ~ x1 + x2 + promo"
 
@@ -261,9 +261,9 @@ def test_same_fit_as_duckdb(engine, case, request, parquet_file, reference):
 
 FAMILY = {  # the other estimators, weighted, with the store as the unit
     "between, weights": dict(estimator="between", weights="w"),
-    "fd along week, weights, cluster region": dict(estimator="fd", time="week", weights="w", cluster="region"),
-    "random, weights, hausman": dict(estimator="random", weights="w", hausman=True),
-    "random, cluster store, Mundlak": dict(estimator="random", cluster="store", hausman=True),
+    "fd along week, weights, cluster region": dict(estimator="first-difference", time="week", weights="w", cluster="region"),
+    "random, weights, hausman": dict(estimator="random-effects", weights="w", hausman=True),
+    "random, cluster store, Mundlak": dict(estimator="random-effects", cluster="store", hausman=True),
 }
 
 

@@ -59,7 +59,7 @@ def test_random_effects_grunfeld(grunfeld):
     # Baltagi, Table 2.1, Swamy-Arora random-effects column (from memory): value 0.1098 (0.0105),
     # capital 0.3081 (0.0172), constant -57.834 (28.899); sigma_u 84.20, sigma_e 52.77.
     df, path = grunfeld
-    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random", hausman=True)
+    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random-effects", hausman=True)
     est = dict(zip(res.names, res.coef))
     se = dict(zip(res.names, res.std_error))
     assert est["value"] == pytest.approx(0.1098, abs=6e-5) and se["value"] == pytest.approx(0.0105, abs=6e-5)
@@ -89,7 +89,7 @@ def test_random_effects_unbalanced_matches_formula(tmp_path):
     df["x2"] = rng.normal(size=len(df))
     df["y"] = 1 + 0.5 * df["x1"] - df["x2"] + a + rng.normal(size=len(df))
     df.to_parquet(tmp_path / "u.parquet")
-    res = bigpanel.fit(str(tmp_path / "u.parquet"), "y ~ x1 + x2", fe="unit", estimator="random")
+    res = bigpanel.fit(str(tmp_path / "u.parquet"), "y ~ x1 + x2", fe="unit", estimator="random-effects")
     coef, bse, s_u, s_e, _ = swamy_arora_reference(df, "y", ["x1", "x2"], "unit")
     assert rel(res.coef, coef) < 1e-9 and rel(res.std_error, bse) < 1e-9
     th = res.extras["random_effects"]["theta"]
@@ -106,7 +106,7 @@ def test_random_effects_wage_panel(tmp_path):
     df.to_parquet(tmp_path / "w.parquet")
     years = [f"d8{i}" for i in range(1, 8)]
     x = ["educ", "black", "hisp", "exper", "expersq", "married", "union", *years]
-    res = bigpanel.fit(str(tmp_path / "w.parquet"), y="lwage", x=x, fe="nr", estimator="random")
+    res = bigpanel.fit(str(tmp_path / "w.parquet"), y="lwage", x=x, fe="nr", estimator="random-effects")
     est = dict(zip(res.names, res.coef))
     se = dict(zip(res.names, res.std_error))
     for name, (b, s) in {"educ": (0.092, 0.011), "black": (-0.139, 0.048), "hisp": (0.022, 0.043),
@@ -121,8 +121,8 @@ def test_first_differences_with_a_gap(grunfeld, tmp_path):
     df, _ = grunfeld
     gap = df[~((df["firm"] == "IBM") & (df["year"] == 1940))].copy()
     gap.to_parquet(tmp_path / "gap.parquet")
-    res = bigpanel.fit(str(tmp_path / "gap.parquet"), "invest ~ value + capital", fe="firm", estimator="fd",
-                       time="year", vcov="hc1")
+    res = bigpanel.fit(str(tmp_path / "gap.parquet"), "invest ~ value + capital", fe="firm", estimator="first-difference",
+                       time="year", variance="hc1")
     s = gap.sort_values(["firm", "year"])
     d = s.groupby("firm")[["invest", "value", "capital", "year"]].diff().dropna()
     d = d[d["year"] == 1]
@@ -137,13 +137,13 @@ def test_first_differences_with_a_gap(grunfeld, tmp_path):
 def test_family_errors(grunfeld):
     _, path = grunfeld
     with pytest.raises(bigpanel.BigPanelError, match="needs --time"):
-        bigpanel.fit(path, "invest ~ value", fe="firm", estimator="fd")
+        bigpanel.fit(path, "invest ~ value", fe="firm", estimator="first-difference")
     with pytest.raises(bigpanel.BigPanelError, match="exactly one --fe"):
         bigpanel.fit(path, "invest ~ value", fe=["firm", "year"], estimator="between")
     with pytest.raises(bigpanel.BigPanelError, match="--hausman"):
         bigpanel.fit(path, "invest ~ value", fe="firm", hausman=True)
-    clustered = bigpanel.fit(path, "invest ~ value", fe="firm", estimator="random", hausman=True, cluster="firm")
-    assert clustered.extras["hausman"]["statistic"] is None and "--vcov iid" in clustered.extras["hausman"]["note"]
+    clustered = bigpanel.fit(path, "invest ~ value", fe="firm", estimator="random-effects", hausman=True, cluster="firm")
+    assert clustered.extras["hausman"]["statistic"] is None and "--variance classical" in clustered.extras["hausman"]["note"]
     with pytest.raises(bigpanel.BigPanelError, match="unknown estimator"):
         bigpanel.fit(path, "invest ~ value", fe="firm", estimator="pooled")
 
@@ -152,7 +152,7 @@ def test_mundlak_regression_based_hausman(grunfeld):
     # Reference: statsmodels OLS of the quasi-demeaned regression augmented with (1 - theta) * firm
     # means of value and capital, errors clustered by firm (CR1), and the Wald F on the two means.
     df, path = grunfeld
-    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random", hausman=True)
+    res = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random-effects", hausman=True)
     theta = res.extras["random_effects"]["theta"]["min"]  # balanced panel: one theta for all firms
     xs = ["value", "capital"]
     means = df.groupby("firm")[["invest", *xs]].transform("mean")
@@ -173,9 +173,9 @@ def test_unit_given_by_two_columns(grunfeld, tmp_path):
     df, path = grunfeld
     pair = df.assign(half=pd.factorize(df["firm"])[0] // 5, slot=pd.factorize(df["firm"])[0] % 5)
     pair.to_parquet(tmp_path / "pair.parquet")
-    one = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random", hausman=True)
+    one = bigpanel.fit(path, "invest ~ value + capital", fe="firm", estimator="random-effects", hausman=True)
     two = bigpanel.fit(str(tmp_path / "pair.parquet"), "invest ~ value + capital", fe="half:slot",
-                       estimator="random", hausman=True)
+                       estimator="random-effects", hausman=True)
     assert rel(two.coef, one.coef) < 1e-10 and rel(two.std_error, one.std_error) < 1e-10
     assert two.extras["mundlak"]["statistic"] == pytest.approx(one.extras["mundlak"]["statistic"], rel=1e-10)
     assert two.extras["mundlak"]["df"] == one.extras["mundlak"]["df"]

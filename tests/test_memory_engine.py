@@ -11,14 +11,14 @@ from test_multiway_lsdv import mobility_panel
 
 
 @pytest.mark.parametrize("fe", [["worker"], ["worker", "firm"], ["worker", "firm", "year"]])
-@pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1", "cr1"])
 def test_memory_engine_matches_lsdv(to_parquet, fe, vcov):
     # Reference: statsmodels OLS with the full-rank dummy block, on the singleton-free sample.
     df = mobility_panel(seed=8)
-    cluster = "office" if vcov == "cluster" else None
-    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=fe, vcov=vcov, cluster=cluster, engine="memory")
+    cluster = "office" if vcov == "cr1" else None
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=fe, variance=vcov, cluster=cluster, engine="memory")
     sample = drop_singletons(df, fe)
-    cov = {"iid": "nonrobust", "hc1": "HC1", "cluster": "cluster"}[vcov]
+    cov = {"classical": "nonrobust", "hc1": "HC1", "cr1": "cluster"}[vcov]
     ref = lsdv(sample, "y", ["x1", "x2"], fe, cov_type=cov, groups=sample["office"])
     assert res.nobs == len(sample)
     assert rel(res.coef, ref.params[:2]) < 1e-6
@@ -69,11 +69,11 @@ def test_sql_on_a_subsample_equals_memory_fit(tmp_path, seed, frac, n_fe):
     path = write_parquet(df, tmp_path / "sub.parquet")
     fe = ["worker", "firm", "year"][:n_fe]
     try:
-        a = bigpanel.fit(path, y="y", x=["x1", "x2"], fe=fe, vcov="hc1")
+        a = bigpanel.fit(path, y="y", x=["x1", "x2"], fe=fe, variance="hc1")
     except bigpanel.BigPanelError:
         with pytest.raises(bigpanel.BigPanelError):
-            bigpanel.fit(path, y="y", x=["x1", "x2"], fe=fe, vcov="hc1", engine="memory")
+            bigpanel.fit(path, y="y", x=["x1", "x2"], fe=fe, variance="hc1", engine="memory")
         return
-    b = bigpanel.fit(path, y="y", x=["x1", "x2"], fe=fe, vcov="hc1", engine="memory")
+    b = bigpanel.fit(path, y="y", x=["x1", "x2"], fe=fe, variance="hc1", engine="memory")
     assert a.nobs == b.nobs
     assert rel(a.coef, b.coef) < 1e-8 and rel(a.std_error, b.std_error) < 1e-8

@@ -31,7 +31,7 @@ def mobility_panel(seed: int) -> pd.DataFrame:
 
 
 @pytest.mark.parametrize("fe", [["worker", "firm"], ["worker", "firm", "year"]])
-@pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1", "cr1"])
 def test_multiway_matches_lsdv(to_parquet, fe, vcov):
     # Reference: statsmodels OLS on x plus a full-rank dummy block (intercept and every
     # effect's dummies, redundant columns removed by pivoted QR), on the sample left
@@ -39,12 +39,12 @@ def test_multiway_matches_lsdv(to_parquet, fe, vcov):
     # exact for two effects (one redundancy per connected component) and, with a year
     # effect that spans both blocks, exact for three as well.
     df = mobility_panel(seed=3)
-    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, vcov=vcov, cluster="office" if vcov == "cluster" else None)
+    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, variance=vcov, cluster="office" if vcov == "cr1" else None)
     sample = drop_singletons(df, fe)
     assert res.rows["dropped_singletons"] == len(df) - len(sample) > 0
     assert res.nobs == len(sample)
     assert res.components == 2
-    cov = {"iid": "nonrobust", "hc1": "HC1", "cluster": "cluster"}[vcov]
+    cov = {"classical": "nonrobust", "hc1": "HC1", "cr1": "cluster"}[vcov]
     ref = lsdv(sample, "y", X, fe, cov_type=cov, groups=sample["office"])
     assert res.absorbed == dummy_block(sample, fe).shape[1]
     assert rel(res.coef, ref.params[:2]) < 1e-6
@@ -55,7 +55,7 @@ def test_multiway_matches_lsdv(to_parquet, fe, vcov):
 def test_keep_singletons(to_parquet):
     # With singletons kept the slopes still equal LSDV on the full sample (statsmodels).
     df = mobility_panel(seed=4)
-    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["worker", "firm"], drop_singletons=False)
+    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["worker", "firm"], singletons="keep")
     ref = lsdv(df, "y", X, ["worker", "firm"])
     assert res.nobs == len(df)
     assert rel(res.coef, ref.params[:2]) < 1e-6
@@ -120,8 +120,8 @@ def test_in_engine_sweeps_when_pairs_exceed_the_budget(to_parquet, fe):
     df = mobility_panel(seed=9)
     df = df[df["worker"] < 100].reset_index(drop=True)
     path = to_parquet(df)
-    slow = bigpanel.fit(path, y="y", x=X, fe=fe, cell_budget=1, vcov="hc1", tol=1e-12)
-    fast = bigpanel.fit(path, y="y", x=X, fe=fe, vcov="hc1")
+    slow = bigpanel.fit(path, y="y", x=X, fe=fe, cell_budget=1, variance="hc1", tol=1e-12)
+    fast = bigpanel.fit(path, y="y", x=X, fe=fe, variance="hc1")
     assert slow.solver["path"].startswith("in-engine") and slow.solver["converged"]
     assert slow.solver["raw_passes"] > fast.solver["raw_passes"]
     sample = drop_singletons(df, fe)

@@ -129,6 +129,6 @@ def test_very_unbalanced_panel(to_parquet):
     g = np.concatenate([np.zeros(2000, dtype=int), np.repeat(np.arange(1, 401), 5)])
     df = pd.DataFrame({"g": g, "x": rng.normal(size=len(g))})
     df["y"] = 0.5 * df["x"] + rng.normal(size=401)[g] + rng.normal(size=len(g))
-    res = bigpanel.fit(to_parquet(df), "y ~ x", fe="g", vcov="hc1")
+    res = bigpanel.fit(to_parquet(df), "y ~ x", fe="g", variance="hc1")
     ref = lsdv(df, "y", ["x"], ["g"], cov_type="HC1")
     assert rel(res.coef, ref.params[:1]) < 1e-8 and rel(res.std_error, ref.bse[:1]) < 1e-8

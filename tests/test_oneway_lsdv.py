@@ -14,20 +14,20 @@ def panel():
     return make_panel(seed=1)
 
 
-@pytest.mark.parametrize("vcov", ["iid", "hc1"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1"])
 def test_slopes_and_errors_match_lsdv(panel, to_parquet, vcov):
     # Reference: statsmodels OLS with unit dummies; nonrobust and HC1 both use n - k with k
     # counting the dummies, which is our N - K - G.
     path = to_parquet(panel)
-    res = bigpanel.fit(path, y="y", x=X, fe="unit", vcov=vcov)
-    ref = lsdv(panel, "y", X, ["unit"], cov_type={"iid": "nonrobust", "hc1": "HC1"}[vcov])
+    res = bigpanel.fit(path, y="y", x=X, fe="unit", variance=vcov)
+    ref = lsdv(panel, "y", X, ["unit"], cov_type={"classical": "nonrobust", "hc1": "HC1"}[vcov])
     assert rel(res.coef, ref.params[:3]) < 1e-8
     assert rel(res.std_error, ref.bse[:3]) < 1e-8
-    if vcov == "iid":
+    if vcov == "classical":
         assert rel(res.p, ref.pvalues[:3]) < 1e-6
         assert res.df_resid == int(ref.df_resid)
         # Overall R-squared of the full model equals the LSDV R-squared (common practice).
-        assert abs(res.r2_overall - ref.rsquared) < 1e-10
+        assert abs(res.r2_full_model - ref.rsquared) < 1e-10
 
 
 def test_cluster_not_nested(panel, to_parquet):

