@@ -4,8 +4,9 @@ Load the used columns with pyarrow, code each effect's levels (dictionary
 encoding), demean every column by alternating projections with ``np.bincount``
 (each effect in turn set to the level mean of what the others leave) until the
 largest change of a demeaned column is below 1e-10 of its norm, then least
-squares on the demeaned columns. Singletons are not removed (the benchmark
-panels have none) and no standard errors are formed: it is the floor of what
+squares on the demeaned columns. Rows with a missing value are dropped;
+singletons are not removed (the benchmark panels have none) and no standard
+errors are formed: it is the floor of what
 an in-memory fit costs, and the slopes are the check.
 """
 
@@ -29,7 +30,10 @@ def fit(model: dict) -> dict:
     for name in fe:
         enc = pc.dictionary_encode(table.column(name)).combine_chunks()
         codes.append(enc.indices.to_numpy().astype(np.int64))
-    values = np.column_stack([table.column(c).to_numpy().astype(float) for c in [y, *xs]])
+    values = np.column_stack([table.column(c).to_numpy(zero_copy_only=False).astype(float) for c in [y, *xs]])
+    complete = np.isfinite(values).all(axis=1)  # listwise deletion, as the fit does (NULL -> NaN)
+    if not complete.all():
+        values, codes = values[complete], [c[complete] for c in codes]
     del table
     counts = [np.bincount(c) for c in codes]
     sweeps = 0

@@ -1,15 +1,21 @@
-"""Speed and memory of a fit against the plain scan floor and the in-memory fit, 1M to 200M rows.
+"""Speed and memory of a fit on the panel shapes users have, against a plain scan and a plain numpy fit.
 
-    python benchmarks/run.py                      # all sizes (about 30 minutes on 2 cores)
-    python benchmarks/run.py --sizes 1e6,1e7      # a quick look
+    python benchmarks/run.py                      # 10M, 50M and 200M rows of every shape (about 40 minutes)
+    python benchmarks/run.py --sizes 1e7          # a quick look
 
-Demo panels are generated once and cached under benchmarks/data/. Every
-measurement runs in a fresh child process (bigpanel.bench.measure): wall time
-inside the child, peak resident memory of the child. The DuckDB path runs with
-a memory limit and a spill folder; the in-memory fit is skipped where its
-estimated footprint would not fit the machine, and a failure is recorded, not
-hidden. Writes benchmarks/results.json and benchmarks/results.png and prints a
-table of ratios to the scan floor.
+Panels (all invented, generated once and cached under benchmarks/data/):
+
+* demo: the retail demo, store x product x week (pairs of levels compress);
+* store-week: one row per store and week (shape a);
+* store-week-supplier: the same plus a supplier effect of ~1,000 levels across rows (shape b);
+* staff: employee x store x year with job spells (shape c).
+
+Every measurement runs in a fresh child process (bigpanel.bench.measure): wall time
+inside the child, peak resident memory of the child. "scan" is one plain DuckDB
+aggregate pass over the same columns; "fit" is bigpanel with ``--memory-limit`` and a
+spill folder; "numpy" is benchmarks/plain_numpy.py (pyarrow load, dictionary codes,
+bincount alternating projections), run where it fits in memory and time. Writes
+benchmarks/results.json and benchmarks/results.png and prints the table.
 """
 
 from __future__ import annotations
@@ -26,108 +32,155 @@ import numpy as np
 from rich.console import Console
 from rich.table import Table
 
+import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
 from bigpanel.demo import write_demo
+from bigpanel.shapes import SHAPES, write_shape
 
 HERE = Path(__file__).resolve().parent
-EFFECTS = {1: ["store"], 2: ["store", "week"], 3: ["store", "product", "week"]}
-FORMULA = "log_units ~ log_price + promo"
-MEMORY_BYTES_PER_ROW = 320  # measured peak of the in-memory fit, about 280 B/row at 10M rows
+DEMO_FORMULA = "log_units ~ log_price + promo"
+# (panel, effects, cluster column or None): the configurations measured at every size.
+CONFIGS = [
+    ("demo", ["store"], None),
+    ("demo", ["store"], "store"),
+    ("demo", ["store", "product", "week"], "store"),
+    ("store-week", ["store", "week"], None),
+    ("store-week", ["store", "week"], "store"),
+    ("store-week-supplier", ["store", "week", "supplier"], None),
+    ("store-week-supplier", ["store", "week", "supplier"], "store"),
+    ("staff", ["employee", "store", "year"], "employee"),
+]
+NUMPY_BYTES_PER_ROW = 200  # peak of the plain numpy fit, measured about 150 B/row at 10M rows
+NUMPY_MAX_ROWS = {"staff": 10_000_000}  # slow to converge by plain alternating projections
 
 
 def machine() -> dict:
     mem = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
-    cpu = next((l.split(":", 1)[1].strip() for l in open("/proc/cpuinfo") if l.startswith("model name")), "")
-    return {"cores": os.cpu_count(), "memory_gib": round(mem / 2**30, 1), "cpu": cpu, "python": platform.python_version()}
+    cpu = next((line.split(":", 1)[1].strip() for line in open("/proc/cpuinfo") if line.startswith("model name")), "")
+    return {"cores": os.cpu_count(), "memory_gib": round(mem / 2**30, 1), "cpu": cpu,
+            "python": platform.python_version()}
 
 
-def demo_file(rows: int, data_dir: Path) -> str:
-    path = data_dir / f"demo_{rows}.parquet"
+def panel_file(name: str, rows: int, data_dir: Path) -> str:
+    path = data_dir / f"{name}_{rows}.parquet"
     if not path.exists():
         start = time.perf_counter()
-        write_demo(str(path), rows=rows)
-        print(f"generated {rows:,} rows in {time.perf_counter() - start:.1f} s", file=sys.stderr)
+        write_demo(str(path), rows=rows) if name == "demo" else write_shape(str(path), name, rows)
+        print(f"generated {name} with {rows:,} rows in {time.perf_counter() - start:.1f} s", file=sys.stderr)
     return str(path)
+
+
+def formula(name: str) -> str:
+    return DEMO_FORMULA if name == "demo" else SHAPES[name].formula
+
+
+def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
+    name, fe, cluster = config
+    rec = {"rows": rows, "panel": name, "effects": fe, "cluster": cluster, "what": what, "ok": out["ok"]}
+    if not out["ok"]:
+        rec["error"] = out["error"]
+        return rec
+    res = out["result"]
+    rec.update(seconds=out["seconds"], peak_mb=out["peak_mb"], nobs=res["nobs"],
+               raw_passes=res.get("raw_passes", res.get("solver", {}).get("raw_passes")))
+    if what != "scan":
+        rec["coefficients"] = {n: c["estimate"] for n, c in res["coefficients"].items()}
+        rec["iterations"] = res["solver"]["iterations"]
+    if what == "fit":
+        s = res["solver"]
+        rec.update(strategy=s["strategy"]["name"], reason=s["strategy"]["reason"], converged=s["converged"],
+                   cross_products_from=s.get("cross_products_from"),
+                   python_bytes=s.get("largest_python_allocation_bytes"), timings=res.get("timings"))
+    return rec
 
 
 def run(sizes: list[int], data_dir: Path, memory_limit: str) -> dict:
     spill = data_dir / "spill"
-    records = []
     total_memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    records = []
     for rows in sizes:
-        path = demo_file(rows, data_dir)
-        for k, fe in EFFECTS.items():
-            model = {"source": path, "formula": FORMULA, "fe": fe, "cluster": "store"}
-            sql_model = {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}
-            plan = [("scan", model), ("duckdb", sql_model)]
-            if rows * MEMORY_BYTES_PER_ROW < 0.8 * total_memory:
-                plan.append(("memory", model))
-            else:
-                records.append({"rows": rows, "effects": k, "what": "memory", "ok": False,
-                                "error": f"skipped: needs about {rows * MEMORY_BYTES_PER_ROW / 2**30:.0f} GiB"})
-            for what, m in plan:
-                out = measure(what, m)
-                rec = {"rows": rows, "effects": k, "what": what, "ok": out["ok"]}
-                if out["ok"]:
-                    res = out["result"]
-                    rec.update(seconds=out["seconds"], peak_mb=out["peak_mb"], nobs=res["nobs"],
-                               raw_passes=res.get("raw_passes", res.get("solver", {}).get("raw_passes")))
-                    if what != "scan":
-                        rec["iterations"] = res["solver"]["iterations"]
-                        rec["coefficients"] = {n: c["estimate"] for n, c in res["coefficients"].items()}
-                else:
-                    rec["error"] = out["error"]
+        for config in CONFIGS:
+            name, fe, cluster = config
+            path = panel_file(name, rows, data_dir)
+            model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
+            plan = [("scan", model, None),
+                    ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
+            fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
+            if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
+                if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
+                    plan.append(("numpy", model, plain_numpy.fit))
+            for what, m, runner in plan:
+                out = measure("scan" if what == "scan" else "duckdb", m, runner)
+                rec = _record(rows, config, what, out)
                 records.append(rec)
-                print(json.dumps({k2: v for k2, v in rec.items() if k2 != "coefficients"}), file=sys.stderr)
+                print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}), file=sys.stderr)
     return {"bigpanel_version": __version__, "machine": machine(), "memory_limit": memory_limit,
-            "formula": FORMULA, "cluster": "store", "records": records, "summary": summarise(records)}
+            "records": records, "summary": summarise(records)}
+
+
+def _key(rec: dict) -> str:
+    cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}"
 
 
 def summarise(records: list[dict]) -> dict:
-    """Ratios to the scan floor, in-memory speed-ups, log-log slopes of time on rows, and the memory peak."""
-    def get(rows, k, what):
-        return next((r for r in records if r["rows"] == rows and r["effects"] == k and r["what"] == what and r["ok"]), None)
+    """Ratios to the scan, the numpy fit over the bigpanel fit, slope differences from numpy,
+    and log-log slopes of time on rows (10M and up)."""
+    ok = [r for r in records if r["ok"]]
 
-    out: dict = {"ratio_to_scan": {}, "memory_over_duckdb": {}, "loglog_slope": {}, "peak_mb_duckdb": {}}
-    sizes = sorted({r["rows"] for r in records})
-    for k in EFFECTS:
+    def find(rows: int, key: str, what: str) -> dict | None:
+        return next((r for r in ok if r["rows"] == rows and _key(r) == key and r["what"] == what), None)
+
+    def numpy_of(rows: int, rec: dict) -> dict | None:
+        return next((r for r in ok if r["rows"] == rows and r["what"] == "numpy" and r["panel"] == rec["panel"]
+                     and r["effects"] == rec["effects"]), None)
+
+    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {}}
+    keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] == "fit"))
+    sizes = sorted({r["rows"] for r in ok})
+    for key in keys:
         for rows in sizes:
-            scan, sql, mem = get(rows, k, "scan"), get(rows, k, "duckdb"), get(rows, k, "memory")
-            key = f"{k}-way@{rows}"
-            if scan and sql:
-                out["ratio_to_scan"][key] = round(sql["seconds"] / scan["seconds"], 2)
-            if sql and mem:
-                out["memory_over_duckdb"][key] = round(mem["seconds"] / sql["seconds"], 2)
-            if sql:
-                out["peak_mb_duckdb"][key] = round(sql["peak_mb"])
-        pts = [(rows, get(rows, k, "duckdb")) for rows in sizes if rows >= 10_000_000]
-        pts = [(r, s["seconds"]) for r, s in pts if s]
+            scan, fit = find(rows, key, "scan"), find(rows, key, "fit")
+            label = f"{key} @ {rows:,}"
+            if scan and fit:
+                out["ratio_to_scan"][label] = round(fit["seconds"] / scan["seconds"], 2)
+            ref = numpy_of(rows, fit) if fit else None
+            if fit and ref:
+                out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
+                diffs = [abs(fit["coefficients"][n] - b) / abs(b) for n, b in ref["coefficients"].items()]
+                out["max_rel_slope_diff_vs_numpy"][label] = float(max(diffs))
+        pts = [(rows, find(rows, key, "fit")) for rows in sizes if rows >= 10_000_000]
+        pts = [(r, f["seconds"]) for r, f in pts if f]
         if len(pts) >= 2:
             x, y = np.log([p[0] for p in pts]), np.log([p[1] for p in pts])
-            out["loglog_slope"][f"{k}-way"] = round(float(np.polyfit(x, y, 1)[0]), 3)
+            out["loglog_slope"][key] = round(float(np.polyfit(x, y, 1)[0]), 3)
     return out
 
 
 def table(result: dict) -> Table:
-    t = Table(title=f"bigpanel {result['bigpanel_version']}: {FORMULA}, clustered by store", title_justify="left")
-    for col in ("rows", "effects", "scan s", "duckdb s", "x scan", "duckdb peak MiB", "passes", "memory s", "memory peak MiB", "memory / duckdb"):
-        t.add_column(col, justify="right")
+    t = Table(title=f"bigpanel {result['bigpanel_version']}: fit vs plain scan and plain numpy fit", title_justify="left")
+    for col in ("rows", "model", "scan s", "fit s", "x scan", "fit peak MiB", "passes", "strategy",
+                "numpy s", "numpy peak MiB"):
+        t.add_column(col, justify="left" if col in ("model", "strategy") else "right")
     recs = result["records"]
     for rows in sorted({r["rows"] for r in recs}):
-        for k in EFFECTS:
-            row = {r["what"]: r for r in recs if r["rows"] == rows and r["effects"] == k}
-            scan, sql, mem = row.get("scan"), row.get("duckdb"), row.get("memory")
-            def secs(r):
-                return f"{r['seconds']:.2f}" if r and r["ok"] else ("-" if not r else r["error"][:28])
-            t.add_row(
-                f"{rows:,}", str(k), secs(scan), secs(sql),
-                f"{sql['seconds'] / scan['seconds']:.1f}" if sql and sql["ok"] and scan and scan["ok"] else "",
-                f"{sql['peak_mb']:.0f}" if sql and sql["ok"] else "",
-                str(sql.get("raw_passes", "")) if sql and sql["ok"] else "",
-                secs(mem), f"{mem['peak_mb']:.0f}" if mem and mem["ok"] else "",
-                f"{mem['seconds'] / sql['seconds']:.1f}" if mem and mem["ok"] and sql and sql["ok"] else "",
-            )
+        for key in dict.fromkeys(_key(r) for r in recs if r["what"] == "fit"):
+            got = {r["what"]: r for r in recs if r["rows"] == rows and _key(r) == key}
+            scan, fit = got.get("scan"), got.get("fit")
+            ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit
+                        and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]), None)
+            if fit is None:
+                continue
+
+            def secs(r: dict | None) -> str:
+                return "-" if r is None else f"{r['seconds']:.2f}" if r["ok"] else r["error"][:24]
+
+            good = fit["ok"] and scan and scan["ok"]
+            t.add_row(f"{rows:,}", key, secs(scan), secs(fit), f"{fit['seconds'] / scan['seconds']:.1f}" if good else "",
+                      f"{fit['peak_mb']:,.0f}" if fit["ok"] else "", str(fit.get("raw_passes", "")),
+                      fit.get("strategy", ""), secs(ref) if ref else "",
+                      f"{ref['peak_mb']:,.0f}" if ref and ref["ok"] else "")
     return t
 
 
@@ -135,38 +188,38 @@ def plot(result: dict, path: Path) -> None:
     from bigpanel.plots import pyplot, save_figure
 
     plt = pyplot()
-    fig, (ax_t, ax_m) = plt.subplots(1, 2, figsize=(11, 4.2))
-    styles = {"scan": ("#888888", ":"), "duckdb": ("#3b7d8c", "-"), "memory": ("#c46a2f", "--")}
-    markers = {1: "o", 2: "s", 3: "^"}
-    for what, (color, line) in styles.items():
-        for k in EFFECTS:
-            pts = sorted((r["rows"], r["seconds"], r["peak_mb"]) for r in result["records"]
-                         if r["what"] == what and r["effects"] == k and r["ok"])
-            if not pts or (what == "scan" and k > 1):
+    fig, (ax_t, ax_m) = plt.subplots(1, 2, figsize=(12, 4.6))
+    colours = ["#3b7d8c", "#c46a2f", "#6b8e23", "#7a5195", "#ef5675", "#ffa600", "#2f4b7c", "#888888"]
+    recs = [r for r in result["records"] if r["ok"]]
+    for colour, key in zip(colours, dict.fromkeys(_key(r) for r in recs if r["what"] == "fit")):
+        for what, line in (("fit", "-"), ("scan", ":")):
+            pts = sorted((r["rows"], r["seconds"], r["peak_mb"]) for r in recs if _key(r) == key and r["what"] == what)
+            if not pts:
                 continue
             rows, secs, peak = zip(*pts)
-            label = "scan floor" if what == "scan" else f"{what}, {k} effect{'s' if k > 1 else ''}"
-            ax_t.plot(rows, secs, line, color=color, marker=markers[k], label=label)
-            ax_m.plot(rows, [p / 1024 for p in peak], line, color=color, marker=markers[k], label=label)
-    for ax, ylabel in ((ax_t, "wall time (s)"), (ax_m, "peak resident memory (GiB)")):
+            ax_t.plot(rows, secs, line, color=colour, marker="o", label=key if what == "fit" else None)
+            if what == "fit":
+                ax_m.plot(rows, [p / 1024 for p in peak], line, color=colour, marker="o", label=key)
+    for ax, ylabel in ((ax_t, "wall time (s); dotted: plain scan"), (ax_m, "peak resident memory of the fit (GiB)")):
         ax.set_xscale("log")
         ax.set_yscale("log")
         ax.set_xlabel("rows")
         ax.set_ylabel(ylabel)
         ax.grid(True, which="both", alpha=0.3)
-    ax_m.axhline(2.0, color="#aa3333", linewidth=0.8)
-    ax_m.text(1.1e6, 2.1, "2 GiB", color="#aa3333", fontsize=8)
-    ax_t.legend(fontsize=7)
+    ax_m.axhline(6.0, color="#aa3333", linewidth=0.8)
+    ax_m.text(1.1e7, 6.3, "6 GiB", color="#aa3333", fontsize=8)
+    ax_t.legend(fontsize=6.5)
     m = result["machine"]
-    fig.suptitle(f"bigpanel fit vs plain scan and in-memory fit ({m['cores']} cores, {m['memory_gib']} GiB)", fontsize=10)
+    fig.suptitle(f"bigpanel fit by panel shape ({m['cores']} cores, {m['memory_gib']} GiB, "
+                 f"--memory-limit {result['memory_limit']})", fontsize=10)
     save_figure(fig, path)
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--sizes", default="1e6,1e7,5e7,2e8", help="comma-separated row counts")
-    parser.add_argument("--data-dir", default=str(HERE / "data"), help="cache of generated demo panels")
-    parser.add_argument("--memory-limit", default="1GB", help="DuckDB memory limit of the SQL path")
+    parser.add_argument("--sizes", default="1e7,5e7,2e8", help="comma-separated row counts")
+    parser.add_argument("--data-dir", default=str(HERE / "data"), help="cache of generated panels")
+    parser.add_argument("--memory-limit", default="4GB", help="DuckDB memory limit of the fit")
     parser.add_argument("--out", default=str(HERE / "results.json"))
     parser.add_argument("--png", default=str(HERE / "results.png"))
     args = parser.parse_args()
@@ -178,7 +231,7 @@ def main() -> None:
 
     write_text(args.out, json.dumps(result, indent=2))
     plot(result, Path(args.png))
-    console = Console(width=160)
+    console = Console(width=200)
     console.print(table(result))
     console.print(json.dumps(result["summary"], indent=2))
 

@@ -13,9 +13,6 @@ syntax tree is adjusted where the engines differ in meaning, not just spelling:
   EXISTS t`` then ``CREATE TEMP TABLE t ...``; for ``... AS q`` on Spark the query ``q`` is
   returned alone with ``table="t"`` and the engine materialises it (a cached
   DataFrame registered as the temp view ``t``). Temp *views* exist in both.
-* ``approx_count_distinct(hash(a, b))`` (a HyperLogLog estimate that only guides
-  the choice of strategy): PostgreSQL has no approximate count, so it becomes the
-  exact ``count(DISTINCT (a, b))``; Spark keeps both functions.
 * DuckDB's compensated ``fsum`` has no counterpart: both add with plain ``sum``
   (the summands are demeaned, so the totals stay small; rounding then grows
   with the row count as in any plain sum).
@@ -132,10 +129,6 @@ def _rewrite(node: Any, dialect: str, exp: Any) -> Any:
         check = _sqlglot().parse_one(_FINITE[dialect], read=dialect)
         check = check.transform(lambda n: args[0].copy() if isinstance(n, exp.Column) and n.name == "bp_arg" else n)
         return exp.Paren(this=check)
-    if isinstance(node, exp.ApproxDistinct) and dialect == "postgres":
-        hashed, hashed_args = _call(node.this, exp)
-        parts = hashed_args if hashed == "hash" else [node.this]
-        return exp.Count(this=exp.Distinct(expressions=[exp.Tuple(expressions=[a.copy() for a in parts])]))
     if name == "fsum" and len(args) == 1:
         return exp.Sum(this=args[0].copy())
     if name == "grouping" and dialect == "spark":

@@ -91,7 +91,7 @@ def fit(
     machine's memory) is the Python-side memory budget: the pair tables or per-row
     level codes fetched to numpy must fit it, else the projections run inside the
     engine (:mod:`bigpanel.sweeps`). The strategy is chosen from a measurement of
-    the panel (:func:`bigpanel.reduce.plan_reduction`); ``strategy`` (``"pair
+    the panel (:func:`bigpanel.reduce.choose_strategy`); ``strategy`` (``"pair
     tables"``, ``"row codes"`` or ``"in-engine sweeps"``) overrides the choice, for
     tests and benchmarks. ``weights`` names
     a column of analytic weights (every estimator; the weighted forms are stated

@@ -30,28 +30,12 @@ from .reduce import Reduction
 
 @dataclass(frozen=True)
 class Projection:
-    """Solved effects per dimension (levels x columns) and how the solve went; ``applied``
-    holds D'WD a per dimension (None when the projections ran in the engine)."""
+    """Solved effects per dimension (levels x columns) and how the solve went."""
 
     alpha: list[np.ndarray]
     iterations: int
     change: float
     converged: bool
-    applied: list[np.ndarray] | None = None
-
-
-def expanded_cross_products(products: np.ndarray, rhs: list[np.ndarray], proj: Projection) -> np.ndarray:
-    """E'WE of the demeaned columns e = t - D a from level statistics alone:
-
-        E'WE = t'Wt - a'D'Wt - (a'D'Wt)' + a'D'WD a,
-
-    the expansion of the row-by-row products (identical in exact arithmetic for any a).
-    Each term is bounded by t'Wt, so the rounding error is about eps t'Wt.
-    """
-    cross = sum(a.T @ r for a, r in zip(proj.alpha, rhs))
-    quad = sum(a.T @ q for a, q in zip(proj.alpha, proj.applied))
-    out = products - cross - cross.T + quad
-    return (out + out.T) / 2.0
 
 
 class _System:
@@ -156,12 +140,12 @@ def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> 
     iteration: a = level sums / counts.
     """
     if len(red.counts) == 1:
-        return Projection([red.rhs[0] / red.counts[0][:, None]], 0, 0.0, True, [red.rhs[0]])
+        return Projection([red.rhs[0] / red.counts[0][:, None]], 0, 0.0, True)
     system = _System(red)
     x, it, change, converged = conjugate_gradients(
         system.matvec, system.sweep, np.vstack(red.rhs), red.sumsq, tol, max_iter
     )
-    return Projection(system.split(x), it, change, converged, system.split(system.matvec(x)))
+    return Projection(system.split(x), it, change, converged)
 
 
 def components(red: Reduction) -> tuple[int, np.ndarray]:

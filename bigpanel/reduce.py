@@ -57,7 +57,7 @@ class Reduction:
     the pair tables exceed the memory budget: the projections then run in the
     engine, see :mod:`bigpanel.sweeps`), and
     ``sumsq`` each shifted column's sum of squares over the sample. ``strategy``
-    names how the effects are partialled out (:func:`plan_reduction`); ``codes``
+    names how the effects are partialled out (:func:`choose_strategy`); ``codes``
     holds the per-row level codes of the row-codes strategy.
     """
 
@@ -72,6 +72,7 @@ class Reduction:
     rounds: int
     strategy: str = PAIR_TABLES
     codes: RowCodes | None = None
+    plan: Plan | None = None
 
     @property
     def singletons(self) -> int:
@@ -257,27 +258,24 @@ def put_one_row(eng: Engine, table: str, values: dict[str, float]) -> None:
 
 @dataclass(frozen=True)
 class Plan:
-    """How the effects will be partialled out, and what was measured to choose it.
+    """How the effects are partialled out, and what was measured to choose it.
 
-    ``levels`` and ``pairs`` are HyperLogLog estimates (about 2% error) of the
-    distinct levels of each effect and distinct pairs of levels of each pair of
-    effects among the complete rows (``rows``); ``python_bytes`` is the planned
-    largest numpy allocation of the strategy; ``products`` the (weighted) sums of
-    products of the shifted value columns over the same rows, t'Wt.
+    ``levels`` holds each effect's level count after singleton removal and
+    ``pair_bounds`` the product of the level counts of each pair of effects, an
+    upper bound on its distinct pairs of levels; ``python_bytes`` is the planned
+    largest numpy allocation of the strategy.
     """
 
     strategy: str
     reason: str
     rows: int = 0
     levels: dict[str, int] | None = None
-    pairs: dict[str, int] | None = None
+    pair_bounds: dict[str, int] | None = None
     python_bytes: int = 0
-    products: np.ndarray | None = None
 
     def to_dict(self) -> dict:
-        return {"name": self.strategy, "reason": self.reason, "rows_measured": self.rows,
-                "levels_estimated": self.levels, "pairs_estimated": self.pairs,
-                "python_bytes_planned": self.python_bytes}
+        return {"name": self.strategy, "reason": self.reason, "rows": self.rows, "levels": self.levels,
+                "pairs_at_most": self.pair_bounds, "python_bytes_planned": self.python_bytes}
 
 
 def code_bytes(levels: int) -> int:
@@ -286,69 +284,54 @@ def code_bytes(levels: int) -> int:
 
 
 def row_code_bytes(rows: int, levels: list[int], weighted: bool) -> int:
-    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.rowcodes`): the codes,
-    the sort order by the largest effect, and one sparse link table per other effect
-    (int32 indices) sharing one float64 weight array."""
-    k = len(levels)
-    fetch = sum(code_bytes(g) for g in levels) + (8 if weighted else 0)
-    return rows * (fetch + 8 + 4 * (k - 1) + 8)
+    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.rowcodes`): the codes of
+    every effect but the largest, then one sparse link table per other effect (int32 indices)
+    sharing one float64 weight per row."""
+    fetch = sum(code_bytes(g) for g in sorted(levels)[:-1]) + (8 if weighted else 0)
+    return rows * (fetch + 4 * (len(levels) - 1) + 8)
 
 
-def plan_reduction(eng: Engine, spec: Spec, budget: int, forced: str | None = None) -> Plan:
-    """Choose the strategy from the panel (one aggregate pass over the key columns when k >= 2).
+def choose_strategy(spec: Spec, levels: list[int], rows: int, budget: int, forced: str | None = None) -> Plan:
+    """Choose how to partial out two or more effects from their level counts (see the README):
 
-    * pair tables: every pair of effects has at most one distinct pair of levels per
-      ``COMPRESSION`` rows and the pair tables fit ``budget``; no row is read while iterating;
-    * row codes: otherwise, when each row's level codes fit ``budget``;
-    * in-engine sweeps: neither fits; every sweep is a grouped pass in the engine.
+    * pair tables, when for every pair of effects the product of their level counts is at
+      most rows / ``COMPRESSION``: the pair tables then surely compress the rows, and no
+      iteration reads a row;
+    * row codes, otherwise, when each row's level codes fit ``budget`` (bytes);
+    * in-engine sweeps, when they do not: every sweep is a grouped pass in the engine.
+
     ``forced`` (tests, benchmarks) overrides the choice but not the measurement.
     """
-    k = len(spec.fe)
-    if k == 1:
-        return Plan(ONE_WAY, "one effect: exact demeaning by level means")
-    pairs_of = list(combinations(range(k), 2))
-    keys = [", ".join(spec.key_aliases(d)) for d in range(k)]
-    estimates = [f"approx_count_distinct(hash({keys[d]})) AS levels_{d + 1}" for d in range(k)]
-    estimates += [f"approx_count_distinct(hash({keys[d]}, {keys[e]})) AS pairs_{d + 1}_{e + 1}" for d, e in pairs_of]
-    t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
-    m = len(t)
-    estimates += [f"fsum({spec.w}{t[i]} * {t[j]}) AS t_{i}_{j}" for i in range(m) for j in range(i, m)]
-    row = eng.one("measure the panel: distinct levels and pairs", render("measure_pairs", estimates=join(estimates)),
-                  raw=True)
-    n = int(row["n"] or 0)
-    if n == 0:
-        raise BigPanelError("no complete rows: every row misses a used value")
-    levels = [int(row[f"levels_{d + 1}"]) for d in range(k)]
-    pairs = {(d, e): min(int(row[f"pairs_{d + 1}_{e + 1}"]), n) for d, e in pairs_of}
-    worst = max(pairs, key=lambda de: pairs[de])
-    ratio = pairs[worst] / n
-    cells = CELL_BYTES * sum(pairs.values())
-    codes = row_code_bytes(n, levels, bool(spec.weights))
+    k = len(levels)
     names = spec.fe_names
+    bounds = {(d, e): levels[d] * levels[e] for d, e in combinations(range(k), 2)}
+    worst = max(bounds, key=lambda de: bounds[de])
     pair_name = f"{names[worst[0]]} x {names[worst[1]]}"
-    if ratio * COMPRESSION <= 1 and cells <= budget:
-        strategy, why, planned = PAIR_TABLES, f"pairs of levels compress: at most {ratio:.3f} cells per row ({pair_name})", cells
+    cells = CELL_BYTES * sum(min(b, rows) for b in bounds.values())
+    codes = row_code_bytes(rows, levels, bool(spec.weights))
+    per_row = bounds[worst] / rows
+    if per_row * COMPRESSION <= 1 and cells <= budget:
+        strategy, planned = PAIR_TABLES, cells
+        why = f"pairs of levels compress: at most {per_row:.3f} cells per row ({pair_name})"
     elif codes <= budget:
         strategy, planned = ROW_CODES, codes
-        why = (f"{pair_name} has {ratio:.2f} distinct pairs per row, too many for pair tables; "
-               f"per-row level codes need {codes / 2**20:,.0f} MiB")
+        why = (f"{pair_name} may hold up to {min(per_row, 1.0):.2f} distinct pairs per row, too many for pair "
+               f"tables; per-row level codes need {codes / 2**20:,.0f} MiB")
     else:
         strategy, planned = IN_ENGINE, 0
-        why = (f"neither the pair tables ({cells / 2**20:,.0f} MiB) nor per-row codes ({codes / 2**20:,.0f} MiB) "
-               f"fit the Python-side budget of {budget / 2**20:,.0f} MiB")
+        why = (f"neither the pair tables nor per-row codes ({codes / 2**20:,.0f} MiB) fit the Python-side budget "
+               f"of {budget / 2**20:,.0f} MiB")
     if forced is not None:
         if forced not in STRATEGIES:
             raise BigPanelError(f"unknown strategy {forced!r}: choose one of {', '.join(STRATEGIES)}")
         strategy, why = forced, f"chosen by the caller (measured: {why})"
-    products = np.array([[row[f"t_{min(i, j)}_{max(i, j)}"] for j in range(m)] for i in range(m)], dtype=float)
-    return Plan(strategy, why, n, {names[d]: levels[d] for d in range(k)},
-                {f"{names[d]} x {names[e]}": v for (d, e), v in pairs.items()}, planned, products)
+    return Plan(strategy, why, rows, {names[d]: levels[d] for d in range(k)},
+                {f"{names[d]} x {names[e]}": b for (d, e), b in bounds.items()}, planned)
 
 
-def _sets(spec: Spec, strategy: str) -> list[tuple[int, ...]]:
-    """Grouping sets of the reduction: pairs of effects for pair tables, single effects otherwise."""
-    k = len(spec.fe)
-    return list(combinations(range(k), 2)) if strategy == PAIR_TABLES else [(d,) for d in range(k)]
+def _sets(spec: Spec) -> list[tuple[int, ...]]:
+    """Grouping sets of the reduction: each effect alone."""
+    return [(d,) for d in range(len(spec.fe))]
 
 
 def _set_keys(spec: Spec, dims: tuple[int, ...]) -> list[str]:
@@ -360,17 +343,11 @@ def _gid(spec: Spec, dims: tuple[int, ...]) -> int:
     return grouping_id(_set_keys(spec, tuple(range(len(spec.fe)))), _set_keys(spec, dims))
 
 
-def _home_set(sets: list[tuple[int, ...]], d: int) -> tuple[int, ...]:
-    """The first grouping set that holds effect ``d``: its levels are read from there."""
-    return next(s for s in sets if d in s)
-
-
-def _build_levels(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], min_count: int) -> None:
+def _build_levels(eng: Engine, spec: Spec, min_count: int) -> None:
     for d in range(len(spec.fe)):
         keys = join(spec.key_aliases(d), ", ")
         sql = render("levels", table=f"bp_lev_{d + 1}", keys=keys)
-        eng.execute(f"levels of {spec.fe_names[d]}", sql,
-                    {"gid": _gid(spec, _home_set(sets, d)), "min_count": min_count})
+        eng.execute(f"levels of {spec.fe_names[d]}", sql, {"gid": _gid(spec, (d,)), "min_count": min_count})
 
 
 def _single_levels(eng: Engine, spec: Spec) -> int:
@@ -386,46 +363,43 @@ def products(spec: Spec) -> list[tuple[int, int]]:
     return [(i, j) for i in range(m) for j in range(i + 1, m)]
 
 
-def _cell_sums(spec: Spec, strategy: str) -> list[str]:
-    """Per cell: weight, sums and squares of the shifted columns, cluster ranges; with one
+def _cell_sums(spec: Spec) -> list[str]:
+    """Per level: weight, sums and squares of the shifted columns, cluster ranges; with one
     effect also every product of two shifted columns (the per-level co-moments)."""
     w = spec.w
     t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
     sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]
     sums += [f"sum({w}{tj}) AS s{j}" for j, tj in enumerate(t)]
     sums += [f"sum({w}{tj} * {tj}) AS q{j}" for j, tj in enumerate(t)]
-    if strategy == ONE_WAY:
+    if len(spec.fe) == 1:
         sums += [f"sum({w}{t[i]} * {t[j]}) AS p{i}_{j}" for i, j in products(spec)]
     for c in spec.cluster_aliases:
         sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
     return sums
 
 
-def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, plan: Plan, budget: int) -> Reduction:
-    """Pass 2 (repeated only to peel singletons): cells, level tables, numpy arrays.
-
-    The cells are the grouping sets of ``plan``'s strategy (see :func:`_sets`).
-    """
+def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, forced: str | None = None) -> Reduction:
+    """Pass 2 (repeated only to peel singletons): per-level statistics of every effect, the
+    level tables, the strategy (:func:`choose_strategy`) and what it fetches to numpy."""
     k = len(spec.fe)
-    sets = _sets(spec, plan.strategy)
     all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
-    sums = join(_cell_sums(spec, plan.strategy))
-    groups = grouping_sets([_set_keys(spec, s) for s in sets])
+    sums = join(_cell_sums(spec))
+    groups = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
     filters = ""
     rounds = 0
     n_complete = None
     while True:
         rounds += 1
         sql = render("cells", keys=all_keys, sums=sums, filters=filters, sets=groups)
-        eng.execute(f"pass 2: group-level statistics (round {rounds})", sql, raw=True)
-        _build_levels(eng, spec, sets, min_count=1)
+        eng.execute(f"pass 2: per-level statistics (round {rounds})", sql, raw=True)
+        _build_levels(eng, spec, min_count=1)
         if n_complete is None:
             n_complete = int(eng.one("complete rows", render("level_rows", table="bp_lev_1"))["n"] or 0)
             if n_complete == 0:
                 raise BigPanelError("no complete rows: every row misses a used value")
         if not drop_singletons or _single_levels(eng, spec) == 0:
             break
-        _build_levels(eng, spec, sets, min_count=2)
+        _build_levels(eng, spec, min_count=2)
         if k == 1:
             break  # one effect: dropping a singleton level changes no other level
         if rounds >= MAX_SINGLETON_ROUNDS:
@@ -433,10 +407,10 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, plan: Plan, bud
         filters = "".join(
             f"\nJOIN bp_lev_{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
         )
-    return _fetch(eng, spec, sets, plan, n_complete, rounds, budget)
+    return _fetch(eng, spec, n_complete, rounds, budget, forced)
 
 
-def _level_arrays(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
+def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
     """Weights and row counts of effect d's levels, and for each cluster column whether d is nested in it."""
     tab = eng.arrow("level counts", render("level_table", columns="nw, n", table=f"bp_lev_{d + 1}"))
     weights = tab.column("nw").to_numpy().astype(float)
@@ -445,33 +419,40 @@ def _level_arrays(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], d: int) 
     nested = []
     for c in spec.cluster_aliases:
         sql = render("nested", low=f"{c}_min", high=f"{c}_max", keys=keys, table=f"bp_lev_{d + 1}")
-        nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, _home_set(sets, d))})["nested"]))
+        nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, (d,))})["nested"]))
     return weights, rows, nested
 
 
-def _level_sums(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], d: int) -> tuple[np.ndarray, np.ndarray]:
+def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray]:
     """Effect d's per-level sums (levels x columns) and the columns' total sums of squares."""
     m = len(spec.value_aliases)
     sums = join([f"sum(c.s{j}) AS s{j}" for j in range(m)] + [f"sum(c.q{j}) AS q{j}" for j in range(m)], ", ")
     sql = render("level_sums", sums=sums, table=f"bp_lev_{d + 1}", keys=", ".join(spec.key_aliases(d)))
-    tab = eng.arrow("level sums", sql, {"gid": _gid(spec, _home_set(sets, d))})
+    tab = eng.arrow("level sums", sql, {"gid": _gid(spec, (d,))})
     rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
     return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
 
 
-def _pair_tables(eng: Engine, spec: Spec, sets: list[tuple[int, ...]],
-                 counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
-    """The sparse weight of every pair of levels of every pair of effects (codes and weights only)."""
+def _level_joins(spec: Spec) -> str:
+    """Inner joins of the sample to every effect's final level table (``l1``, ``l2``, ...)."""
+    return "\n".join(f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})"
+                     for d in range(len(spec.fe)))
+
+
+def _pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
+    """One pass: the (weighted) rows per pair of levels of every pair of effects, grouped on the
+    integer level codes (one grouping set per pair), then fetched as codes and weights."""
+    k = len(spec.fe)
+    codes = [f"l{d + 1}.code" for d in range(k)]
+    pairs = list(combinations(range(k), 2))
+    sql = render("pair_counts", codes=join([f"{c} AS c{d + 1}" for d, c in enumerate(codes)]),
+                 grouping=", ".join(codes), weight="sum(w)" if spec.weights else "count(*)", joins=_level_joins(spec),
+                 sets=grouping_sets([[codes[d], codes[e]] for d, e in pairs]))
+    eng.execute("pass 3: pairs of levels", sql, raw=True)
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
-    for d, e in sets:
-        sql = render(
-            "cell_stats",
-            codes=f"l{d + 1}.code AS c{d + 1}, l{e + 1}.code AS c{e + 1}",
-            sums="c.nw",
-            joins="\n".join(f"JOIN bp_lev_{a + 1} AS l{a + 1} USING ({', '.join(spec.key_aliases(a))})" for a in (d, e)),
-            order=f"c{d + 1}, c{e + 1}",
-        )
-        tab = eng.arrow("fetch pair tables", sql, {"gid": _gid(spec, (d, e))})
+    for d, e in pairs:
+        tab = eng.arrow("fetch pair tables", render("pair_table", codes=f"c{d + 1}, c{e + 1}"),
+                        {"gid": grouping_id(codes, [codes[d], codes[e]])})
         nw = tab.column("nw").to_numpy().astype(float)
         code_d, code_e = (tab.column(f"c{a + 1}").to_numpy() for a in (d, e))
         cross[(d, e)] = sparse.csr_matrix((nw, (code_d, code_e)), shape=(len(counts[d]), len(counts[e])))
@@ -489,11 +470,9 @@ def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCo
     small = [d for d in range(len(levels)) if d != big]
     kinds = {d: ("SMALLINT", np.int16) if code_bytes(levels[d]) == 2 else ("INTEGER", np.int32) for d in small}
     cols = [f"CAST(l{d + 1}.code AS {kinds[d][0]}) AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
-    joins = "\n".join(f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})"
-                      for d in range(len(levels)))
     codes = {d: np.empty(n_obs, dtype=kinds[d][1]) for d in small}
     weights = np.empty(n_obs) if spec.weights else None
-    sql = render("row_codes", codes=join(cols), joins=joins, order=f"l{big + 1}.code")
+    sql = render("row_codes", codes=join(cols), joins=_level_joins(spec), order=f"l{big + 1}.code")
     at = 0
     for batch in eng.stream("pass 3: level codes of every row", sql, raw=True):
         size = batch.num_rows
@@ -509,21 +488,17 @@ def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCo
     return RowCodes(big, codes, weights)
 
 
-def _fetch(eng: Engine, spec: Spec, sets: list[tuple[int, ...]], plan: Plan, n_complete: int, rounds: int,
-           budget: int) -> Reduction:
+def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, forced: str | None) -> Reduction:
     k = len(spec.fe)
-    counts, rows, nested = zip(*(_level_arrays(eng, spec, sets, d) for d in range(k)))
+    counts, rows, nested = zip(*(_level_arrays(eng, spec, d) for d in range(k)))
     for d in range(k):
         if len(counts[d]) == 0:
             raise BigPanelError(f"no rows left: every level of {spec.fe_names[d]!r} holds a single row (singletons)")
-    strategy = plan.strategy
-    if strategy == PAIR_TABLES:
-        n_cells = int(eng.one("cell count", render("cell_count"))["n"])
-        if n_cells * CELL_BYTES > budget:
-            strategy = IN_ENGINE
-    sums = [_level_sums(eng, spec, sets, d) for d in range(k)]
+    sums = [_level_sums(eng, spec, d) for d in range(k)]
     n_obs = int(rows[0].sum())
-    cross = _pair_tables(eng, spec, sets, list(counts)) if strategy == PAIR_TABLES else None
-    codes = fetch_codes(eng, spec, [len(c) for c in counts], n_obs) if strategy == ROW_CODES else None
+    plan = (Plan(ONE_WAY, "one effect: exact demeaning by level means", n_obs) if k == 1
+            else choose_strategy(spec, [len(c) for c in counts], n_obs, budget, forced))
+    cross = _pair_tables(eng, spec, list(counts)) if plan.strategy == PAIR_TABLES else None
+    codes = fetch_codes(eng, spec, [len(c) for c in counts], n_obs) if plan.strategy == ROW_CODES else None
     return Reduction(list(counts), list(rows), [s[0] for s in sums], cross, list(nested), sums[0][1],
-                     n_complete, n_obs, rounds, strategy, codes)
+                     n_complete, n_obs, rounds, plan.strategy, codes, plan)

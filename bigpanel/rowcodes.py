@@ -147,21 +147,7 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
     for e, part in zip(op.small, op.split(x)):
         alpha[e] = part
     alpha[big] = (rhs_big - sum(links.link[e] @ alpha[e] for e in op.small)) / op.nb[:, None]
-    return Projection(alpha, it, change, converged, _normal_matvec(links, red.counts, alpha))
-
-
-def _normal_matvec(links: Links, counts: list[np.ndarray], alpha: list[np.ndarray]) -> list[np.ndarray]:
-    """D'WD a for every dimension: the full normal-equations operator of all the effects."""
-    big, small = links.big, sorted(links.link)
-    out = [counts[d][:, None] * alpha[d] for d in range(len(counts))]
-    for e in small:
-        c = links.link[e]
-        out[big] += c @ alpha[e]
-        out[e] += c.T @ alpha[big]
-        for f in small:
-            if f != e:
-                out[e] += _pair(links, e, f) @ alpha[f]
-    return out
+    return Projection(alpha, it, change, converged)
 
 
 def _linked_groups(c: sparse.csr_matrix) -> tuple[int, np.ndarray]:

@@ -9,9 +9,8 @@ from .engine import Engine
 from .inference import ClusterTerm
 from .moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
                       store_effects)
-from .project import Projection, components, expanded_cross_products, solve_effects
-from .reduce import (IN_ENGINE, ONE_WAY, ROW_CODES, Plan, Reduction, Start, create_views, incomplete, plan_reduction,
-                     reduce_cells, start)
+from .project import Projection, components, solve_effects
+from .reduce import IN_ENGINE, ONE_WAY, ROW_CODES, Plan, Reduction, Start, create_views, incomplete, reduce_cells, start
 from .rowcodes import Links, build_links, solve_codes
 from .rowcodes import components as code_components
 from .spec import Spec
@@ -50,8 +49,8 @@ class SqlBackend:
         return start(self.eng, self.spec, self.source_kind)
 
     def reduce(self, drop_singletons: bool, budget: int, strategy: str | None = None) -> Reduction:
-        self.plan = plan_reduction(self.eng, self.spec, budget, strategy)
-        self.red = reduce_cells(self.eng, self.spec, drop_singletons, self.plan, budget)
+        self.red = reduce_cells(self.eng, self.spec, drop_singletons, budget, strategy)
+        self.plan = self.red.plan
         self._held(self.red)
         return self.red
 
@@ -68,7 +67,7 @@ class SqlBackend:
         self.python_bytes = max(self.python_bytes, total)
 
     def project(self, red: Reduction, tol: float, max_iter: int) -> Projection:
-        """In numpy on the pair tables or the row codes, or in the engine (see reduce.plan_reduction)."""
+        """In numpy on the pair tables or the row codes, or in the engine (see reduce.choose_strategy)."""
         if red.strategy == ROW_CODES:
             self.links = build_links(red.codes, red.rows)
             self._held(self.links, red)
@@ -115,26 +114,11 @@ class SqlBackend:
         mom = level_cross_products(self.eng, spec, len(spec.value_aliases))
         return mom if _accurate(mom.q, red.sumsq) else None
 
-    def _from_totals(self, proj: Projection) -> Moments | None:
-        """Two or more effects, no clustering, no singleton dropped: E'WE by the expansion of
-        :func:`bigpanel.project.expanded_cross_products`, when accurate enough (as above)."""
-        red, plan = self.red, self.plan
-        usable = (red is not None and plan is not None and plan.products is not None and proj.applied is not None
-                  and red.singletons == 0 and self.spec.vcov != "cluster")
-        if not usable:
-            return None
-        q = expanded_cross_products(plan.products, red.rhs, proj)
-        return Moments(red.n_obs, q) if _accurate(q, np.diag(plan.products)) else None
-
     def moments(self, proj: Projection) -> Moments:
         self.alpha = proj.alpha
         mom = self._from_levels()
         if mom is not None:
             self.moments_from = "level co-moments (no row pass)"
-            return mom
-        mom = self._from_totals(proj)
-        if mom is not None:
-            self.moments_from = "level statistics and the solved effects (no row pass)"
             return mom
         self.moments_from = "demeaned rows"
         self._demeaned()

@@ -99,39 +99,29 @@ def test_row_codes_with_singletons_and_two_components(to_parquet):
 
 
 def test_the_panel_chooses_its_strategy(to_parquet):
-    # One row per cell: every unit x period pair is a row, so pair tables would not
-    # compress and the row codes run; with 40 rows per pair the pair tables do.
+    # One row per cell: units x periods levels could give a pair per row, so pair tables
+    # would not compress and the row codes run; with 40 rows per cell they do compress.
     df = unit_period_panel(seed=4)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"])
     strategy = res.solver["strategy"]
     assert strategy["name"] == "row codes" and "unit x period" in strategy["reason"]
-    assert strategy["pairs_estimated"]["unit x period"] == pytest.approx(len(df), rel=0.05)  # HyperLogLog
+    assert strategy["levels"] == {"unit": 40, "period": 9} and strategy["pairs_at_most"] == {"unit x period": 360}
     many = pd.concat([df] * 40, ignore_index=True)
     many["x1"] += np.random.default_rng(0).normal(size=len(many))
     res = bigpanel.fit(to_parquet(many), y="y", x=X, fe=["unit", "period"])
     assert res.solver["strategy"]["name"] == "pair tables"
     coef = lsdv(many, "y", X, ["unit", "period"]).params[:2]
     assert rel(res.coef, coef) < 1e-8
+    assert res.solver["raw_passes"] == 3  # per-level statistics, pairs of levels, cross-products
 
 
-def test_cross_products_without_a_row_pass(to_parquet):
-    # classical errors and no singleton: E'E follows from the level statistics and the solved
-    # effects; the passes are the measurement, the reduction and the row codes.
-    df = unit_period_panel(seed=5)
-    res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period", "item"], tol=1e-12)
-    assert res.solver["cross_products_from"].startswith("level statistics")
-    assert res.solver["raw_passes"] == 3
-    coef, se = sm_ref(df, ["unit", "period", "item"], "classical")
-    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
-
-
-def test_nearly_perfect_fit_takes_the_row_pass(to_parquet):
-    # y = x + tiny noise: the expansion would cancel almost every digit of the RSS, so the
-    # compensated row pass runs instead. Reference: statsmodels LSDV.
+def test_nearly_perfect_fit_keeps_its_digits(to_parquet):
+    # y = x + tiny noise: RSS = y~'y~ - b'X~'y~ would cancel almost every digit, so it is
+    # taken from a residual pass. Reference: statsmodels LSDV.
     df = unit_period_panel(seed=6)
     df["y"] = 1e3 * df["x1"] + 1e3 * df["x2"] + df["unit"] + 1e-6 * np.random.default_rng(1).normal(size=len(df))
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"], tol=1e-12)
-    assert res.solver["cross_products_from"] == "demeaned rows"
+    assert res.solver["rss_from"] == "residual pass"
     ref = lsdv(df, "y", X, ["unit", "period"])
     coef, se = ref.params[:2], ref.bse[:2]
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-6

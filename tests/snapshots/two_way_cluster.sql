@@ -34,26 +34,11 @@ SELECT CAST($m0 AS DOUBLE) AS m0,
        CAST($m1 AS DOUBLE) AS m1
 
 ;
--- Before a multi-way reduction: the complete rows, HyperLogLog estimates of
--- the distinct levels of every effect and of the distinct pairs of levels of
--- every pair of effects (their ratio to the rows says whether pair tables would
--- compress the panel), and the compensated sums of products of the shifted
--- value columns (from which, with the solved effects, the demeaned
--- cross-products follow without another pass when no singleton is dropped).
-SELECT count(*) AS n,
-       approx_count_distinct(hash(f1_1)) AS levels_1,
-       approx_count_distinct(hash(f2_1)) AS levels_2,
-       approx_count_distinct(hash(f1_1, f2_1)) AS pairs_1_2,
-       fsum((v0 - s.m0) * (v0 - s.m0)) AS t_0_0,
-       fsum((v0 - s.m0) * (v1 - s.m1)) AS t_0_1,
-       fsum((v1 - s.m1) * (v1 - s.m1)) AS t_1_1
-FROM bp_sample CROSS JOIN bp_shift AS s
-
-;
--- Pass 2: the group-level sufficient statistics. One scan groups the sample by
--- each effect (one effect) or by each pair of effects (two or more): row count
--- and the sums and squares of every shifted value column per cell, and each
--- cluster column's range per cell (to tell whether an effect is nested in it).
+-- Pass 2: the per-level sufficient statistics. One scan groups the sample by
+-- each effect (one grouping set per effect): row count, weight, the sums and
+-- squares of every shifted value column (with one effect, also every product of
+-- two of them), and each cluster column's range per level (to tell whether an
+-- effect is nested in it).
 CREATE OR REPLACE TEMP TABLE bp_cells AS
 SELECT f1_1, f2_1,
        GROUPING(f1_1, f2_1) AS gid,
