@@ -94,7 +94,8 @@ def fit_renderable(res: FitResult) -> Group:
     s = res.solver
     if res.estimator == "within":
         lines.append("\neffects   ", style="bold")
-        comp = f" in {res.components} connected components" if res.components else ""
+        plural = "" if res.components == 1 else "s"
+        comp = f" in {res.components} connected component{plural}" if res.components else ""
         lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
         lines.append("\nsolver    ", style="bold")
         conv = "converged" if s["converged"] else "NOT CONVERGED"
