@@ -89,7 +89,8 @@ class MemoryBackend:
         if spec.weights:
             w = tab.column("w").to_numpy(zero_copy_only=False).astype(float)
             good = np.isfinite(w) & (w > 0)
-            incomplete[spec.weights] = int((~good).sum())
+            incomplete[spec.weights] = int((~np.isfinite(w)).sum())  # as the SQL path: missing apart from
+            incomplete[f"{spec.weights} zero or negative"] = int((np.isfinite(w) & (w <= 0)).sum())  # non-positive
             complete &= good
             self.w = np.where(good, w, 0.0)
         self.bad = incomplete

@@ -33,13 +33,14 @@ def test_weighted_sigma_does_not_depend_on_the_weights_scale(to_parquet, engine)
     assert abs(one.sigma / np.sqrt(ref.scale / df["w"].mean()) - 1) < 1e-7
 
 
-def test_zero_and_negative_weights_are_counted_apart(to_parquet):
+@pytest.mark.parametrize("engine", ["duckdb", "memory"])
+def test_zero_and_negative_weights_are_counted_apart(to_parquet, engine):
     df = make_panel(seed=62)
     df["w"] = 1.0 + (df["period"] % 4)
     df.loc[df.index[:3], "w"] = 0.0
     df.loc[df.index[3:5], "w"] = -1.0
     df.loc[df.index[5:9], "w"] = np.nan
-    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", weights="w")
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", weights="w", engine=engine)
     assert res.rows["incomplete"] == {"w": 4, "w zero or negative": 5}
     assert res.rows["dropped_incomplete"] == 9
     ref = _wls_with_dummies(df[df["w"] > 0], ["unit"])  # statsmodels WLS on the usable rows
