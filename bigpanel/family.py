@@ -87,31 +87,37 @@ class FamilyFit:
     cluster_counts: dict[str, int]
 
 
-def _inference(spec: Spec, eng: Engine, keep: list[int], slopes: Any, n: int) -> tuple[Inference, list[ClusterTerm]]:
+def _inference(spec: Spec, eng: Engine, keep: list[int], slopes: Any, n: int,
+               mean_weight: float) -> tuple[Inference, list[ClusterTerm]]:
     meat, terms = None, []
     if spec.vcov == "hc1":
         meat = meat_hc(eng, spec, keep, slopes.beta)
     elif spec.vcov == "cluster":
         terms = meat_cluster(eng, spec, keep, slopes.beta)
     inf = infer(slopes.beta, slopes.bread, slopes.rss, n, NO_EFFECTS, spec.vcov, meat=meat,
-                cluster_terms=terms, cluster_names=spec.cluster)
+                cluster_terms=terms, cluster_names=spec.cluster, mean_weight=mean_weight)
     return inf, terms
 
 
-def _with_constant(spec: Spec, eng: Engine, k: int, shift: np.ndarray, extras: dict) -> FamilyFit:
+def _with_constant(spec: Spec, eng: Engine, k: int, shift: np.ndarray, extras: dict,
+                   unit_constant: bool = False) -> FamilyFit:
     """OLS on the view bp_tilde: e0 the outcome, e1..eK the regressors, e(K+1) the constant's column.
 
     The constant is reported on the original scale, const = c + m_y - m_x'b (m the
     shifts), with its variance from the gradient (1, -m_x). The F test is on the
-    slopes only.
+    slopes only. With weights and a constant column of ones (``unit_constant``:
+    between, first differences), its weighted square sum is the total weight, and
+    the residual s.e. is that of a row of mean weight (independent of the weights'
+    scale, as in the within fit).
     """
     mom = cross_products(eng, spec, k + 2)
+    mean_weight = float(mom.q[k + 1, k + 1]) / mom.n if spec.weights and unit_constant else 1.0
     slopes = solve_slopes(mom.q, mom.n, np.zeros(k + 2), np.diag(mom.q))
     names_all = [spec.y, *spec.x, "const"]
     keep = slopes.keep
     if k + 1 not in keep:
         raise BigPanelError("the constant is collinear with the regressors")
-    raw, terms = _inference(spec, eng, keep, slopes, mom.n)
+    raw, terms = _inference(spec, eng, keep, slopes, mom.n, mean_weight)
     counts = {spec.cluster[t.columns[0]]: t.n_clusters for t in terms if len(t.columns) == 1}
     c = keep.index(k + 1)
     grad = np.eye(len(keep))
@@ -172,7 +178,7 @@ def between(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
         cols["w"] = units["nw"] / units["n"]
     eng.put_table("bp_between", pa.table(cols))
     eng.execute("between view", render("between_view"))
-    return _with_constant(spec, eng, m - 1, shift, {"units": g, "sample_rows": int(units["n"].sum())})
+    return _with_constant(spec, eng, m - 1, shift, {"units": g, "sample_rows": int(units["n"].sum())}, True)
 
 
 def random_effects(eng: Engine, spec: Spec, shift: np.ndarray, sigma_e2: float) -> tuple[FamilyFit, dict]:
@@ -265,7 +271,7 @@ def first_differences(eng: Engine, spec: Spec, shift: np.ndarray) -> FamilyFit:
     extras = {"first_difference": {"usable": int(counts["usable"]), "dropped_gaps": int(counts["gaps"]),
                                    "first_rows": int(counts["first_rows"])},
               "sample_rows": int(counts["usable"] + counts["gaps"] + counts["first_rows"])}
-    return _with_constant(spec, eng, m - 1, np.zeros(m), extras)
+    return _with_constant(spec, eng, m - 1, np.zeros(m), extras, True)
 
 
 def hausman(b_w: np.ndarray, v_w: np.ndarray, b_r: np.ndarray, v_r: np.ndarray) -> dict[str, Any]:

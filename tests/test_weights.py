@@ -177,3 +177,16 @@ def test_constant_weights_give_the_unweighted_fit(to_parquet, estimator):
     if estimator == "random-effects":
         assert weighted.extras["random_effects"]["sigma_e"] == pytest.approx(
             plain.extras["random_effects"]["sigma_e"], rel=1e-10)
+
+
+@pytest.mark.parametrize("estimator", ["between", "first-difference"])
+def test_weighted_sigma_does_not_depend_on_the_weights_scale(to_parquet, estimator):
+    # Analytic weights w and 100 w describe the same model (common practice): the slopes, their
+    # errors and the residual s.e. (that of a row of mean weight) agree to 1e-9.
+    df = make_panel(seed=84)
+    df["w"] = np.random.default_rng(5).uniform(0.2, 5.0, len(df))
+    kw = dict(y="y", x=["x1", "x2"], fe="unit", estimator=estimator, time="period" if estimator != "between" else None)
+    one = bigpanel.fit(to_parquet(df), **kw, weights="w")
+    big = bigpanel.fit(to_parquet(df.assign(w=100 * df["w"])), **kw, weights="w")
+    assert rel(one.coef, big.coef) < 1e-9 and rel(one.std_error, big.std_error) < 1e-9
+    assert abs(one.sigma / big.sigma - 1) < 1e-9
