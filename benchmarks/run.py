@@ -95,26 +95,28 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     return rec
 
 
-def run(sizes: list[int], data_dir: Path, memory_limit: str) -> dict:
+def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int]) -> dict:
+    """Every configuration at every size, then the store-week panel alone at the ``large`` sizes."""
     spill = data_dir / "spill"
     total_memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
     records = []
-    for rows in sizes:
-        for config in CONFIGS:
-            name, fe, cluster = config
-            path = panel_file(name, rows, data_dir)
-            model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
-            plan = [("scan", model, None),
-                    ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
-            fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
-            if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
-                if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
-                    plan.append(("numpy", model, plain_numpy.fit))
-            for what, m, runner in plan:
-                out = measure("scan" if what == "scan" else "duckdb", m, runner)
-                rec = _record(rows, config, what, out)
-                records.append(rec)
-                print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}), file=sys.stderr)
+    plan = [(rows, config) for rows in sizes for config in CONFIGS]
+    plan += [(rows, config) for rows in large for config in CONFIGS if config[0] == "store-week"]
+    for rows, config in plan:
+        name, fe, cluster = config
+        path = panel_file(name, rows, data_dir)
+        model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
+        steps = [("scan", model, None),
+                 ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
+        fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
+        if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
+            if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
+                steps.append(("numpy", model, plain_numpy.fit))
+        for what, m, runner in steps:
+            out = measure("scan" if what == "scan" else "duckdb", m, runner)
+            rec = _record(rows, config, what, out)
+            records.append(rec)
+            print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}), file=sys.stderr)
     return {"bigpanel_version": __version__, "machine": machine(), "memory_limit": memory_limit,
             "records": records, "summary": summarise(records)}
 
@@ -220,13 +222,15 @@ def main() -> None:
     parser.add_argument("--sizes", default="1e7,5e7,2e8", help="comma-separated row counts")
     parser.add_argument("--data-dir", default=str(HERE / "data"), help="cache of generated panels")
     parser.add_argument("--memory-limit", default="4GB", help="DuckDB memory limit of the fit")
+    parser.add_argument("--large", default="", help="comma-separated row counts for the store-week panel alone")
     parser.add_argument("--out", default=str(HERE / "results.json"))
     parser.add_argument("--png", default=str(HERE / "results.png"))
     args = parser.parse_args()
     sizes = [int(float(s)) for s in args.sizes.split(",")]
     data_dir = Path(args.data_dir)
     data_dir.mkdir(parents=True, exist_ok=True)
-    result = run(sizes, data_dir, args.memory_limit)
+    large = [int(float(s)) for s in args.large.split(",") if s]
+    result = run(sizes, data_dir, args.memory_limit, large)
     from bigpanel.files import write_text
 
     write_text(args.out, json.dumps(result, indent=2))
