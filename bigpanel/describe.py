@@ -22,9 +22,9 @@ from rich.text import Text
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
-from .engine import Engine
+from .engines.base import Engine
 from .errors import BigPanelError
-from .source import Source, open_session
+from .engines.source import Source, open_session
 from .spec import _NUMERIC, _check_column
 from .sqltext import ident, join, render
 

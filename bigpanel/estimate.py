@@ -24,7 +24,7 @@ from .memory import MemoryBackend
 from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
 from .results import FitResult
 from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
-from .source import open_session
+from .engines.source import open_session
 from .sqlpath import SqlBackend
 from .spec import SINGLETONS, build_spec, check_where, parse_formula
 

@@ -17,9 +17,9 @@ import pyarrow as pa
 from dataclasses import dataclass
 
 from .errors import BigPanelError
-from .engine import Engine, EngineError
+from .engines.base import Engine, EngineError
 from .formula import Factor, Term, factor_sql, parse_outcome, parse_rhs, parse_term, sql_expression, term_label
-from .source import Source
+from .engines.source import Source
 from .sqltext import ident, literal, render
 
 # the user's names of the variance estimators and the internal codes the SQL steps test for

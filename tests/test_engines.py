@@ -27,7 +27,7 @@ import pytest
 
 import bigpanel
 from bigpanel import BigPanelError
-from bigpanel.source import open_session
+from bigpanel.engines.source import open_session
 from conftest import rel
 
 SKIP = os.environ.get("BIGPANEL_SKIP_SERVERS") == "1"
@@ -214,7 +214,7 @@ def spark_on(parquet_file) -> bool:
     """Spark in local mode, started once (later fits reuse its context)."""
     if SKIP:
         pytest.skip(SKIP_REASON)
-    from bigpanel.spark import open_spark
+    from bigpanel.engines.spark import open_spark
 
     try:
         eng, _ = open_spark(parquet_file, None)
@@ -292,10 +292,10 @@ def test_truth_recovered(reference):
 
 def _engine(engine: str, request, parquet_file: str):
     if engine == "postgres":
-        from bigpanel.postgres import open_postgres
+        from bigpanel.engines.postgres import open_postgres
 
         return open_postgres(request.getfixturevalue("pg_url"), "sales")[0]
-    from bigpanel.spark import open_spark
+    from bigpanel.engines.spark import open_spark
 
     request.getfixturevalue("spark_on")
     return open_spark(parquet_file, None)[0]

@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 
 import bigpanel
-import bigpanel.source as source_module
-from bigpanel.engine import Engine
+import bigpanel.engines.source as source_module
+from bigpanel.engines.base import Engine
 
 SNAPSHOT = Path(__file__).parent / "snapshots" / "two_way_cluster.sql"
 

@@ -17,9 +17,9 @@ from typing import Callable
 
 import duckdb
 
-from .engine import Engine, _first_line
-from .errors import BigPanelError
-from .sqltext import ident, literal, render
+from .base import Engine, _first_line
+from ..errors import BigPanelError
+from ..sqltext import ident, literal, render
 
 _PARQUET = (".parquet", ".parq", ".pq")
 _CSV = (".csv", ".tsv", ".csv.gz", ".tsv.gz", ".txt")

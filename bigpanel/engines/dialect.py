@@ -38,8 +38,8 @@ from typing import Any, Callable, Iterator
 
 import pyarrow as pa
 
-from .engine import Engine, EngineError, _first_line
-from .errors import BigPanelError
+from .base import Engine, EngineError, _first_line
+from ..errors import BigPanelError
 
 # Templates with a variant file sql/<name>.<dialect>.sql.
 _VARIANTS = {

@@ -20,8 +20,8 @@ from typing import Any, Callable, Iterator
 import pyarrow as pa
 
 from .dialect import TranslatingEngine
-from .engine import Engine, _first_line
-from .errors import BigPanelError
+from .base import Engine, _first_line
+from ..errors import BigPanelError
 from .source import _PARQUET, Source, _parquet_files
 
 DEFAULT_MASTER = "local[*]"

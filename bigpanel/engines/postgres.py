@@ -15,10 +15,10 @@ from urllib.parse import unquote
 import pyarrow as pa
 
 from .dialect import TranslatingEngine, template_for
-from .engine import Engine, _first_line
-from .errors import BigPanelError
+from .base import Engine, _first_line
+from ..errors import BigPanelError
 from .source import Source
-from .sqltext import ident, join, render
+from ..sqltext import ident, join, render
 
 CONNECT_TIMEOUT = 10  # seconds, unless the URL sets connect_timeout
 

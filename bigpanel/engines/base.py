@@ -13,8 +13,8 @@ from typing import Any, Callable, Iterator
 import duckdb
 import pyarrow as pa
 
-from .errors import BigPanelError
-from .sqltext import ident, render
+from ..errors import BigPanelError
+from ..sqltext import ident, render
 
 STREAM_BATCH = 1 << 20  # rows per batch of a streamed result
 
