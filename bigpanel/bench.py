@@ -22,7 +22,7 @@ from .sqltext import ident, join, render
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     """One aggregate pass over the model's columns: sums of values, minimum of keys."""
     from .estimate import _as_list
-    from .engines.source import open_session
+    from .engines.registry import open_session
     from .spec import build_spec, parse_formula
 
     y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], _as_list(model["x"])))

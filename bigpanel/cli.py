@@ -26,7 +26,7 @@ from .demo import write_demo
 from .errors import BigPanelError
 from .files import (check_output, input_files, parquet_writer, remove_pending, text_writer, unique_stems, write_all,
                     write_text)
-from .estimate import ENGINES
+from .engines.registry import ENGINES
 from .estimate import fit as run_fit
 from .family import ESTIMATORS
 from .spec import SINGLETONS, VARIANCE_TYPES
@@ -43,6 +43,9 @@ TABLE_HELP = (
     "Table to read: in a DuckDB database file, in PostgreSQL (SOURCE a postgresql:// URL; schema.table allowed) "
     "or in the Spark catalog (with --engine spark)."
 )
+ENGINE_HELP = ("Where the passes run: duckdb (default for files), postgresql (default for a postgresql:// URL), "
+               "spark (Spark SQL) or memory (load the used columns into numpy).")
+SPARK_MASTER_HELP = "Spark master URL for --engine spark (default local[*])."
 # options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
 RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
 
@@ -225,12 +228,8 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
 @model_command
 def fit_command(
     model: dict,
-    engine: EngineName = typer.Option(
-        "duckdb", "--engine", help="duckdb (default; data stay in the engine), spark (Spark SQL) or memory (load into numpy)."
-    ),
-    spark_master: Optional[str] = typer.Option(
-        None, "--spark-master", help="Spark master URL for --engine spark (default local[*]).", metavar="URL"
-    ),
+    engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
+    spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
     estimator: Estimator = typer.Option(
         "within", "--estimator",
         help="within (fixed effects, default), between (unit means), first-difference or random-effects (GLS).",
@@ -366,6 +365,8 @@ def describe_command(
         None, "--table", help=TABLE_HELP, metavar="NAME"
     ),
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
+    spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
     plot: Optional[Path] = typer.Option(
         None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.", metavar="FILE.png"
     ),
@@ -385,7 +386,8 @@ def describe_command(
             raise BigPanelError(f"--effects takes exactly two columns (got {len(effects)}): --effects a --effects b")
         with progress(quiet or json_out) as on_step:
             desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None,
-                                 on_step=on_step, delimiter=delimiter)
+                                  on_step=on_step, delimiter=delimiter, engine=engine.value if engine else None,
+                                  spark_master=spark_master)
         if plot is not None:
             plot_periods(desc, plot)
         if json_out:

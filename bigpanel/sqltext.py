@@ -58,3 +58,9 @@ def grouping_id(columns: list[str], grouped: list[str]) -> int:
     column is the most significant bit, and a bit is 1 where its column is not grouped."""
     width = len(columns)
     return sum(1 << (width - 1 - i) for i, c in enumerate(columns) if c not in grouped)
+
+
+def render_variant(name: str, dialect: str, **slots: str) -> str:
+    """Render ``sql/<name>.<dialect>.sql`` when that variant exists, else ``sql/<name>.sql``."""
+    variant = f"{name}.{dialect}"
+    return render(variant if (SQL_DIR / f"{variant}.sql").is_file() else name, **slots)

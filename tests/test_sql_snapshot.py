@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 
 import bigpanel
-import bigpanel.engines.source as source_module
-from bigpanel.engines.base import Engine
+import bigpanel.engines.duckdb as duckdb_module
+from bigpanel.engines.duckdb import DuckDBEngine
 
 SNAPSHOT = Path(__file__).parent / "snapshots" / "two_way_cluster.sql"
 
@@ -29,12 +29,12 @@ def test_generated_sql_matches_snapshot(to_parquet, monkeypatch):
     )
     engines = []
 
-    class Recording(Engine):
+    class Recording(DuckDBEngine):
         def __init__(self, *args, **kwargs):
             super().__init__(*args, **kwargs)
             engines.append(self)
 
-    monkeypatch.setattr(source_module, "Engine", Recording)
+    monkeypatch.setattr(duckdb_module, "DuckDBEngine", Recording)
     bigpanel.fit(to_parquet(df), y="y", x=["select"], fe=["shop id", 'wk"'], cluster="area")
     text = "\n;\n".join(engines[0].statements) + "\n"
     if os.environ.get("BIGPANEL_UPDATE_SNAPSHOTS"):
