@@ -1,0 +1,6 @@
+"""The choices of the API and the command line, in a module that imports nothing heavy
+(the CLI lists them in ``--help`` without loading numpy, scipy or duckdb)."""
+
+ESTIMATORS = ("within", "between", "first-difference", "random-effects")
+VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}  # option value -> internal kind
+SINGLETONS = ("drop", "keep")
