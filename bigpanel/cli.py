@@ -259,7 +259,8 @@ def fit_command(
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
-    Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week --cluster store
+    Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
+    --cluster store
     """
     from .estimate import fit as run_fit
     from .files import parquet_writer, text_writer, write_all
@@ -367,7 +368,8 @@ def describe_command(
         metavar="COL",
     ),
     effects: Optional[List[str]] = typer.Option(
-        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them.",
+        None, "--effects",
+        help="Two effect columns (give --effects twice): count the connected components linking them.",
         metavar="COL",
     ),
     table: Optional[str] = typer.Option(
@@ -377,7 +379,8 @@ def describe_command(
     engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
     spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
     plot: Optional[Path] = typer.Option(
-        None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.", metavar="FILE.png"
+        None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.",
+        metavar="FILE.png",
     ),
     json_out: bool = typer.Option(False, "--json", help="Print the description as JSON.", metavar=""),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
@@ -386,7 +389,8 @@ def describe_command(
     """Describe the panel before any model: shape, balance, gaps, duplicated keys, missing values,
     time-invariant columns, and connected components of two effects.
 
-    Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product --plot periods.png
+    Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product
+    --plot periods.png
     """
     from .describe import describe_panel, describe_renderable
     from .files import check_output, input_files

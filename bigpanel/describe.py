@@ -263,7 +263,8 @@ def describe_panel(
         periods_median=median,
         periods_q75=q75,
         periods_max=int(shape["periods_max"]),
-        period_histogram=[[int(k), int(n)] for k, n in zip(histogram["periods"].to_pylist(), histogram["units"].to_pylist())],
+        period_histogram=[[int(k), int(n)]
+                          for k, n in zip(histogram["periods"].to_pylist(), histogram["units"].to_pylist())],
         units_with_gaps=int(shape["units_with_gaps"]) if _ORDERED_TIME.match(src.columns[time]) else None,
         units_single_period=int(shape["units_single_period"]),
         duplicate_keys=int(shape["dup_keys"]),

@@ -18,15 +18,16 @@ import numpy as np
 from .dof import count_absorbed
 from .effects import effect_tables, recover
 from .errors import BigPanelError
-from .family import ESTIMATORS, hausman_test, mundlak, run_family
+from .family import hausman_test, mundlak, run_family
 from .inference import Inference, infer
 from .memory import MemoryBackend
+from .options import ESTIMATORS, SINGLETONS
 from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
 from .results import FitResult
 from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
 from .engines.registry import ENGINES, open_session
 from .sqlpath import SqlBackend
-from .spec import SINGLETONS, build_spec, check_where, parse_formula
+from .spec import build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
 

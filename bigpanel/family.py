@@ -63,7 +63,6 @@ from .engines.base import Engine
 from .errors import BigPanelError
 from .inference import ClusterTerm, Inference, infer
 from .moments import cross_products, meat_cluster, meat_hc
-from .options import ESTIMATORS
 from .reduce import Start, create_views, start
 from .solve import solve_slopes
 from .spec import Spec

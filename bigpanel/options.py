@@ -2,5 +2,6 @@
 (the CLI lists them in ``--help`` without loading numpy, scipy or duckdb)."""
 
 ESTIMATORS = ("within", "between", "first-difference", "random-effects")
-VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}  # option value -> internal kind
+# the user's names of the variance estimators and the internal codes the SQL steps test for
+VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}
 SINGLETONS = ("drop", "keep")

@@ -20,10 +20,9 @@ from .errors import BigPanelError
 from .engines.base import Engine, EngineError
 from .formula import Factor, Term, factor_sql, parse_outcome, parse_rhs, parse_term, sql_expression, term_label
 from .engines.source import Source
-from .options import SINGLETONS, VARIANCE_TYPES
+from .options import VARIANCE_TYPES
 from .sqltext import ident, literal, render
 
-# the user's names of the variance estimators and the internal codes the SQL steps test for
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe
 _NUMERIC = re.compile(

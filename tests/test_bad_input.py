@@ -1,6 +1,5 @@
 """Bad data and awkward inputs: counted drops, quoted names, one-line errors, spilling, determinism."""
 
-import json
 
 import duckdb
 import numpy as np

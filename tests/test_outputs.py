@@ -5,8 +5,6 @@ import errno
 import json
 import os
 
-import numpy as np
-import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 from typer.testing import CliRunner

@@ -36,7 +36,9 @@ class Source:
 def _kind_of(location: str, table: str | None) -> str:
     low = location.lower()
     if table is not None and low.endswith(_CSV + PARQUET_SUFFIXES):
-        raise BigPanelError(f"--table names a table inside a database file; {location} is a file of its own: drop --table")
+        raise BigPanelError(
+            f"--table names a table inside a database file; {location} is a file of its own: drop --table"
+        )
     if table is not None:
         return "table"
     if low.endswith(PARQUET_SUFFIXES) or os.path.isdir(location):

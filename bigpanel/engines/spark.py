@@ -211,8 +211,11 @@ def open_spark(
             frame, kind = session.read.table(table), "table"
         else:
             local = "://" not in location
-            if local and not (os.path.isdir(location) or globlib.has_magic(location) or location.lower().endswith(PARQUET_SUFFIXES)):
-                raise BigPanelError(f"Spark reads Parquet files, folders or globs (or a catalog --table), not {location}")
+            low = location.lower()
+            if local and not (os.path.isdir(location) or globlib.has_magic(location) or low.endswith(PARQUET_SUFFIXES)):
+                raise BigPanelError(
+                    f"Spark reads Parquet files, folders or globs (or a catalog --table), not {location}"
+                )
             paths = parquet_files(location) if local else [location]
             frame, kind = session.read.parquet(*paths), "parquet"
         frame.createOrReplaceTempView("bp_source")
