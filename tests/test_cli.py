@@ -163,6 +163,7 @@ def test_effects_command_writes_files_and_plot(panel_path, tmp_path):
     assert (tmp_path / "fx.png").read_bytes()[:4] == b"\x89PNG"
 
 
+@pytest.mark.slow
 def test_bench_command_compares_engines(panel_path):
     _, path = panel_path
     out = run("bench", path, "y ~ x1 + x3", "--fe", "unit", "--json")

