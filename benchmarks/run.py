@@ -15,7 +15,7 @@ inside the child, peak resident memory of the child. "scan" is one plain DuckDB
 aggregate pass over the same columns; "fit" is bigpanel with ``--memory-limit`` and a
 spill folder; "numpy" is benchmarks/plain_numpy.py (pyarrow load, dictionary codes,
 bincount alternating projections), run where it fits in memory and time. Writes
-benchmarks/results.json and benchmarks/results.png and prints the table.
+benchmarks/results.json, results.md (the table) and results.png and prints the table.
 """
 
 from __future__ import annotations
@@ -186,6 +186,16 @@ def table(result: dict) -> Table:
     return t
 
 
+def markdown(result: dict) -> str:
+    """The table as Markdown (the README's performance table is pasted from it)."""
+    t = table(result)
+    heads = [str(c.header) for c in t.columns]
+    cells = [list(c.cells) for c in t.columns]
+    lines = ["| " + " | ".join(heads) + " |", "|" + "---|" * len(heads)]
+    lines += ["| " + " | ".join(str(col[i]) for col in cells) + " |" for i in range(len(cells[0]))]
+    return "\n".join(lines) + "\n"
+
+
 def plot(result: dict, path: Path) -> None:
     from bigpanel.plots import pyplot, save_figure
 
@@ -235,6 +245,7 @@ def main() -> None:
 
     write_text(args.out, json.dumps(result, indent=2))
     plot(result, Path(args.png))
+    write_text(Path(args.out).with_suffix(".md"), markdown(result))
     console = Console(width=200)
     console.print(table(result))
     console.print(json.dumps(result["summary"], indent=2))

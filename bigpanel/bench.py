@@ -22,7 +22,7 @@ from .sqltext import ident, join, render
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     """One aggregate pass over the model's columns: sums of values, minimum of keys."""
     from .estimate import _as_list
-    from .source import open_session
+    from .engines.registry import open_session
     from .spec import build_spec, parse_formula
 
     y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], _as_list(model["x"])))
@@ -111,7 +111,8 @@ def bench_renderable(report: dict[str, Any]) -> Table:
     table = Table(box=box.SIMPLE_HEAD, title="bigpanel bench", title_justify="left")
     for col in ("run", "seconds", "x scan", "peak MiB", "passes", "rows"):
         table.add_column(col, justify="left" if col == "run" else "right")
-    labels = {"scan": "plain DuckDB scan (floor)", "duckdb": "bigpanel fit, DuckDB", "memory": "bigpanel fit, in memory"}
+    labels = {"scan": "plain DuckDB scan (floor)", "duckdb": "bigpanel fit, DuckDB",
+              "memory": "bigpanel fit, in memory"}
     for what, run in runs.items():
         if not run["ok"]:
             table.add_row(labels[what], "failed", "", "", "", run["error"])
@@ -119,7 +120,8 @@ def bench_renderable(report: dict[str, Any]) -> Table:
         res = run["result"]
         passes = res.get("raw_passes", res.get("solver", {}).get("raw_passes", ""))
         ratio = f"{run['seconds'] / floor:.1f}" if floor else ""
-        table.add_row(labels[what], f"{run['seconds']:.2f}", ratio, f"{run['peak_mb']:.0f}", str(passes), f"{res['nobs']:,}")
+        table.add_row(labels[what], f"{run['seconds']:.2f}", ratio, f"{run['peak_mb']:.0f}", str(passes),
+                      f"{res['nobs']:,}")
     if "max_abs_coef_diff" in report:
         table.caption = (
             f"largest slope difference {report['max_abs_coef_diff']:.2e}; "

@@ -21,21 +21,14 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from .bench import bench_renderable, compare_engines
-from .demo import write_demo
+from .engines.registry import ENGINES
 from .errors import BigPanelError
-from .files import (check_output, input_files, parquet_writer, remove_pending, text_writer, unique_stems, write_all,
-                    write_text)
-from .estimate import ENGINES
-from .estimate import fit as run_fit
-from .family import ESTIMATORS
-from .spec import SINGLETONS, VARIANCE_TYPES
-from .describe import describe_panel, describe_renderable
-from .plots import plot_effects, plot_periods
-from .report import fit_renderable
-from .tables import build_table, load_fits
+from .options import ESTIMATORS, SINGLETONS, VARIANCE_TYPES
 from .tables import RENDERERS
-from .tables import render as render_table
+
+# Only typer, rich and the light modules above load at start: the commands import the
+# numerics (numpy, scipy, duckdb, pyarrow, sqlglot) when they run, so --help and usage
+# errors answer at once (tests/test_cli.py checks sys.modules).
 
 SOURCE_HELP = "Parquet file, folder or glob; CSV file; DuckDB file or postgresql:// URL with --table."
 DELIMITER_HELP = "Field separator of a CSV source, e.g. ';' or tab (default: comma; tab for .tsv)."
@@ -43,6 +36,9 @@ TABLE_HELP = (
     "Table to read: in a DuckDB database file, in PostgreSQL (SOURCE a postgresql:// URL; schema.table allowed) "
     "or in the Spark catalog (with --engine spark)."
 )
+ENGINE_HELP = ("Where the passes run: duckdb (default for files), postgresql (default for a postgresql:// URL), "
+               "spark (Spark SQL) or memory (load the used columns into numpy).")
+SPARK_MASTER_HELP = "Spark master URL for --engine spark (default local[*])."
 # options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
 RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
 
@@ -134,11 +130,15 @@ def progress(quiet: bool) -> Iterator:
 
 def _effect_files(folder: Path, names: list[str]) -> dict[str, Path]:
     """One Parquet file per effect in ``folder``, names made unique (``a b`` and ``a_b`` differ)."""
+    from .files import unique_stems
+
     return {name: folder / f"{stem}.parquet" for name, stem in unique_stems(names, "effects_").items()}
 
 
 def _check_outputs(model: dict, files: dict[str, Optional[Path]], effects_dir: Optional[Path]) -> None:
     """Check every output path before the first pass (``-`` is stdout); see :func:`check_output`."""
+    from .files import check_output, input_files
+
     inputs = input_files(str(model["source"]))
     for role, path in files.items():
         if path is not None and str(path) != "-":
@@ -210,6 +210,8 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
         shared = {name: kwargs.pop(name) for name in _SHARED}
         with guarded(bool(shared.pop("debug"))):
             if shared["temp_dir"]:
+                from .files import check_output, input_files
+
                 check_output(shared["temp_dir"], "--temp-dir", input_files(str(shared["source"])), folder=True)
             shared["x"] = shared["x"] or None
             shared = {k: v.value if isinstance(v, enum.Enum) else v for k, v in shared.items()}
@@ -225,12 +227,8 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
 @model_command
 def fit_command(
     model: dict,
-    engine: EngineName = typer.Option(
-        "duckdb", "--engine", help="duckdb (default; data stay in the engine), spark (Spark SQL) or memory (load into numpy)."
-    ),
-    spark_master: Optional[str] = typer.Option(
-        None, "--spark-master", help="Spark master URL for --engine spark (default local[*]).", metavar="URL"
-    ),
+    engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
+    spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
     estimator: Estimator = typer.Option(
         "within", "--estimator",
         help="within (fixed effects, default), between (unit means), first-difference or random-effects (GLS).",
@@ -261,8 +259,13 @@ def fit_command(
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
-    Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week --cluster store
+    Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
+    --cluster store
     """
+    from .estimate import fit as run_fit
+    from .files import parquet_writer, text_writer, write_all
+    from .report import fit_renderable
+
     _check_outputs(model, {"--save": save}, effects_out)
     with progress(quiet or json_out) as on_step:
         res = run_fit(
@@ -305,6 +308,10 @@ def effects_command(
     row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
     Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
     """
+    from .estimate import fit as run_fit
+    from .files import parquet_writer, write_all
+    from .plots import plot_effects
+
     _check_outputs(model, {"--plot": plot}, out_dir)
     with progress(quiet) as on_step:
         res = run_fit(**model, on_step=on_step)
@@ -338,6 +345,8 @@ def bench_command(
     Each run is a fresh child process, so peak memory is its own. Example:
     bigpanel bench sales.parquet 'log_units ~ log_price + promo' --fe store --where "store <= 50"
     """
+    from .bench import bench_renderable, compare_engines
+
     report = compare_engines(model)
     if json_out:
         sys.stdout.write(json.dumps(report, indent=2) + "\n")
@@ -359,15 +368,19 @@ def describe_command(
         metavar="COL",
     ),
     effects: Optional[List[str]] = typer.Option(
-        None, "--effects", help="Two effect columns (give --effects twice): count the connected components linking them.",
+        None, "--effects",
+        help="Two effect columns (give --effects twice): count the connected components linking them.",
         metavar="COL",
     ),
     table: Optional[str] = typer.Option(
         None, "--table", help=TABLE_HELP, metavar="NAME"
     ),
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
+    spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
     plot: Optional[Path] = typer.Option(
-        None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.", metavar="FILE.png"
+        None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.",
+        metavar="FILE.png",
     ),
     json_out: bool = typer.Option(False, "--json", help="Print the description as JSON.", metavar=""),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
@@ -376,8 +389,13 @@ def describe_command(
     """Describe the panel before any model: shape, balance, gaps, duplicated keys, missing values,
     time-invariant columns, and connected components of two effects.
 
-    Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product --plot periods.png
+    Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product
+    --plot periods.png
     """
+    from .describe import describe_panel, describe_renderable
+    from .files import check_output, input_files
+    from .plots import plot_periods
+
     with guarded(debug):
         if plot is not None:
             check_output(plot, "--plot", input_files(source))
@@ -385,7 +403,8 @@ def describe_command(
             raise BigPanelError(f"--effects takes exactly two columns (got {len(effects)}): --effects a --effects b")
         with progress(quiet or json_out) as on_step:
             desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None,
-                                 on_step=on_step, delimiter=delimiter)
+                                  on_step=on_step, delimiter=delimiter, engine=engine.value if engine else None,
+                                  spark_master=spark_master)
         if plot is not None:
             plot_periods(desc, plot)
         if json_out:
@@ -423,6 +442,10 @@ def table_command(
 
     Example: bigpanel table one.json two.json three.json --to latex --out table.tex
     """
+    from .files import check_output, write_text
+    from .tables import build_table, load_fits
+    from .tables import render as render_table
+
     with guarded(debug):
         if out_file is not None:
             check_output(out_file, "--out", [Path(f) for f in fits])
@@ -450,6 +473,9 @@ def demo_command(
 
     Example: bigpanel demo sales.parquet --rows 10000000
     """
+    from .demo import write_demo
+    from .files import check_output
+
     with guarded(debug):
         check_output(out_path, "demo file", [])
         panel = write_demo(str(out_path), rows=rows, seed=seed)
@@ -471,7 +497,9 @@ def _interrupted(signum: int, frame: object) -> None:
     DuckDB query (which this DuckDB reports in more than one way), in numpy, or
     between passes.
     """
-    remove_pending()
+    files = sys.modules.get("bigpanel.files")  # not loaded yet: nothing can be pending
+    if files is not None:
+        files.remove_pending()
     sys.stderr.write("bigpanel: interrupted; nothing was written\n")
     sys.stderr.flush()
     os._exit(130)

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from .errors import BigPanelError
 from .files import atomic_path
-from .source import connect
+from .engines.duckdb import connect
 from .sqltext import literal, render
 
 TRUE_COEFFICIENTS = {"log_price": -1.8, "promo": 0.35}

@@ -22,9 +22,10 @@ from rich.text import Text
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
-from .engine import Engine
+from .engines.base import Engine
 from .errors import BigPanelError
-from .source import Source, open_session
+from .engines.registry import open_session
+from .engines.source import Source
 from .spec import _NUMERIC, _check_column
 from .sqltext import ident, join, render
 
@@ -209,17 +210,20 @@ def describe_panel(
     threads: int | None = None,
     on_step: Callable[[str], None] | None = None,
     delimiter: str | None = None,
+    engine: str | None = None,
+    spark_master: str | None = None,
 ) -> PanelDescription:
     """Describe the panel in ``source`` whose units are ``id`` and periods ``time``.
 
     ``effects=(a, b)`` adds the number of connected components of the graph linking
     levels of ``a`` and ``b`` that share a row (the C in P = G_1 + G_2 - C).
     ``memory_limit``, ``temp_dir`` and ``threads`` are DuckDB's settings; ``delimiter``
-    is a CSV source's field separator.
+    is a CSV source's field separator; ``engine`` and ``spark_master`` pick the engine as for a fit
+    (:mod:`bigpanel.engines.registry`).
     """
     eng, src = open_session(
-        source, table, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, on_step=on_step,
-        delimiter=delimiter,
+        source, table, engine=engine, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads,
+        on_step=on_step, delimiter=delimiter, spark_master=spark_master,
     )
     try:
         _check_columns(src, id, time, effects)
@@ -241,7 +245,7 @@ def describe_panel(
         eng.close()
     rows = int(counts["n_rows"])
     missing_key = rows - int(shape["rows_keyed"])
-    q25, median, q75 = (float(q) for q in shape["periods_quartiles"])
+    q25, median, q75 = (float(shape[f"periods_q{p}"]) for p in (25, 50, 75))
     desc = PanelDescription(
         source=str(source),
         id=id,
@@ -259,7 +263,8 @@ def describe_panel(
         periods_median=median,
         periods_q75=q75,
         periods_max=int(shape["periods_max"]),
-        period_histogram=[[int(k), int(n)] for k, n in zip(histogram["periods"].to_pylist(), histogram["units"].to_pylist())],
+        period_histogram=[[int(k), int(n)]
+                          for k, n in zip(histogram["periods"].to_pylist(), histogram["units"].to_pylist())],
         units_with_gaps=int(shape["units_with_gaps"]) if _ORDERED_TIME.match(src.columns[time]) else None,
         units_single_period=int(shape["units_single_period"]),
         duplicate_keys=int(shape["dup_keys"]),

@@ -18,18 +18,18 @@ import numpy as np
 from .dof import count_absorbed
 from .effects import effect_tables, recover
 from .errors import BigPanelError
-from .family import ESTIMATORS, hausman_test, mundlak, run_family
+from .family import hausman_test, mundlak, run_family
 from .inference import Inference, infer
 from .memory import MemoryBackend
+from .options import ESTIMATORS, SINGLETONS
 from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
 from .results import FitResult
 from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
-from .source import open_session
+from .engines.registry import ENGINES, open_session
 from .sqlpath import SqlBackend
-from .spec import SINGLETONS, build_spec, check_where, parse_formula
+from .spec import build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
-ENGINES = {"duckdb": SqlBackend, "spark": SqlBackend, "memory": MemoryBackend}
 
 
 def _as_list(value: str | Sequence[str] | None) -> list[str]:
@@ -57,7 +57,7 @@ def fit(
     memory_limit: str | None = None,
     temp_dir: str | None = None,
     threads: int | None = None,
-    engine: str = "duckdb",
+    engine: str | None = None,
     spark_master: str | None = None,
     estimator: str = "within",
     time: str | None = None,
@@ -83,7 +83,7 @@ def fit(
     ``engine="memory"`` loads the used columns into numpy and fits the same
     model there (the reference for checking the SQL path on a sample);
     ``engine="spark"`` runs the same SQL on Spark (``spark_master``, default
-    local mode); a ``postgresql://`` source runs it on PostgreSQL.
+    local mode); a ``postgresql://`` source runs it on PostgreSQL (see :mod:`bigpanel.engines.registry`).
     ``estimator`` is ``within`` (default), ``between``, ``first-difference`` (along
     ``time``) or ``random-effects`` (GLS, Swamy-Arora; ``hausman=True`` adds the
     test against the within fit); for those, the one ``fe`` column is the unit.
@@ -113,7 +113,7 @@ def fit(
         raise BigPanelError(f"--tol must be a positive number, not {tol}")
     if max_iter < 0:
         raise BigPanelError(f"--max-iter must be 0 or more, not {max_iter}")
-    if engine not in ENGINES:
+    if engine is not None and engine not in ENGINES:
         raise BigPanelError(f"unknown engine {engine!r}: choose one of {', '.join(ENGINES)}")
     if estimator not in ESTIMATORS:
         raise BigPanelError(f"unknown estimator {estimator!r}: choose one of {', '.join(ESTIMATORS)}")
@@ -134,7 +134,7 @@ def fit(
     eng, src = open_session(
         source,
         table,
-        backend="spark" if engine == "spark" else "duckdb",
+        engine=engine,
         spark_master=spark_master,
         memory_limit=memory_limit,
         temp_dir=temp_dir,
@@ -146,7 +146,7 @@ def fit(
         spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
-        back = ENGINES[engine](eng, spec, src.kind)
+        back = (MemoryBackend if engine == "memory" else SqlBackend)(eng, spec, src.kind)
         first = back.start()
         budget = cell_budget or _default_budget()
         red = back.reduce(drop_singletons, budget, strategy)
@@ -263,7 +263,7 @@ def fit(
         },
         dropped=[{"name": names_all[j], "reason": why} for j, why in slopes.dropped],
         solver={
-            "engine": engine,
+            "engine": engine if engine == "memory" else eng.name,
             "path": PATHS[red.strategy],
             "strategy": _strategy_report(back.plan, red.strategy),
             "cross_products_from": back.moments_from,
@@ -348,8 +348,7 @@ def _fit_family(
     if estimator == "random-effects":
         within = fit(source, y=y, x=xs, fe=fe, where=where, table=table, singletons="keep", engine=engine,
                      weights=weights, on_step=on_step, **settings)
-    backend = "spark" if engine == "spark" else "duckdb"
-    eng, src = open_session(source, table, backend=backend, on_step=on_step, **settings)
+    eng, src = open_session(source, table, engine=engine, on_step=on_step, **settings)
     try:
         spec = build_spec(src, y, xs, fe, cluster, variance, where, time=time, weights=weights, eng=eng)
         if spec.where:
@@ -394,7 +393,7 @@ def _fit_family(
         rows={"source": first.n_source, "after_filter": first.n_filtered, "incomplete": {k: v for k, v in lost.items() if v},
               "dropped_incomplete": first.n_filtered - sample_rows, "dropped_singletons": 0, "used": fam.nobs},
         dropped=fam.dropped,
-        solver={"engine": engine, "path": estimator, "iterations": 0, "change": 0.0, "tol": None, "converged": True,
+        solver={"engine": eng.name, "path": estimator, "iterations": 0, "change": 0.0, "tol": None, "converged": True,
                 "condition_number": None, "raw_passes": passes, "seconds": round(perf_counter() - started, 4)},
         effects={},
         source=src.location,

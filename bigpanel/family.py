@@ -59,7 +59,7 @@ import pyarrow as pa
 from scipy import stats
 
 from .dof import NO_EFFECTS
-from .engine import Engine
+from .engines.base import Engine
 from .errors import BigPanelError
 from .inference import ClusterTerm, Inference, infer
 from .moments import cross_products, meat_cluster, meat_hc
@@ -68,7 +68,6 @@ from .solve import solve_slopes
 from .spec import Spec
 from .sqltext import join, render
 
-ESTIMATORS = ("within", "between", "first-difference", "random-effects")
 
 
 @dataclass(frozen=True)

@@ -16,7 +16,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 from scipy import sparse
 
-from .engine import Engine
+from .engines.base import Engine
 from .errors import BigPanelError
 from .inference import ClusterTerm
 from .moments import Moments, cluster_sets

@@ -19,7 +19,7 @@ import pyarrow as pa
 from dataclasses import dataclass
 from itertools import combinations
 
-from .engine import Engine
+from .engines.base import Engine
 from .inference import ClusterTerm
 from .reduce import put_one_row
 from .spec import Spec

@@ -17,7 +17,7 @@ import numpy as np
 import pyarrow.compute as pc
 from scipy import sparse
 
-from .engine import Engine
+from .engines.base import Engine
 from .errors import BigPanelError
 from .spec import Spec
 from .sqltext import grouping_id, grouping_sets, ident, join, render

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 from .errors import BigPanelError
 from .files import atomic_path
-from .source import connect
+from .engines.duckdb import connect
 from .sqltext import literal, render
 
 WEEKS = 150

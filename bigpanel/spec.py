@@ -17,14 +17,12 @@ import pyarrow as pa
 from dataclasses import dataclass
 
 from .errors import BigPanelError
-from .engine import Engine, EngineError
+from .engines.base import Engine, EngineError
 from .formula import Factor, Term, factor_sql, parse_outcome, parse_rhs, parse_term, sql_expression, term_label
-from .source import Source
+from .engines.source import Source
+from .options import VARIANCE_TYPES
 from .sqltext import ident, literal, render
 
-# the user's names of the variance estimators and the internal codes the SQL steps test for
-VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}
-SINGLETONS = ("drop", "keep")
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe
 _NUMERIC = re.compile(

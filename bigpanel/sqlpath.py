@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pyarrow as pa
 
-from .engine import Engine
+from .engines.base import Engine
 from .inference import ClusterTerm
 from .moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
                       store_effects)

@@ -1,4 +1,4 @@
-"""SQL templates under ``sql/`` and the quoting rules for filling them.
+"""SQL templates under ``bigpanel/sql/`` and the quoting rules for filling them.
 
 Templates hold ``{{name}}`` slots. A slot is filled only with SQL fragments that
 this package generates from quoted identifiers (:func:`ident`) or quoted string
@@ -15,18 +15,13 @@ from pathlib import Path
 _SLOT = re.compile(r"\{\{(\w+)\}\}")
 
 
-def _sql_dir() -> Path:
-    here = Path(__file__).resolve().parent
-    for candidate in (here / "sql", here.parent / "sql"):
-        if candidate.is_dir():
-            return candidate
-    raise RuntimeError("bigpanel: SQL templates not found next to the package")
+SQL_DIR = Path(__file__).resolve().parent / "sql"
 
 
 @lru_cache(maxsize=None)
 def template(name: str) -> str:
     """Return the text of ``sql/<name>.sql``."""
-    return (_sql_dir() / f"{name}.sql").read_text()
+    return (SQL_DIR / f"{name}.sql").read_text()
 
 
 def render(name: str, **slots: str) -> str:
@@ -63,3 +58,9 @@ def grouping_id(columns: list[str], grouped: list[str]) -> int:
     column is the most significant bit, and a bit is 1 where its column is not grouped."""
     width = len(columns)
     return sum(1 << (width - 1 - i) for i, c in enumerate(columns) if c not in grouped)
+
+
+def render_variant(name: str, dialect: str, **slots: str) -> str:
+    """Render ``sql/<name>.<dialect>.sql`` when that variant exists, else ``sql/<name>.sql``."""
+    variant = f"{name}.{dialect}"
+    return render(variant if (SQL_DIR / f"{variant}.sql").is_file() else name, **slots)

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pyarrow as pa
 
-from .engine import Engine
+from .engines.base import Engine
 from .project import Projection
 from .reduce import Reduction
 from .spec import Spec

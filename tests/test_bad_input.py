@@ -1,6 +1,5 @@
 """Bad data and awkward inputs: counted drops, quoted names, one-line errors, spilling, determinism."""
 
-import json
 
 import duckdb
 import numpy as np
@@ -36,6 +35,7 @@ def test_null_nan_inf_dropped_listwise_and_counted(tmp_path):
     assert rel(res.coef, ref.params[:2]) < 1e-8
 
 
+@pytest.mark.slow
 def test_wide_integers_do_not_overflow(tmp_path):
     # BIGINT values near 2^62 (not exact as doubles) in 20,000 rows: their integer sum would
     # pass 2^63. Reference: statsmodels LSDV on the small integers before the offset.
@@ -114,6 +114,7 @@ def _spill_panel(path, rows=3_000_000):
     con.close()
 
 
+@pytest.mark.slow
 def test_memory_limit_spills_and_gives_the_same_answer(tmp_path):
     # 1.5 million levels: the grouped pass needs more than 100 MB, so DuckDB must spill, at the
     # default thread count (the tool picks fewer threads under a tight limit). Reference:

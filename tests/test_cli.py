@@ -163,6 +163,7 @@ def test_effects_command_writes_files_and_plot(panel_path, tmp_path):
     assert (tmp_path / "fx.png").read_bytes()[:4] == b"\x89PNG"
 
 
+@pytest.mark.slow
 def test_bench_command_compares_engines(panel_path):
     _, path = panel_path
     out = run("bench", path, "y ~ x1 + x3", "--fe", "unit", "--json")
@@ -212,3 +213,37 @@ def test_help_shows_placeholders_and_choices_not_type_names(command):
     if command == "fit":
         assert "--variance <classical|hc1|cr1>" in out.stdout and "--singletons <drop|keep>" in out.stdout
         assert "--fe COL" in out.stdout and "PostgreSQL" in out.stdout and "Spark" in out.stdout
+
+
+HEAVY = ("numpy", "scipy", "duckdb", "pyarrow", "statsmodels", "sqlglot", "pandas")
+PROBE = """
+import sys
+sys.argv = ["bigpanel", *{args!r}]
+import bigpanel.cli
+try:
+    bigpanel.cli.app()
+except SystemExit as exc:
+    code = exc.code
+print(code, [m for m in {heavy!r} if m in sys.modules])
+"""
+
+
+@pytest.mark.parametrize("args, code", [(["--help"], 0), (["fit", "--help"], 0), (["describe", "--help"], 0),
+                                        (["fit", "p.parquet", "y ~ x", "--variance", "nosuch"], 2)])
+def test_help_and_usage_errors_load_nothing_heavy(args, code):
+    # `bigpanel --help` took 1.5-2 s when the CLI imported scipy, duckdb and numpy at start;
+    # a fresh interpreter shows what importing the CLI and answering loads
+    import subprocess
+    import sys
+
+    out = subprocess.run([sys.executable, "-c", PROBE.format(args=args, heavy=HEAVY)], capture_output=True, text=True,
+                         check=True).stdout.strip().splitlines()[-1]
+    assert out == f"{code} []"
+
+
+def test_python_m_bigpanel_runs_the_cli():
+    import subprocess
+    import sys
+
+    done = subprocess.run([sys.executable, "-m", "bigpanel", "--help"], capture_output=True, text=True)
+    assert done.returncode == 0 and "fit" in done.stdout and "describe" in done.stdout

@@ -27,9 +27,10 @@ import pytest
 
 import bigpanel
 from bigpanel import BigPanelError
-from bigpanel.source import open_session
+from bigpanel.engines.registry import open_session
 from conftest import rel
 
+pytestmark = pytest.mark.server
 SKIP = os.environ.get("BIGPANEL_SKIP_SERVERS") == "1"
 SKIP_REASON = "BIGPANEL_SKIP_SERVERS=1: the PostgreSQL and Spark engine tests are skipped"
 SERVER_USER = "bpgtest"
@@ -214,7 +215,7 @@ def spark_on(parquet_file) -> bool:
     """Spark in local mode, started once (later fits reuse its context)."""
     if SKIP:
         pytest.skip(SKIP_REASON)
-    from bigpanel.spark import open_spark
+    from bigpanel.engines.spark import open_spark
 
     try:
         eng, _ = open_spark(parquet_file, None)
@@ -243,6 +244,8 @@ def test_same_fit_as_duckdb(engine, case, request, parquet_file, reference):
     ref = reference[case]
     res = _fit_on(engine, request, parquet_file, CASES[case])
     assert res.names == ref.names == ["x1", "x2", "promo"]
+    # each engine reports its own name (issue 13: a PostgreSQL fit used to say "duckdb")
+    assert (ref.solver["engine"], res.solver["engine"]) == ("duckdb", {"postgres": "postgresql", "spark": "spark"}[engine])
     assert rel(res.coef, ref.coef) < 1e-9
     assert rel(res.std_error, ref.std_error) < 1e-9
     assert res.nobs == ref.nobs and res.df == ref.df and res.n_clusters == ref.n_clusters
@@ -292,10 +295,10 @@ def test_truth_recovered(reference):
 
 def _engine(engine: str, request, parquet_file: str):
     if engine == "postgres":
-        from bigpanel.postgres import open_postgres
+        from bigpanel.engines.postgres import open_postgres
 
         return open_postgres(request.getfixturevalue("pg_url"), "sales")[0]
-    from bigpanel.spark import open_spark
+    from bigpanel.engines.spark import open_spark
 
     request.getfixturevalue("spark_on")
     return open_spark(parquet_file, None)[0]
@@ -331,6 +334,26 @@ def test_dialect_semantics_match_duckdb(engine, request, parquet_file):
         assert eng.bytes_to_client > 0
     finally:
         eng.close()
+
+
+@pytest.mark.parametrize("engine", ["postgres", "spark"])
+def test_describe_same_as_duckdb(engine, request, parquet_file):
+    # describe on a server (it failed on PostgreSQL on the quartiles' list) gives DuckDB's
+    # description; DuckDB's is itself checked against pandas in test_describe.
+    from bigpanel.describe import describe_panel
+
+    ref = describe_panel(parquet_file, "store", "week", effects=("store", "region")).to_dict()
+    if engine == "postgres":
+        got = describe_panel(request.getfixturevalue("pg_url"), "store", "week", table="sales",
+                             effects=("store", "region")).to_dict()
+    else:
+        request.getfixturevalue("spark_on")
+        got = describe_panel(parquet_file, "store", "week", engine="spark", effects=("store", "region")).to_dict()
+    for key in ("source", "columns", "raw_passes"):
+        ref.pop(key), got.pop(key)
+    quartiles = ("periods_q25", "periods_median", "periods_q75")
+    assert [got.pop(k) for k in quartiles] == pytest.approx([ref.pop(k) for k in quartiles], rel=1e-12)
+    assert got == ref
 
 
 def test_postgres_table_errors(pg_url):

@@ -12,6 +12,8 @@ from bigpanel import BigPanelError
 from conftest import lsdv, rel
 from test_engines import panel, pg_url  # noqa: F401 - the session's PostgreSQL server and its data
 
+pytestmark = pytest.mark.server
+
 
 def _load(url: str, name: str, columns: dict[str, str], rows: list[tuple]) -> None:
     import psycopg

@@ -9,7 +9,7 @@ import pytest
 
 import bigpanel
 from bigpanel import BigPanelError
-from bigpanel.source import connect
+from bigpanel.engines.duckdb import connect
 from conftest import lsdv, make_panel, rel
 
 SECRET = "S3cr3tInTheEnvironment"

@@ -1,22 +1,69 @@
-"""The generated SQL for a small spec, compared with a stored snapshot.
+"""The generated SQL, compared with stored snapshots: DuckDB's statements and their bound
+parameters, and their translation for PostgreSQL and Spark (no server needed).
 
-Set BIGPANEL_UPDATE_SNAPSHOTS=1 to rewrite the snapshot after a deliberate change.
+Set BIGPANEL_UPDATE_SNAPSHOTS=1 to rewrite the snapshots after a deliberate change, and review the diff.
+The three-way snapshot includes the GROUPING bitmask values bound as ``$gid``: an encoder that
+reverses the bit order (checked by hand when this test was written) changes them and fails it.
 """
 
+import json
 import os
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 
 import bigpanel
-import bigpanel.source as source_module
-from bigpanel.engine import Engine
+import bigpanel.engines.duckdb as duckdb_module
+from bigpanel.engines.dialect import translate
+from bigpanel.engines.duckdb import DuckDBEngine
 
-SNAPSHOT = Path(__file__).parent / "snapshots" / "two_way_cluster.sql"
+SNAPSHOTS = Path(__file__).parent / "snapshots"
+UPDATE = bool(os.environ.get("BIGPANEL_UPDATE_SNAPSHOTS"))
 
 
-def test_generated_sql_matches_snapshot(to_parquet, monkeypatch):
+@pytest.fixture
+def recorded(monkeypatch):
+    """The engines a fit opens, each recording (sql, params) of every statement it runs."""
+    engines = []
+
+    class Recording(DuckDBEngine):
+        def __init__(self, *args, **kwargs):
+            super().__init__(*args, **kwargs)
+            self.calls = []
+            engines.append(self)
+
+        def _execute(self, sql, params):
+            self.calls.append((sql, params))
+            super()._execute(sql, params)
+
+        def _fetch(self, sql, params):
+            self.calls.append((sql, params))
+            return super()._fetch(sql, params)
+
+        def _stream(self, sql, params):
+            self.calls.append((sql, params))
+            return super()._stream(sql, params)
+
+    monkeypatch.setattr(duckdb_module, "DuckDBEngine", Recording)
+    return engines
+
+
+def _check(name: str, text: str) -> None:
+    path = SNAPSHOTS / name
+    if UPDATE:
+        path.write_text(text)
+    assert text == path.read_text(), f"{name} changed; regenerate with BIGPANEL_UPDATE_SNAPSHOTS=1 and review"
+
+
+def _params(params: dict) -> str:
+    """The bound parameters; floats (means, slopes) to 6 digits, so summation order cannot move them."""
+    shown = {k: float(f"{v:.6g}") if isinstance(v, float) else v for k, v in params.items()}
+    return "-- params: " + json.dumps(shown, sort_keys=True, default=str)
+
+
+def test_generated_sql_matches_snapshot(to_parquet, recorded):
     rng = np.random.default_rng(0)
     df = pd.DataFrame(
         {
@@ -27,18 +74,55 @@ def test_generated_sql_matches_snapshot(to_parquet, monkeypatch):
             "area": rng.integers(0, 3, 60),
         }
     )
-    engines = []
-
-    class Recording(Engine):
-        def __init__(self, *args, **kwargs):
-            super().__init__(*args, **kwargs)
-            engines.append(self)
-
-    monkeypatch.setattr(source_module, "Engine", Recording)
     bigpanel.fit(to_parquet(df), y="y", x=["select"], fe=["shop id", 'wk"'], cluster="area")
-    text = "\n;\n".join(engines[0].statements) + "\n"
-    if os.environ.get("BIGPANEL_UPDATE_SNAPSHOTS"):
-        SNAPSHOT.write_text(text)
-    assert text == SNAPSHOT.read_text()
+    text = "\n;\n".join(recorded[0].statements) + "\n"
+    _check("two_way_cluster.sql", text)
     # User identifiers appear only quoted, and only in the filter view.
     assert '"shop id" AS f1_1' in text and '"wk""" AS f2_1' in text and '"select"' in text
+
+
+@pytest.fixture
+def three_way(to_parquet, recorded):
+    """A three-way, two-cluster, weighted, filtered fit on the pair-table path: its (sql, params)."""
+    rng = np.random.default_rng(1)
+    n = 240
+    df = pd.DataFrame({
+        "shop id": rng.integers(0, 8, n), "week": rng.integers(0, 6, n), "item": rng.integers(0, 5, n),
+        "region": rng.integers(0, 3, n), "x1": rng.normal(size=n), "w": rng.uniform(0.5, 2.0, n),
+    })
+    df["y"] = 0.5 * df["x1"] + rng.normal(size=n)
+    bigpanel.fit(to_parquet(df), "y ~ x1", fe=["shop id", "week", "item"], cluster=["region", "shop id"],
+                 weights="w", where="x1 > -2.5", strategy="pair tables")
+    (eng,) = recorded
+    # the file path differs per run: keep the statements that do not name it
+    return [(sql, params) for sql, params in eng.calls if "read_parquet" not in sql]
+
+
+def test_three_way_duckdb_snapshot(three_way):
+    text = "\n;\n".join(f"{_params(p)}\n{sql.strip()}" for sql, p in three_way) + "\n"
+    _check("three_way.duckdb.sql", text)
+    assert any(p.get("gid") not in (None, 0) for _, p in three_way), "the snapshot must hold a non-zero GROUPING value"
+
+
+@pytest.mark.parametrize("dialect", ["postgres", "spark"])
+def test_three_way_translation_snapshot(three_way, dialect):
+    blocks = []
+    for sql, params in three_way:
+        steps = translate(sql, dialect)
+        blocks.append("\n;\n".join([_params(params)] + [
+            (f"-- materialised as {s.table}\n" if s.table else "") + s.sql for s in steps]))
+    _check(f"three_way.{dialect}.sql", "\n;\n".join(blocks) + "\n")
+
+
+@pytest.mark.parametrize("grouped", [["a"], ["b"], ["c"], ["a", "c"], ["b", "c"], ["a", "b", "c"], []])
+def test_grouping_id_matches_duckdbs_bitmask(grouped):
+    # sqltext.grouping_id encodes what GROUPING(a, b, c) returns on a grouping set's rows;
+    # the reference is DuckDB's own GROUPING (SQL standard: first argument = most significant bit).
+    import duckdb
+
+    from bigpanel.sqltext import grouping_id
+
+    con = duckdb.connect()
+    got = con.sql(f"SELECT GROUPING(a, b, c) FROM (VALUES (1, 2, 3)) AS t(a, b, c) "
+                  f"GROUP BY GROUPING SETS (({', '.join(grouped)}), (a, b, c))").fetchall()
+    assert sorted(got) == sorted([(grouping_id(["a", "b", "c"], grouped),), (0,)])

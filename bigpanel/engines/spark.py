@@ -15,14 +15,14 @@ import tempfile
 import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from typing import Any, Callable, Iterator
+from typing import Any, Callable, ClassVar, Iterator
 
 import pyarrow as pa
 
+from ..errors import BigPanelError
+from .base import Engine, first_line
 from .dialect import TranslatingEngine
-from .engine import Engine, _first_line
-from .errors import BigPanelError
-from .source import _PARQUET, Source, _parquet_files
+from .source import PARQUET_SUFFIXES, Source, parquet_files
 
 DEFAULT_MASTER = "local[*]"
 
@@ -78,9 +78,9 @@ class SparkEngine(TranslatingEngine):
     when asked), then registered as a temporary view.
     """
 
-    name: str = "Spark"
-    count_scans: bool = True
-    dialect: str = "spark"
+    name: ClassVar[str] = "spark"
+    title: ClassVar[str] = "Spark"
+    dialect: ClassVar[str] = "spark"
     cached: dict[str, Any] = field(default_factory=dict, init=False)
 
     def _execute(self, sql: str, params: dict) -> None:
@@ -120,6 +120,12 @@ class SparkEngine(TranslatingEngine):
         for tab in self.con.catalog.listTables():
             if tab.isTemporary:
                 self.con.catalog.dropTempView(tab.name)
+
+    def driver_errors(self) -> tuple[type[BaseException], ...]:
+        from py4j.protocol import Py4JError
+        from pyspark.errors import PySparkException
+
+        return (PySparkException, Py4JError)
 
 
 @contextmanager
@@ -169,7 +175,7 @@ def _session(master: str | None) -> Any:
             with _quiet():
                 base = builder.getOrCreate()
         except Exception as exc:  # pyspark raises its own runtime errors and Py4J's, both without a common base
-            raise BigPanelError(f"cannot start Spark on {master}: {_first_line(exc)}") from None
+            raise BigPanelError(f"cannot start Spark on {master}: {first_line(exc)}") from None
         finally:
             os.unlink(cfg.name)  # read once, when the JVM starts
         base.sparkContext.setLogLevel("ERROR")
@@ -193,7 +199,7 @@ def open_spark(
     from pyspark.errors import PySparkException
     from py4j.protocol import Py4JError
 
-    eng = SparkEngine(session, on_step=on_step, driver_errors=(PySparkException, Py4JError))
+    eng = SparkEngine(session, on_step=on_step)
     try:
         if table:
             if not session.catalog.tableExists(table):
@@ -205,9 +211,12 @@ def open_spark(
             frame, kind = session.read.table(table), "table"
         else:
             local = "://" not in location
-            if local and not (os.path.isdir(location) or globlib.has_magic(location) or location.lower().endswith(_PARQUET)):
-                raise BigPanelError(f"Spark reads Parquet files, folders or globs (or a catalog --table), not {location}")
-            paths = _parquet_files(location) if local else [location]
+            low = location.lower()
+            if local and not (os.path.isdir(location) or globlib.has_magic(location) or low.endswith(PARQUET_SUFFIXES)):
+                raise BigPanelError(
+                    f"Spark reads Parquet files, folders or globs (or a catalog --table), not {location}"
+                )
+            paths = parquet_files(location) if local else [location]
             frame, kind = session.read.parquet(*paths), "parquet"
         frame.createOrReplaceTempView("bp_source")
     except BigPanelError:
@@ -215,6 +224,6 @@ def open_spark(
         raise
     except (PySparkException, Py4JError) as exc:
         eng.close()
-        raise BigPanelError(f"cannot read {table or location} in Spark: {_first_line(exc)}") from None
+        raise BigPanelError(f"cannot read {table or location} in Spark: {first_line(exc)}") from None
     columns = {f.name: _duck_type(f.dataType) for f in frame.schema.fields}
-    return eng, Source(location=location, kind=kind, table=table, columns=columns)
+    return eng, Source(location=location, kind=kind, columns=columns)

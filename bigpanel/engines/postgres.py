@@ -9,16 +9,16 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any, Callable, ClassVar
 from urllib.parse import unquote
 
 import pyarrow as pa
 
-from .dialect import TranslatingEngine, template_for
-from .engine import Engine, _first_line
-from .errors import BigPanelError
+from ..errors import BigPanelError
+from ..sqltext import ident, join
+from .base import Engine, first_line
+from .dialect import TranslatingEngine
 from .source import Source
-from .sqltext import ident, join, render
 
 CONNECT_TIMEOUT = 10  # seconds, unless the URL sets connect_timeout
 
@@ -95,9 +95,9 @@ class PostgresEngine(TranslatingEngine):
     rows in.
     """
 
-    name: str = "PostgreSQL"
-    count_scans: bool = True
-    dialect: str = "postgres"
+    name: ClassVar[str] = "postgresql"
+    title: ClassVar[str] = "PostgreSQL"
+    dialect: ClassVar[str] = "postgres"
 
     def _execute(self, sql: str, params: dict) -> None:
         with self.con.cursor() as cur:
@@ -114,7 +114,7 @@ class PostgresEngine(TranslatingEngine):
         from psycopg import sql as pgsql
 
         columns = join([f"{ident(f.name)} {_column_type(f)}" for f in table.schema], ", ")
-        self._execute(render(template_for("store_arrow", "postgres"), table=ident(name), columns=columns), {})
+        self._execute(self.render("store_arrow", table=ident(name), columns=columns), {})
         with self.con.cursor() as cur:
             with cur.copy(pgsql.SQL("COPY {} FROM STDIN").format(pgsql.Identifier(name))) as copy:
                 for row in zip(*(col.to_pylist() for col in table.columns)):
@@ -122,6 +122,11 @@ class PostgresEngine(TranslatingEngine):
 
     def close(self) -> None:
         self.con.close()
+
+    def driver_errors(self) -> tuple[type[BaseException], ...]:
+        import psycopg
+
+        return (psycopg.Error,)
 
 
 def _to_arrow(description: Any, rows: list[tuple]) -> pa.Table:
@@ -185,7 +190,7 @@ def _where(url: str) -> tuple[dict, str]:
     try:
         info = conninfo_to_dict(url)
     except psycopg.Error as exc:
-        raise BigPanelError(f"bad PostgreSQL URL {_redacted(url)}: {_scrub(_first_line(exc), url)}") from None
+        raise BigPanelError(f"bad PostgreSQL URL {_redacted(url)}: {_scrub(first_line(exc), url)}") from None
     user = f"{info['user']}@" if info.get("user") else ""
     host = info.get("host") or "localhost"
     return info, f"postgresql://{user}{host}:{info.get('port') or 5432}/{info.get('dbname') or ''}"
@@ -193,7 +198,7 @@ def _where(url: str) -> tuple[dict, str]:
 
 def _resolve(eng: Engine, table: str, where: str) -> tuple[str, str]:
     """(schema, name) of ``table``: an exact name in one schema, or ``schema.name``."""
-    listed = eng.arrow("list tables", render(template_for("list_tables", "postgres"))).to_pylist()
+    listed = eng.arrow("list tables", eng.render("list_tables")).to_pylist()
     pairs = [(r["table_schema"], r["table_name"]) for r in listed]
     named = [p for p in pairs if p[1] == table]
     if len(named) == 1:
@@ -228,12 +233,12 @@ def open_postgres(
     try:
         con = psycopg.connect(url, autocommit=True, application_name="bigpanel", **timeout)
     except psycopg.Error as exc:
-        raise BigPanelError(f"cannot connect to PostgreSQL at {where}: {_scrub(_first_line(exc), url)}") from None
-    eng = PostgresEngine(con, on_step=on_step, driver_errors=(psycopg.Error,))
+        raise BigPanelError(f"cannot connect to PostgreSQL at {where}: {_scrub(first_line(exc), url)}") from None
+    eng = PostgresEngine(con, on_step=on_step)
     try:
         schema, name = _resolve(eng, table, where)
-        eng.execute("source view", render(template_for("source_table", "postgres"), table=f"{ident(schema)}.{ident(name)}"))
-        described = eng.arrow("source columns", render(template_for("describe_source", "postgres")), {"schema": schema, "table": name})
+        eng.execute("source view", eng.render("source_table", table=f"{ident(schema)}.{ident(name)}"))
+        described = eng.arrow("source columns", eng.render("describe_source"), {"schema": schema, "table": name})
     except BaseException:
         eng.close()
         raise
@@ -241,4 +246,4 @@ def open_postgres(
     if not columns:
         eng.close()
         raise BigPanelError(f"table {table!r} in {where} has no columns")
-    return eng, Source(location=where, kind="table", table=table, columns=columns)
+    return eng, Source(location=where, kind="table", columns=columns)

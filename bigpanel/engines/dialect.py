@@ -13,6 +13,9 @@ syntax tree is adjusted where the engines differ in meaning, not just spelling:
   EXISTS t`` then ``CREATE TEMP TABLE t ...``; for ``... AS q`` on Spark the query ``q`` is
   returned alone with ``table="t"`` and the engine materialises it (a cached
   DataFrame registered as the temp view ``t``). Temp *views* exist in both.
+* ``quantile_cont(x, p)`` (linear interpolation between order statistics):
+  PostgreSQL's ``percentile_cont(p) WITHIN GROUP (ORDER BY x)`` as sqlglot spells
+  it; Spark's exact ``percentile(x, p)``, which interpolates alike.
 * DuckDB's compensated ``fsum`` has no counterpart: both add with plain ``sum``
   (the summands are demeaned, so the totals stay small; rounding then grows
   with the row count as in any plain sum).
@@ -23,7 +26,7 @@ Everything else (``covar_pop`` and the other aggregates, ``row_number() OVER (OR
 NULLS LAST default, ``LIMIT`` in subqueries, casts, quoted identifiers) is
 spelled by sqlglot. Statements that differ in substance (where the source
 table lives, how the schema is read) are template variants
-``sql/<name>.<dialect>.sql``, chosen by :func:`template_for`; they are written
+``sql/<name>.<dialect>.sql``, chosen by :meth:`Engine.render`; they are written
 in portable SQL with ``$name`` parameters and pass through the same translation.
 """
 
@@ -31,18 +34,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Any, Callable, Iterator
+from typing import Any, Iterator
 
-import pyarrow as pa
-
-from .engine import Engine, EngineError, _first_line
-from .errors import BigPanelError
-
-# Templates with a variant file sql/<name>.<dialect>.sql.
-_VARIANTS = {
-    "postgres": frozenset({"source_table", "list_tables", "describe_source", "store_arrow"}),
-    "spark": frozenset(),
-}
+from ..errors import BigPanelError
+from .base import Engine, first_line
 
 # isfinite(x) for doubles, written in the target dialect around the column bp_arg.
 _FINITE = {
@@ -63,11 +58,6 @@ def _sqlglot() -> Any:
             "PostgreSQL and Spark need the package sqlglot: pip install 'bigpanel[postgres]' or 'bigpanel[spark]'"
         ) from None
     return sqlglot
-
-
-def template_for(name: str, dialect: str) -> str:
-    """The template to render for ``name`` on ``dialect``: ``name.dialect`` when that variant exists."""
-    return f"{name}.{dialect}" if name in _VARIANTS[dialect] else name
 
 
 @dataclass(frozen=True)
@@ -131,6 +121,8 @@ def _rewrite(node: Any, dialect: str, exp: Any) -> Any:
         return exp.Paren(this=check)
     if name == "fsum" and len(args) == 1:
         return exp.Sum(this=args[0].copy())
+    if isinstance(node, exp.PercentileCont) and dialect == "spark":
+        return exp.Anonymous(this="percentile", expressions=[node.this.copy(), node.expression.copy()])
     if name == "grouping" and dialect == "spark":
         return exp.Anonymous(this="grouping_id", expressions=[a.copy() for a in args])
     return node
@@ -138,28 +130,31 @@ def _rewrite(node: Any, dialect: str, exp: Any) -> Any:
 
 @dataclass
 class TranslatingEngine(Engine):
-    """An :class:`Engine` whose statements are translated to ``dialect`` before they run.
+    """An :class:`Engine` whose statements are translated to its ``dialect`` before they run.
 
-    Subclasses implement ``_execute``/``_fetch``/``_put``/``close`` on the steps of
-    :func:`translate` and name their driver's exception types in ``driver_errors``.
+    Subclasses implement the primitives on the steps of :func:`translate`; a
+    statement sqlglot cannot translate fails like a driver error, in one line.
     """
 
-    dialect: str = "postgres"
-    driver_errors: tuple[type[BaseException], ...] = ()
     def steps(self, sql: str) -> tuple[Step, ...]:
         """The translated steps of one DuckDB-dialect statement."""
         return translate(sql, self.dialect)
 
-    def _stream(self, sql: str, params: dict) -> Iterator[pa.RecordBatch]:
+    def _stream(self, sql: str, params: dict) -> Iterator[Any]:
         yield from self._fetch(sql, params).to_batches()
 
-    def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any], record: bool = True) -> Any:
+    def driver_errors(self) -> tuple[type[BaseException], ...]:
+        """The driver's own exception types."""
+        raise NotImplementedError
+
+    def error_types(self) -> tuple[type[BaseException], ...]:
         from sqlglot.errors import SqlglotError
 
-        try:
-            return super()._run(label, raw, sql, fn, record)
-        except SqlglotError as exc:
-            raise EngineError(label, f"cannot translate for {self.name}: {_first_line(exc)}", self.name) from None
-        except self.driver_errors as exc:
-            raise EngineError(label, _first_line(exc), self.name) from None
+        return (SqlglotError, *self.driver_errors())
 
+    def describe_error(self, exc: BaseException) -> str:
+        from sqlglot.errors import SqlglotError
+
+        if isinstance(exc, SqlglotError):
+            return f"cannot translate for {self.title}: {first_line(exc)}"
+        return first_line(exc)

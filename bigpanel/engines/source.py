@@ -1,4 +1,4 @@
-"""Open a panel where it lies: Parquet files or globs, CSV files, DuckDB tables.
+"""Open a panel where it lies in DuckDB: Parquet files or globs, CSV files, DuckDB tables.
 
 Nothing is copied: the source becomes the temporary view ``bp_source`` over the
 files, and every later pass reads through it.
@@ -12,16 +12,14 @@ import gzip
 import os
 import re
 from dataclasses import dataclass
-from pathlib import Path
-from typing import Callable
 
 import duckdb
 
-from .engine import Engine, _first_line
-from .errors import BigPanelError
-from .sqltext import ident, literal, render
+from ..errors import BigPanelError
+from ..sqltext import ident, literal, render
+from .base import first_line
 
-_PARQUET = (".parquet", ".parq", ".pq")
+PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")
 _CSV = (".csv", ".tsv", ".csv.gz", ".tsv.gz", ".txt")
 _DATABASE = (".duckdb", ".ddb", ".db")
 
@@ -32,63 +30,18 @@ class Source:
 
     location: str
     kind: str  # "parquet", "csv" or "table"
-    table: str | None
     columns: dict[str, str]  # column name -> DuckDB type, in source order
-
-
-def connect(
-    memory_limit: str | None = None, temp_dir: str | None = None, threads: int | None = None
-) -> duckdb.DuckDBPyConnection:
-    """An in-process DuckDB connection with the user's memory, spill and thread settings."""
-    config: dict[str, str | int] = {}
-    if memory_limit:
-        config["memory_limit"] = memory_limit
-    if temp_dir:
-        Path(temp_dir).mkdir(parents=True, exist_ok=True)
-        config["temp_directory"] = temp_dir
-    threads = threads or _threads_for(memory_limit)
-    if threads:
-        config["threads"] = int(threads)
-    try:
-        con = duckdb.connect(":memory:", config=config)
-    except duckdb.Error as exc:
-        raise BigPanelError(f"bad engine setting ({_first_line(exc)})") from None
-    con.execute(render("session_settings")).fetchall()
-    return con
-
-
-_SIZE = re.compile(r"^\s*([0-9.]+)\s*([KMGT]?)(I?B)?\s*$", re.IGNORECASE)
-MEMORY_PER_THREAD = 256 * 2**20  # bytes of --memory-limit per DuckDB thread, at least
-
-
-def _threads_for(memory_limit: str | None) -> int | None:
-    """Threads under a tight memory limit: one per ``MEMORY_PER_THREAD`` (at least 1, at most the cores).
-
-    Every thread builds its own partition of a grouped pass's hash table before
-    spilling; under 100MB with two threads the 10M-row three-effect demo ran out
-    of memory where one thread spilled and finished. None (DuckDB's default, all
-    cores) when no limit is set or the limit leaves every core its share.
-    """
-    if not memory_limit:
-        return None
-    m = _SIZE.match(memory_limit)
-    if not m:
-        return None  # DuckDB's own parser judges (and names) the value
-    unit = m.group(2).upper()
-    base = 1024 if (m.group(3) or "").upper() == "IB" else 1000
-    size = float(m.group(1)) * base ** "KMGT".find(unit) * base if unit else float(m.group(1))
-    cores = os.cpu_count() or 1
-    wanted = max(1, int(size // MEMORY_PER_THREAD))
-    return wanted if wanted < cores else None
 
 
 def _kind_of(location: str, table: str | None) -> str:
     low = location.lower()
-    if table is not None and low.endswith(_CSV + _PARQUET):
-        raise BigPanelError(f"--table names a table inside a database file; {location} is a file of its own: drop --table")
+    if table is not None and low.endswith(_CSV + PARQUET_SUFFIXES):
+        raise BigPanelError(
+            f"--table names a table inside a database file; {location} is a file of its own: drop --table"
+        )
     if table is not None:
         return "table"
-    if low.endswith(_PARQUET) or os.path.isdir(location):
+    if low.endswith(PARQUET_SUFFIXES) or os.path.isdir(location):
         return "parquet"
     if low.endswith(_CSV):
         return "csv"
@@ -99,7 +52,8 @@ def _kind_of(location: str, table: str | None) -> str:
     )
 
 
-def _parquet_files(location: str) -> list[str]:
+def parquet_files(location: str) -> list[str]:
+    """The Parquet files of a file, a folder (searched recursively) or a glob, sorted; none is an error."""
     if os.path.isdir(location):
         pattern = os.path.join(location, "**", "*.parquet")
         files = sorted(globlib.glob(pattern, recursive=True))
@@ -194,7 +148,7 @@ def open_source(
     kind = _kind_of(location, table)
     try:
         if kind == "parquet":
-            files = _parquet_files(location)
+            files = parquet_files(location)
             for f in files:
                 _check_not_empty(f)
             paths = "[" + ", ".join(literal(f) for f in files) + "]"
@@ -211,7 +165,7 @@ def open_source(
             except duckdb.Error as exc:
                 raise BigPanelError(
                     f"cannot read CSV {location}: some rows do not have the header's number of fields, or the "
-                    f"file is not {'tab' if delim == chr(9) else 'comma'}-separated ({_first_line(exc)})"
+                    f"file is not {'tab' if delim == chr(9) else 'comma'}-separated ({first_line(exc)})"
                 ) from None
         else:
             if not os.path.exists(location):
@@ -228,46 +182,11 @@ def open_source(
     except BigPanelError:
         raise
     except duckdb.Error as exc:
-        raise BigPanelError(f"cannot read {location}: {_first_line(exc)}") from None
+        raise BigPanelError(f"cannot read {location}: {first_line(exc)}") from None
     columns = {row[0]: row[1] for row in described}
     if not columns:
         raise BigPanelError(f"{location} has no columns")
     if kind == "csv":
         _check_csv_header(location, list(columns), delimiter)
         _check_header(location, _delimiter(delimiter, location))
-    return Source(location=location, kind=kind, table=table, columns=columns)
-
-
-def open_session(
-    location: str,
-    table: str | None = None,
-    *,
-    backend: str = "duckdb",
-    spark_master: str | None = None,
-    memory_limit: str | None = None,
-    temp_dir: str | None = None,
-    threads: int | None = None,
-    on_step: Callable[[str], None] | None = None,
-    delimiter: str | None = None,
-) -> tuple[Engine, Source]:
-    """An engine holding the view ``bp_source`` over ``location``, and the source's schema.
-
-    A ``postgresql://`` location opens PostgreSQL (``table`` names the table);
-    ``backend="spark"`` opens Spark SQL; otherwise DuckDB, in process. The caller
-    closes the engine.
-    """
-    if str(location).startswith(("postgresql://", "postgres://")):
-        from .postgres import open_postgres
-
-        return open_postgres(str(location), table, on_step=on_step)
-    if backend == "spark":
-        from .spark import open_spark
-
-        return open_spark(str(location), table, master=spark_master, on_step=on_step)
-    con = connect(memory_limit, temp_dir, threads)
-    try:
-        src = open_source(con, location, table, delimiter)
-    except BaseException:
-        con.close()
-        raise
-    return Engine(con, on_step=on_step), src
+    return Source(location=location, kind=kind, columns=columns)

@@ -1,0 +1,1 @@
+"""The SQL engines (DuckDB, PostgreSQL, Spark), their dialects and the source openers."""

@@ -1,0 +1,190 @@
+-- params: {}
+;
+SELECT COUNT(*) AS n FROM (SELECT * FROM bp_source LIMIT 0) AS s WHERE (x1 > -2.5)
+;
+-- params: {}
+;
+CREATE OR REPLACE TEMPORARY VIEW bp_filtered AS SELECT CAST(`y` AS DOUBLE) AS v0, CAST(`x1` AS DOUBLE) AS v1, `shop id` AS f1_1, `week` AS f2_1, `item` AS f3_1, `region` AS cl1, `shop id` AS cl2, CAST(`w` AS DOUBLE) AS w FROM bp_source WHERE (x1 > -2.5)
+;
+-- params: {}
+;
+CREATE OR REPLACE TEMPORARY VIEW bp_sample AS SELECT * FROM bp_filtered WHERE (NOT ISNAN(v0) AND ABS(v0) <> CAST('inf' AS DOUBLE)) AND (NOT ISNAN(v1) AND ABS(v1) <> CAST('inf' AS DOUBLE)) AND NOT f1_1 IS NULL AND NOT f2_1 IS NULL AND NOT f3_1 IS NULL AND NOT cl1 IS NULL AND NOT cl2 IS NULL AND (NOT ISNAN(w) AND ABS(w) <> CAST('inf' AS DOUBLE)) AND w > 0
+;
+-- params: {}
+;
+SELECT COUNT(*) AS n FROM bp_filtered
+;
+-- params: {}
+;
+SELECT COUNT(*) AS n FROM bp_source
+;
+-- params: {}
+;
+SELECT AVG(v0) AS m0, AVG(v1) AS m1 FROM (SELECT v0, v1 FROM bp_sample LIMIT 1000) AS head
+;
+-- params: {"m0": -0.043423, "m1": -0.0267064}
+;
+-- materialised as bp_shift
+SELECT CAST(:m0 AS DOUBLE) AS m0, CAST(:m1 AS DOUBLE) AS m1
+;
+-- params: {}
+;
+-- materialised as bp_cells
+SELECT f1_1, f2_1, f3_1, GROUPING_ID(f1_1, f2_1, f3_1) AS gid, COUNT(*) AS n, SUM(w) AS nw, SUM(w * (v0 - s.m0)) AS s0, SUM(w * (v1 - s.m1)) AS s1, SUM(w * (v0 - s.m0) * (v0 - s.m0)) AS q0, SUM(w * (v1 - s.m1) * (v1 - s.m1)) AS q1, MIN(cl1) AS cl1_min, MAX(cl1) AS cl1_max, MIN(cl2) AS cl2_min, MAX(cl2) AS cl2_max FROM bp_sample CROSS JOIN bp_shift AS s GROUP BY GROUPING SETS ((f1_1), (f2_1), (f3_1))
+;
+-- params: {"gid": 3, "min_count": 1}
+;
+-- materialised as bp_lev_1
+SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f1_1 HAVING SUM(n) >= :min_count) AS lv
+;
+-- params: {"gid": 5, "min_count": 1}
+;
+-- materialised as bp_lev_2
+SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f2_1 HAVING SUM(n) >= :min_count) AS lv
+;
+-- params: {"gid": 6, "min_count": 1}
+;
+-- materialised as bp_lev_3
+SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f3_1 HAVING SUM(n) >= :min_count) AS lv
+;
+-- params: {}
+;
+SELECT SUM(n) AS n FROM bp_lev_1
+;
+-- params: {}
+;
+SELECT COUNT(*) AS n_single FROM bp_lev_1 WHERE n = 1
+;
+-- params: {}
+;
+SELECT COUNT(*) AS n_single FROM bp_lev_2 WHERE n = 1
+;
+-- params: {}
+;
+SELECT COUNT(*) AS n_single FROM bp_lev_3 WHERE n = 1
+;
+-- params: {}
+;
+SELECT nw, n FROM bp_lev_1 ORDER BY code NULLS LAST
+;
+-- params: {"gid": 3}
+;
+SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = :gid GROUP BY f1_1) AS lv
+;
+-- params: {"gid": 3}
+;
+SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = :gid GROUP BY f1_1) AS lv
+;
+-- params: {}
+;
+SELECT nw, n FROM bp_lev_2 ORDER BY code NULLS LAST
+;
+-- params: {"gid": 5}
+;
+SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = :gid GROUP BY f2_1) AS lv
+;
+-- params: {"gid": 5}
+;
+SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = :gid GROUP BY f2_1) AS lv
+;
+-- params: {}
+;
+SELECT nw, n FROM bp_lev_3 ORDER BY code NULLS LAST
+;
+-- params: {"gid": 6}
+;
+SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = :gid GROUP BY f3_1) AS lv
+;
+-- params: {"gid": 6}
+;
+SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = :gid GROUP BY f3_1) AS lv
+;
+-- params: {"gid": 3}
+;
+SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_1 AS l USING (f1_1) WHERE c.gid = :gid GROUP BY l.code ORDER BY l.code NULLS LAST
+;
+-- params: {"gid": 5}
+;
+SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_2 AS l USING (f2_1) WHERE c.gid = :gid GROUP BY l.code ORDER BY l.code NULLS LAST
+;
+-- params: {"gid": 6}
+;
+SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_3 AS l USING (f3_1) WHERE c.gid = :gid GROUP BY l.code ORDER BY l.code NULLS LAST
+;
+-- params: {}
+;
+-- materialised as bp_pairs
+SELECT l1.code AS c1, l2.code AS c2, l3.code AS c3, GROUPING_ID(l1.code, l2.code, l3.code) AS gid, SUM(w) AS nw FROM bp_sample JOIN bp_lev_1 AS l1 USING (f1_1) JOIN bp_lev_2 AS l2 USING (f2_1) JOIN bp_lev_3 AS l3 USING (f3_1) GROUP BY GROUPING SETS ((l1.code, l2.code), (l1.code, l3.code), (l2.code, l3.code))
+;
+-- params: {"gid": 1}
+;
+SELECT c1, c2, nw FROM bp_pairs WHERE gid = :gid
+;
+-- params: {"gid": 2}
+;
+SELECT c1, c3, nw FROM bp_pairs WHERE gid = :gid
+;
+-- params: {"gid": 4}
+;
+SELECT c2, c3, nw FROM bp_pairs WHERE gid = :gid
+;
+-- params: {}
+;
+SELECT f1_1 FROM bp_lev_1 ORDER BY code NULLS LAST
+;
+-- params: {}
+;
+SELECT f2_1 FROM bp_lev_2 ORDER BY code NULLS LAST
+;
+-- params: {}
+;
+SELECT f3_1 FROM bp_lev_3 ORDER BY code NULLS LAST
+;
+-- params: {}
+;
+-- materialised as bp_alpha_1
+SELECT * FROM `bp_alpha_1_arrow`
+;
+-- params: {}
+;
+-- materialised as bp_alpha_2
+SELECT * FROM `bp_alpha_2_arrow`
+;
+-- params: {}
+;
+-- materialised as bp_alpha_3
+SELECT * FROM `bp_alpha_3_arrow`
+;
+-- params: {}
+;
+CREATE OR REPLACE TEMPORARY VIEW bp_tilde AS SELECT v0 - s.m0 - a1.a0 - a2.a0 - a3.a0 AS e0, v1 - s.m1 - a1.a1 - a2.a1 - a3.a1 AS e1, cl1, cl2, w FROM bp_sample CROSS JOIN bp_shift AS s JOIN bp_alpha_1 AS a1 USING (f1_1) JOIN bp_alpha_2 AS a2 USING (f2_1) JOIN bp_alpha_3 AS a3 USING (f3_1)
+;
+-- params: {}
+;
+-- materialised as bp_cluster_moments
+SELECT GROUPING_ID(cl1, cl2) AS gid, COUNT(*) AS n, SUM(w * e0 * e0) AS q_0_0, SUM(w * e0 * e1) AS q_0_1, SUM(w * e1 * e1) AS q_1_1 FROM bp_tilde GROUP BY GROUPING SETS ((cl1), (cl2), (cl1, cl2))
+;
+-- params: {"gid": 1}
+;
+SELECT SUM(n) AS n, SUM(q_0_0) AS q_0_0, SUM(q_0_1) AS q_0_1, SUM(q_1_1) AS q_1_1 FROM bp_cluster_moments WHERE gid = :gid
+;
+-- params: {"b1": 0.441666}
+;
+-- materialised as bp_coef
+SELECT CAST(:b1 AS DOUBLE) AS b1
+;
+-- params: {}
+;
+SELECT gid, COUNT(*) AS n_clusters, SUM(g1 * g1) AS h_1_1 FROM (SELECT gid, q_0_1 - (b.b1 * q_1_1) AS g1 FROM bp_cluster_moments CROSS JOIN bp_coef AS b) AS g GROUP BY gid ORDER BY gid NULLS LAST
+;
+-- params: {}
+;
+SELECT f1_1 FROM bp_lev_1 ORDER BY code NULLS LAST
+;
+-- params: {}
+;
+SELECT f2_1 FROM bp_lev_2 ORDER BY code NULLS LAST
+;
+-- params: {}
+;
+SELECT f3_1 FROM bp_lev_3 ORDER BY code NULLS LAST
