@@ -41,6 +41,7 @@ from .project import Projection, conjugate_gradients
 from .reduce import Reduction, RowCodes
 
 DENSE_PAIRS = 1 << 26  # a pair table of two small effects is counted densely up to this many cells
+EDGE_CHUNK = 1 << 24  # rows (or edges) handled at a time while counting pair tables and components
 
 
 @dataclass(frozen=True)
@@ -53,6 +54,7 @@ class Links:
     link: dict[int, sparse.csr_matrix]
     pairs: dict[tuple[int, int], sparse.csr_matrix]
     groups: dict[int, tuple[int, np.ndarray]]
+    weighted: bool
 
     @property
     def nbytes(self) -> int:
@@ -62,12 +64,21 @@ class Links:
 
 
 def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb: int) -> sparse.csr_matrix:
-    """P = D_a'W D_b for two effects given by per-row codes (dense counting when small)."""
+    """P = D_a'W D_b for two effects given by per-row codes, counted chunk by chunk (densely
+    when the table is small)."""
     if ga * gb <= DENSE_PAIRS:
-        flat = np.bincount(a.astype(np.int64) * gb + b, weights=w, minlength=ga * gb)
+        flat = np.zeros(ga * gb)
+        for start in range(0, len(a), EDGE_CHUNK):
+            part = slice(start, start + EDGE_CHUNK)
+            weights = None if w is None else w[part]
+            flat += np.bincount(a[part].astype(np.int64) * gb + b[part], weights=weights, minlength=ga * gb)
         return sparse.csr_matrix(flat.reshape(ga, gb))
-    data = np.ones(len(a)) if w is None else w
-    return sparse.csr_matrix((data, (a.astype(np.int32), b.astype(np.int32))), shape=(ga, gb))
+    table = sparse.csr_matrix((ga, gb))
+    for start in range(0, len(a), EDGE_CHUNK):
+        part = slice(start, start + EDGE_CHUNK)
+        data = np.ones(len(a[part])) if w is None else w[part]
+        table = table + sparse.csr_matrix((data, (a[part].astype(np.int32), b[part].astype(np.int32))), shape=(ga, gb))
+    return table
 
 
 def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
@@ -83,8 +94,9 @@ def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
     link = {}
     for e in small:
         link[e] = sparse.csr_matrix((data, rc.codes.pop(e).astype(index), indptr), shape=(sizes[big], sizes[e]))
+    weighted = rc.weights is not None
     rc.weights = None
-    return Links(big, link, pairs, {e: _linked_groups(link[e]) for e in small})
+    return Links(big, link, pairs, {e: _linked_groups(link[e]) for e in small}, weighted)
 
 
 def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
@@ -105,8 +117,9 @@ class _Schur:
         diag, free = [], []
         for e, n_e in zip(self.small, self.n):
             c = links.link[e]
-            squared = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
-            d = n_e - squared.T @ inv
+            if links.weighted:
+                c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
+            d = n_e - c.T @ inv  # unweighted, every nonzero is 1 and equals its square
             diag.append(np.where(d > 1e-9 * n_e, d, n_e))  # a level absorbed by B: any positive scale
             n_groups, labels = links.groups[e]
             pinned = np.zeros(len(n_e), dtype=bool)
@@ -152,15 +165,25 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
 
 def _linked_groups(c: sparse.csr_matrix) -> tuple[int, np.ndarray]:
     """Connected components of the column levels of ``c`` when two are linked by sharing a row
-    level: edges between consecutive column indices inside each row connect them exactly so."""
-    keep = np.ones(max(len(c.indices) - 1, 0), dtype=bool)
-    starts = c.indptr[1:-1]
-    keep[starts[(starts > 0) & (starts < len(c.indices))] - 1] = False
-    a, b = c.indices[:-1][keep], c.indices[1:][keep]
+    level: edges between consecutive column indices inside each row connect them exactly so.
+    The edges are deduplicated chunk by chunk, so memory stays a few bytes per chunk row."""
     g = c.shape[1]
-    if g * g <= DENSE_PAIRS:
-        a, b = np.divmod(np.flatnonzero(np.bincount(a.astype(np.int64) * g + b, minlength=g * g)), g)
-    graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+    row_start = np.zeros(len(c.indices), dtype=bool)
+    row_start[c.indptr[:-1][c.indptr[:-1] < len(c.indices)]] = True
+    dense = g * g <= DENSE_PAIRS
+    seen = np.zeros(g * g if dense else 0, dtype=bool)
+    graph = sparse.csr_matrix((g, g), dtype=bool)
+    for start in range(1, len(c.indices), EDGE_CHUNK):
+        stop = min(start + EDGE_CHUNK, len(c.indices))
+        keep = ~row_start[start:stop]
+        a, b = c.indices[start - 1:stop - 1][keep], c.indices[start:stop][keep]
+        if dense:
+            seen[a.astype(np.int64) * g + b] = True
+        else:
+            graph = graph + sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+    if dense:
+        a, b = np.divmod(np.flatnonzero(seen), g)
+        graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
     n_comp, labels = connected_components(graph, directed=False)
     return int(n_comp), labels
 
