@@ -57,6 +57,12 @@ CONFIGS = {
         ("store-week", ["store"], None),
         ("store-week", ["store"], "store"),
     ],
+    "row-codes": [  # the row-codes configurations of the main group but staff (a rerun after a fix)
+        ("store-week", ["store", "week"], None),
+        ("store-week", ["store", "week"], "store"),
+        ("store-week-supplier", ["store", "week", "supplier"], None),
+        ("store-week-supplier", ["store", "week", "supplier"], "store"),
+    ],
 }
 NUMPY_BYTES_PER_ROW = 200  # peak of the plain numpy fit, measured about 150 B/row at 10M rows
 NUMPY_MAX_ROWS = {"staff": 10_000_000}  # slow to converge by plain alternating projections

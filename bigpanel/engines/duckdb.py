@@ -59,7 +59,10 @@ def connect(
     memory_limit: str | None = None, temp_dir: str | None = None, threads: int | None = None
 ) -> duckdb.DuckDBPyConnection:
     """An in-process DuckDB connection with the user's memory, spill and thread settings."""
-    config: dict[str, str | int] = {}
+    # Hand freed memory back to the system as a fit goes (not only at exit): without it the
+    # sort buffers of the row-codes pass stayed resident while numpy built its tables (200M rows
+    # of store x week: peak 6.4 GB, with it 4.3 GB).
+    config: dict[str, str | int | bool] = {"allocator_flush_threshold": "64MB", "allocator_background_threads": True}
     if memory_limit:
         config["memory_limit"] = memory_limit
     if temp_dir:
