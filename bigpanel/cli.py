@@ -120,12 +120,24 @@ def guarded(debug: bool) -> Iterator[None]:
 
 @contextlib.contextmanager
 def progress(quiet: bool) -> Iterator:
-    """A status line naming the current pass, on a terminal only."""
+    """A status line on a terminal only: the current step (passes over the rows numbered), the
+    running query's percent when the engine knows it, and the elapsed time (see bigpanel.progress)."""
     if quiet or not err.is_terminal:
         yield None
         return
-    with err.status("starting", spinner="dots") as status:
-        yield lambda label: status.update(label)
+    import threading
+
+    from .progress import PassProgress
+
+    with err.status(Text("starting"), spinner="dots") as status:
+        line = PassProgress(lambda text: status.update(Text(text)))
+        refresher = threading.Thread(target=line.run, daemon=True)
+        refresher.start()
+        try:
+            yield line
+        finally:
+            line.stop()
+            refresher.join()
 
 
 def _effect_files(folder: Path, names: list[str]) -> dict[str, Path]:

@@ -74,10 +74,10 @@ def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
     if spec.vcov == "cluster":
         names = spec.cluster_aliases
         groups = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
-        eng.execute("pass 3: demeaned cross-products per cluster",
+        eng.execute("demeaned cross-products per cluster",
                     render("cluster_moments", sums=join(sums), clusters=", ".join(names), sets=groups), raw=True)
         return _cluster_totals(eng, names, m)
-    row = eng.one("pass 3: demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
+    row = eng.one("demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     return _moments(row, m)
 
 
@@ -143,7 +143,7 @@ def meat_hc(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> np.nd
     _store_coef(eng, keep, beta)
     resid, carry = _resid_parts(keep, bool(spec.weights))
     sums = [f"fsum(u * u * e{i} * e{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
-    row = eng.one("pass 4: robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
+    row = eng.one("robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
     return _square(row, keep)
 
 

@@ -391,7 +391,7 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
     while True:
         rounds += 1
         sql = render("cells", keys=all_keys, sums=sums, filters=filters, sets=groups)
-        eng.execute(f"pass 2: per-level statistics (round {rounds})", sql, raw=True)
+        eng.execute(f"per-level statistics (round {rounds})", sql, raw=True)
         _build_levels(eng, spec, min_count=1)
         if n_complete is None:
             n_complete = int(eng.one("complete rows", render("level_rows", table="bp_lev_1"))["n"] or 0)
@@ -448,7 +448,7 @@ def _pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tupl
     sql = render("pair_counts", codes=join([f"{c} AS c{d + 1}" for d, c in enumerate(codes)]),
                  grouping=", ".join(codes), weight="sum(w)" if spec.weights else "count(*)", joins=_level_joins(spec),
                  sets=grouping_sets([[codes[d], codes[e]] for d, e in pairs]))
-    eng.execute("pass 3: pairs of levels", sql, raw=True)
+    eng.execute("pairs of levels", sql, raw=True)
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
     for d, e in pairs:
         tab = eng.arrow("fetch pair tables", render("pair_table", codes=f"c{d + 1}, c{e + 1}"),
@@ -474,7 +474,7 @@ def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCo
     weights = np.empty(n_obs) if spec.weights else None
     sql = render("row_codes", codes=join(cols), joins=_level_joins(spec), order=f"l{big + 1}.code")
     at = 0
-    for batch in eng.stream("pass 3: level codes of every row", sql, raw=True):
+    for batch in eng.stream("level codes of every row", sql, raw=True):
         size = batch.num_rows
         if at + size > n_obs:
             raise RuntimeError("the row-codes pass returned more rows than the levels hold")

@@ -93,11 +93,25 @@ class Engine(ABC):
         """Template ``name`` in this engine's variant (``name.<dialect>.sql``) when there is one."""
         return render_variant(name, self.dialect, **slots)
 
+    def __post_init__(self) -> None:
+        attach = getattr(self.on_step, "attach", None)
+        if attach is not None:  # a progress display that can also show how far a query has got
+            attach(self.query_progress)
+
+    def query_progress(self) -> float | None:
+        """How far the running query has got, in percent, when the driver can tell (else None).
+        Called from another thread while a statement runs."""
+        return None
+
+    def _announce(self, label: str, raw: bool) -> None:
+        """Tell ``on_step`` what runs now; a pass over the rows is numbered ("pass 2: ...")."""
+        if self.on_step is not None:
+            self.on_step(f"pass {self.raw_passes + 1}: {label}" if raw else label)
+
     def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any], record: bool = True) -> Any:
         if record:
             self.statements.append(sql)
-            if self.on_step is not None:
-                self.on_step(label)
+            self._announce(label, raw)
         start = time.perf_counter()
         try:
             out = fn()
@@ -128,8 +142,7 @@ class Engine(ABC):
         ``bytes_to_client``. The query counts as a pass when ``raw``; its time is the time to
         exhaust the iterator."""
         self.statements.append(sql)
-        if self.on_step is not None:
-            self.on_step(label)
+        self._announce(label, raw)
         start = time.perf_counter()
         batches = self._run(label, raw, sql, lambda: iter(self._stream(sql, params or {})), record=False)
         while True:

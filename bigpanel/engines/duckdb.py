@@ -48,6 +48,14 @@ class DuckDBEngine(Engine):
     def error_types(self) -> tuple[type[BaseException], ...]:
         return (duckdb.Error,)
 
+    def query_progress(self) -> float | None:
+        """DuckDB's own estimate of the running query's progress (-1 when it has none)."""
+        try:
+            done = float(self.con.query_progress())
+        except (duckdb.Error, RuntimeError):
+            return None
+        return done if done >= 0 else None
+
     def interrupted(self, exc: BaseException) -> bool:
         # this DuckDB reports an interrupted query as InterruptException or as a plain RuntimeError
         if isinstance(exc, duckdb.InterruptException):

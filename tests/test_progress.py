@@ -1,0 +1,43 @@
+"""What the progress display is told and shows (the status line itself needs a terminal)."""
+
+import bigpanel
+from bigpanel.progress import PassProgress
+from test_strategies import unit_period_panel
+
+
+def test_every_pass_over_the_rows_is_announced_and_numbered(to_parquet):
+    # The fit's own count of passes (solver.raw_passes) against what on_step heard.
+    df = unit_period_panel(seed=11)
+    heard: list[str] = []
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=["unit", "period"], cluster="unit",
+                       on_step=heard.append)
+    passes = [label for label in heard if label.startswith("pass ")]
+    assert len(passes) == res.solver["raw_passes"] == 3
+    assert [p.split(":")[0] for p in passes] == ["pass 1", "pass 2", "pass 3"]
+
+
+def test_the_line_shows_step_percent_and_elapsed_time():
+    shown: list[str] = []
+    clock = iter([100.0, 102.5, 104.0]).__next__
+    line = PassProgress(shown.append, clock=clock)
+    line("pass 1: per-level statistics (round 1)")
+    line.attach(lambda: 42.4)
+    line.refresh()
+    assert shown == ["pass 1: per-level statistics (round 1) - 2.5 s",
+                     "pass 1: per-level statistics (round 1) - 42% - 4.0 s"]
+
+
+def test_duckdb_reports_no_progress_when_idle(to_parquet):
+    # The probe the engine attaches: None outside a query (DuckDB says -1 then).
+    df = unit_period_panel(seed=12)
+    probes = []
+
+    class Recorder:
+        def __call__(self, label):
+            pass
+
+        def attach(self, probe):
+            probes.append(probe)
+
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", on_step=Recorder())
+    assert res.nobs == len(df) and len(probes) == 1 and probes[0]() is None
