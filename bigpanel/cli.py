@@ -310,7 +310,11 @@ def effects_command(
     model: dict,
     out_dir: Path = typer.Option(..., "--out", help="Folder for one Parquet file per effect (level, effect, rows)."),
     plot: Optional[Path] = typer.Option(
-        None, "--plot", help="Also draw the effects' histograms to this PNG (needs matplotlib).", metavar="FILE.png"
+        None, "--plot", metavar="FILE.png",
+        help="Also draw the effects to this PNG (needs matplotlib): a line over time for periods, else a histogram.",
+    ),
+    period: Optional[str] = typer.Option(
+        None, "--time", metavar="COL", help="The period column among the effects: its effect is drawn against time."
     ),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
@@ -330,7 +334,7 @@ def effects_command(
     files = _effect_files(Path(out_dir), list(res.effects))
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items()]
     if plot is not None:
-        writers.append((Path(plot), functools.partial(plot_effects, res.effects)))
+        writers.append((Path(plot), functools.partial(plot_effects, res.effects, period=period)))
     write_all(writers)
     table = Table(box=box.SIMPLE_HEAD, title="estimated effects", title_justify="left")
     for col in ("effect", "levels", "mean", "sd", "min", "max", "file"):

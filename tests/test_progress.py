@@ -41,3 +41,25 @@ def test_duckdb_reports_no_progress_when_idle(to_parquet):
 
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", on_step=Recorder())
     assert res.nobs == len(df) and len(probes) == 1 and probes[0]() is None
+
+
+def test_period_effects_are_drawn_against_time(tmp_path):
+    # Dates are periods, and so is the integer column named as the period (years); store
+    # numbers and string keys are not (a histogram then).
+    import datetime
+
+    import pyarrow as pa
+
+    from bigpanel.plots import over_time, plot_effects
+
+    def table(keys):
+        return pa.table({"k": keys, "effect": [0.1 * i for i in range(len(keys))], "rows": [5] * len(keys)})
+
+    weeks = table([datetime.date(2024, 1, 1) + datetime.timedelta(days=7 * i) for i in range(30)])
+    years = table(list(range(2000, 2020)))
+    stores = table(list(range(1, 40)))
+    names = table(["a", "b", "c"])
+    assert over_time(weeks) and over_time(years, period="k") and not over_time(years)
+    assert not over_time(stores) and not over_time(names)
+    plot_effects({"week": weeks, "store": stores}, tmp_path / "fx.png")
+    assert (tmp_path / "fx.png").stat().st_size > 1000
