@@ -21,18 +21,18 @@ from .sqltext import ident, join, render
 
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     """One aggregate pass over the model's columns: sums of values, minimum of keys."""
-    from .estimate import _as_list
+    from .estimate import as_list
     from .engines.registry import open_session
     from .spec import build_spec, parse_formula
 
-    y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], _as_list(model["x"])))
+    y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], as_list(model["x"])))
     eng, src = open_session(
         model["source"], model.get("table"), memory_limit=model.get("memory_limit"),
         temp_dir=model.get("temp_dir"), threads=model.get("threads"), delimiter=model.get("delimiter"),
     )
     try:
         spec = build_spec(
-            src, y, x, _as_list(model["fe"]), _as_list(model.get("cluster")), model.get("variance"), model.get("where"),
+            src, y, x, as_list(model["fe"]), as_list(model.get("cluster")), model.get("variance"), model.get("where"),
             eng=eng,
         )
         aggs = [f"sum(CAST({c} AS DOUBLE)) AS s{i}" for i, c in enumerate(spec.value_sql)]

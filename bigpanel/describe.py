@@ -26,7 +26,7 @@ from .engines.base import Engine
 from .errors import BigPanelError
 from .engines.registry import open_session
 from .engines.source import Source
-from .spec import _NUMERIC, _check_column
+from .spec import NUMERIC, check_column
 from .sqltext import ident, join, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
@@ -130,12 +130,12 @@ def _check_columns(src: Source, id: str, time: str, effects: tuple[str, str] | N
     if effects is not None and len(effects) != 2:
         raise BigPanelError(f"effects needs exactly two columns, got {len(effects)}")
     for name in _id_columns(src, id):
-        _check_column(name, src, "id")
-    _check_column(time, src, "time")
+        check_column(name, src, "id")
+    check_column(time, src, "time")
     if time in _id_columns(src, id):
         raise BigPanelError(f"column {time!r} cannot be both the id (or part of it) and the time")
     for name in effects or ():
-        _check_column(name, src, "effect")
+        check_column(name, src, "effect")
 
 
 def _count_missing(eng: Engine, kinds: list[str]) -> dict[str, int]:
@@ -230,7 +230,7 @@ def describe_panel(
         names, kinds = list(src.columns), list(src.columns.values())
         keys = [*_id_columns(src, id), time]
         numeric = [j for j, (name, kind) in enumerate(src.columns.items())
-                   if name not in keys and _NUMERIC.match(kind)]
+                   if name not in keys and NUMERIC.match(kind)]
         columns = join([f"{ident(name)} AS {_col(j)}" for j, name in enumerate(names)])
         eng.execute("name columns", render("describe_view", id=_unit_sql(_id_columns(src, id)),
                                            time=_time_sql(time, src.columns[time]), columns=columns))

@@ -32,7 +32,7 @@ from .spec import build_spec, check_where, parse_formula
 FEW_CLUSTERS = 50
 
 
-def _as_list(value: str | Sequence[str] | None) -> list[str]:
+def as_list(value: str | Sequence[str] | None) -> list[str]:
     if value is None:
         return []
     if isinstance(value, str):
@@ -106,7 +106,7 @@ def fit(
             raise BigPanelError("give either a formula or --y/--x, not both")
         y, xs = parse_formula(formula)
     else:
-        xs = _as_list(x)
+        xs = as_list(x)
     if not y:
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if tol <= 0 or not np.isfinite(tol):
@@ -124,7 +124,7 @@ def fit(
     drop_singletons = singletons == "drop"
     if estimator != "within":
         return _fit_family(
-            estimator, source, y, xs, _as_list(fe), _as_list(cluster), variance, where, table, time, hausman, weights,
+            estimator, source, y, xs, as_list(fe), as_list(cluster), variance, where, table, time, hausman, weights,
             engine, dict(spark_master=spark_master, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads,
                          delimiter=delimiter),
             on_step, started,
@@ -143,7 +143,7 @@ def fit(
         delimiter=delimiter,
     )
     try:
-        spec = build_spec(src, y, xs, _as_list(fe), _as_list(cluster), variance, where, weights=weights, eng=eng)
+        spec = build_spec(src, y, xs, as_list(fe), as_list(cluster), variance, where, weights=weights, eng=eng)
         if spec.where:
             check_where(eng, spec.where)
         back = (MemoryBackend if engine == "memory" else SqlBackend)(eng, spec, src.kind)

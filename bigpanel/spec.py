@@ -25,7 +25,7 @@ from .sqltext import ident, literal, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe
-_NUMERIC = re.compile(
+NUMERIC = re.compile(
     r"^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT"
     r"|FLOAT|DOUBLE|REAL|DECIMAL.*|BOOLEAN)$"
 )
@@ -130,7 +130,7 @@ def parse_formula(formula: str) -> tuple[str, list[str]]:
     return parse_outcome(lhs).label, [term_label(t) for t in parse_rhs(rhs)]
 
 
-def _check_column(name: str, source: Source, role: str) -> None:
+def check_column(name: str, source: Source, role: str) -> None:
     if name in source.columns:
         return
     close = difflib.get_close_matches(name, list(source.columns), n=1, cutoff=0.6)
@@ -155,8 +155,8 @@ def _check_factor(factor: Factor, source: Source, role: str, eng: Engine | None)
         _check_factor(parse_term(factor.arg)[0], source, role, eng)
         return
     if factor.kind in ("column", "levels") or factor.arg in source.columns:
-        _check_column(factor.arg, source, role)
-        if factor.kind != "levels" and not _NUMERIC.match(source.columns[factor.arg]):
+        check_column(factor.arg, source, role)
+        if factor.kind != "levels" and not NUMERIC.match(source.columns[factor.arg]):
             raise BigPanelError(
                 f"column {factor.arg!r} has type {source.columns[factor.arg]}, not a number: it cannot be the "
                 "outcome or a regressor (levels(column) makes indicators of a categorical column)"
@@ -164,7 +164,7 @@ def _check_factor(factor: Factor, source: Source, role: str, eng: Engine | None)
         return
     expression, used = sql_expression(factor.arg, source.columns)
     for name in used:
-        _check_column(name, source, role)
+        check_column(name, source, role)
     if eng is None:
         return
     try:
@@ -271,7 +271,7 @@ def build_spec(
     effects = tuple(_split_effect(term, source) for term in fe)
     for cols in effects:
         for name in cols:
-            _check_column(name, source, "fixed-effect")
+            check_column(name, source, "fixed-effect")
     if len(set(effects)) != len(effects):
         raise BigPanelError("the same fixed effect is listed twice")
     for name in dict.fromkeys([c for cols in effects for c in cols] + list(cluster or [])):
@@ -289,12 +289,12 @@ def build_spec(
     if len(set(cluster)) != len(cluster):
         raise BigPanelError("the same cluster column is listed twice")
     for name in cluster:
-        _check_column(name, source, "cluster")
+        check_column(name, source, "cluster")
     if time is not None:
-        _check_column(time, source, "time")
+        check_column(time, source, "time")
     if weights is not None:
-        _check_column(weights, source, "weights")
-        if not _NUMERIC.match(source.columns[weights]):
+        check_column(weights, source, "weights")
+        if not NUMERIC.match(source.columns[weights]):
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
     keys = [c for cols in effects for c in cols] + cluster
     plain = [c for c in [y, *regressors] if c in source.columns]
