@@ -114,10 +114,11 @@ def _key(spec: Spec, column: str) -> str:
 
 
 def _value(spec: Spec, name: str, j: int, sql: str) -> str:
-    """Value column j (the term ``name``, SQL ``sql``) as a double; a wide integer column first
-    loses its offset in the integer domain."""
+    """Value column j (the term ``name``, SQL ``sql``) as a double; a wide integer or decimal
+    column first loses an integer offset in the exact decimal domain (its own scale kept)."""
     if name in spec.wide_values:
-        return f"CAST(CAST({ident(name)} AS DECIMAL(38, 0)) - CAST(o.o{j} AS DECIMAL(38, 0)) AS DOUBLE)"
+        scale = spec.wide_scales[spec.wide_values.index(name)]
+        return f"CAST(CAST({ident(name)} AS DECIMAL(38, {scale})) - CAST(o.o{j} AS DECIMAL(38, 0)) AS DOUBLE)"
     return f"CAST({sql} AS DOUBLE)"
 
 

@@ -32,6 +32,18 @@ NUMERIC = re.compile(
 _FLOATS = ("FLOAT", "DOUBLE", "REAL")
 # integer types whose values need not fit a double's 53-bit mantissa (DECIMAL keeps its fraction: cast directly)
 _WIDE = re.compile(r"^(BIGINT|UBIGINT|HUGEINT|UHUGEINT)$")
+_DECIMAL = re.compile(r"^DECIMAL\((\d+),\s*(\d+)\)$")
+EXACT_DIGITS = 15  # a DECIMAL with more significant digits than this does not fit a double exactly
+
+
+def wide_scale(kind: str) -> int | None:
+    """The decimal scale of a column type wider than a double (0 for wide integers), else None."""
+    if _WIDE.match(kind):
+        return 0
+    found = _DECIMAL.match(kind)
+    if found and int(found.group(1)) > EXACT_DIGITS:
+        return int(found.group(2))
+    return None
 
 # The filter is a row expression over the source's columns: these parser node classes, the
 # functions below, and nothing else (no subquery, table function, parameter, lambda, star).
@@ -69,7 +81,8 @@ class Spec:
     time: str | None = None
     weights: str | None = None
     float_keys: tuple[str, ...] = ()  # effect and cluster columns of a floating type (NaN/inf possible)
-    wide_values: tuple[str, ...] = ()  # outcome/regressors of an integer type wider than a double
+    wide_values: tuple[str, ...] = ()  # outcome/regressors of an integer or decimal type wider than a double
+    wide_scales: tuple[int, ...] = ()  # the decimal scale of each of them (0 for integers)
     y_sql: str = ""
     x_sql: tuple[str, ...] = ()
     categorical: tuple[tuple[str, int, str], ...] = ()
@@ -298,11 +311,12 @@ def build_spec(
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
     keys = [c for cols in effects for c in cols] + cluster
     plain = [c for c in [y, *regressors] if c in source.columns]
+    wide = {c: wide_scale(source.columns[c]) for c in plain if wide_scale(source.columns[c]) is not None}
     return Spec(y=y, x=tuple(regressors), fe=effects, cluster=tuple(cluster), vcov=VARIANCE_TYPES[variance],
                 where=where, time=time, weights=weights, y_sql=factor_sql(outcome[0], source.columns),
                 x_sql=tuple(regressors.values()), categorical=tuple(categorical.values()),
                 float_keys=tuple(c for c in keys if source.columns[c] in _FLOATS),
-                wide_values=tuple(c for c in plain if _WIDE.match(source.columns[c])))
+                wide_values=tuple(wide), wide_scales=tuple(wide.values()))
 
 
 def canonical_where(where: str, columns: dict[str, str] | None = None) -> str:

@@ -129,3 +129,22 @@ def test_wide_decimal_keeps_its_fraction(tmp_path):
     res = bigpanel.fit(str(path), "y ~ x", fe="g", table="t")
     ref = lsdv(df, "y", ["x"], ["g"])
     assert rel(res.coef, ref.params[:1]) < 1e-10
+
+
+def test_decimal_wider_than_a_double_keeps_its_digits(tmp_path):
+    # A DECIMAL(38, 2) near 1e20 varies by a few units: as a double (ulp 16,384 there) the
+    # variation would vanish. Reference: statsmodels LSDV on the exact differences from 1e20,
+    # computed by DuckDB in the decimal domain.
+    import duckdb
+    from conftest import lsdv
+
+    path = tmp_path / "wide.duckdb"
+    con = duckdb.connect(str(path))
+    con.execute("CREATE TABLE t AS SELECT i % 20 AS g, "
+                "CAST(100000000000000000000 AS DECIMAL(38, 2)) + CAST(sin(i) * 10 AS DECIMAL(38, 2)) AS x, "
+                "CAST(3 * round(sin(i) * 10, 2) + cos(i * 7) AS DOUBLE) AS y FROM range(400) r(i)")
+    df = con.execute("SELECT g, CAST(x - CAST(100000000000000000000 AS DECIMAL(38, 2)) AS DOUBLE) AS x, y FROM t").df()
+    con.close()
+    res = bigpanel.fit(str(path), "y ~ x", fe="g", table="t")
+    ref = lsdv(df, "y", ["x"], ["g"])
+    assert rel(res.coef, ref.params[:1]) < 1e-9 and rel(res.std_error, ref.bse[:1]) < 1e-9
