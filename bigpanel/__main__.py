@@ -1,5 +1,5 @@
 """``python -m bigpanel``: the same command as ``bigpanel``."""
 
-from .cli import main
+from .command import main
 
 main()

@@ -48,3 +48,22 @@ def test_sigint_exits_130_and_writes_nothing(big_panel, tmp_path, delay):
     assert proc.returncode == 130, err
     assert err.strip() == "bigpanel: interrupted; nothing was written"
     assert not save.exists() and not list(tmp_path.glob(".*.tmp"))
+
+
+def test_sigint_while_the_command_starts(big_panel, tmp_path):
+    # The signal lands while the command's modules are still loading (typer, rich: tens of
+    # milliseconds after the entry point runs): the early handler answers the same way.
+    save = tmp_path / "fit.json"
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    code = ("import sys; sys.argv[0] = 'bigpanel'; print('up', flush=True); "
+            "from bigpanel.command import main; main()")
+    proc = subprocess.Popen(
+        [sys.executable, "-c", code, "fit", str(big_panel), "y ~ x", "--fe", "g", "--save", str(save), "--quiet"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    assert proc.stdout.readline().strip() == "up"
+    time.sleep(0.03)
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert err.strip() == "bigpanel: interrupted; nothing was written"
+    assert not save.exists()
