@@ -198,6 +198,11 @@ def _model_options(
     memory_limit: Optional[str] = typer.Option(
         None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills.", metavar="SIZE"
     ),
+    cell_budget: Optional[str] = typer.Option(
+        None, "--python-memory", metavar="SIZE",
+        help="Budget for the pair tables or row codes held in numpy (default a quarter of RAM); over it the "
+             "projections run in the engine.",
+    ),
     temp_dir: Optional[str] = typer.Option(
         None, "--temp-dir", help="Folder where DuckDB spills when over the memory limit.", metavar="DIR"
     ),

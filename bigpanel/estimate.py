@@ -21,7 +21,7 @@ from .errors import BigPanelError
 from .family import hausman_test, mundlak, run_family
 from .inference import Inference, infer
 from .memory import MemoryBackend
-from .options import ESTIMATORS, SINGLETONS
+from .options import ESTIMATORS, SINGLETONS, size_in_bytes
 from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
 from .results import FitResult
 from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
@@ -62,7 +62,7 @@ def fit(
     estimator: str = "within",
     time: str | None = None,
     hausman: bool = False,
-    cell_budget: int | None = None,
+    cell_budget: int | str | None = None,
     weights: str | None = None,
     delimiter: str | None = None,
     strategy: str | None = None,
@@ -88,7 +88,8 @@ def fit(
     ``time``) or ``random-effects`` (GLS, Swamy-Arora; ``hausman=True`` adds the
     test against the within fit); for those, the one ``fe`` column is the unit.
     See :mod:`bigpanel.family`. ``cell_budget`` (bytes; default a quarter of the
-    machine's memory) is the Python-side memory budget: the pair tables or per-row
+    machine's memory; a size such as ``"12GB"`` too, ``--python-memory`` on the command
+    line) is the Python-side memory budget: the pair tables or per-row
     level codes fetched to numpy must fit it, else the projections run inside the
     engine (:mod:`bigpanel.sweeps`). The strategy is chosen from a measurement of
     the panel (:func:`bigpanel.reduce.choose_strategy`); ``strategy`` (``"pair
@@ -148,7 +149,7 @@ def fit(
             check_where(eng, spec.where)
         back = (MemoryBackend if engine == "memory" else SqlBackend)(eng, spec, src.kind)
         first = back.start()
-        budget = cell_budget or _default_budget()
+        budget = _budget(cell_budget)
         red = back.reduce(drop_singletons, budget, strategy)
         lost = back.incomplete() if red.n_complete < first.n_filtered else {}
         if on_step:
@@ -316,6 +317,19 @@ def _inference_fields(inf: Inference) -> dict:
         "ci_high": inf.ci_high, "df": inf.df, "small_sample": inf.small_sample, "sigma": inf.sigma,
         "f_stat": inf.f_stat, "f_df": inf.f_df, "f_p": inf.f_p, "psd_fixed": inf.psd_fixed,
     }
+
+
+def _budget(cell_budget: int | str | None) -> int:
+    """The Python-side memory budget in bytes: ``cell_budget`` (bytes, or a size such as ``12GB``),
+    else a quarter of the machine's memory."""
+    if cell_budget is None:
+        return _default_budget()
+    if isinstance(cell_budget, str):
+        size = size_in_bytes(cell_budget)
+        if size is None or size <= 0:
+            raise BigPanelError(f"--python-memory {cell_budget!r} is not a size such as 12GB")
+        return int(size)
+    return int(cell_budget)
 
 
 def _default_budget() -> int:

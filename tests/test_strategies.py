@@ -183,3 +183,26 @@ def test_the_solver_reports_its_budget_and_allocation(to_parquet):
     assert s["python_budget_bytes"] > 0 and 0 < s["largest_python_allocation_bytes"] < s["python_budget_bytes"]
     with pytest.raises(bigpanel.BigPanelError, match="unknown strategy"):
         bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"], strategy="fastest")
+
+
+def test_python_memory_option(tmp_path):
+    # --python-memory sets the budget: 1 byte leaves nothing for numpy, so the projections run
+    # in the engine, with the same slopes as statsmodels LSDV; a bad size is one line, exit 2.
+    from typer.testing import CliRunner
+
+    from bigpanel.cli import app
+    from conftest import write_parquet
+
+    df = unit_period_panel(seed=13)
+    path = write_parquet(df, tmp_path / "p.parquet")
+    out = CliRunner().invoke(app, ["fit", path, "y ~ x1 + x2", "--fe", "unit", "--fe", "period",
+                                   "--python-memory", "1B", "--json", "--tol", "1e-12"])
+    assert out.exit_code == 0, out.output
+    import json
+
+    res = json.loads(out.stdout)
+    assert res["solver"]["strategy"]["name"] == "in-engine sweeps" and res["solver"]["python_budget_bytes"] == 1
+    coef = lsdv(df, "y", X, ["unit", "period"]).params[:2]
+    assert rel([res["coefficients"][x]["estimate"] for x in X], coef) < 1e-8
+    bad = CliRunner().invoke(app, ["fit", path, "y ~ x1", "--fe", "unit", "--python-memory", "lots"])
+    assert bad.exit_code == 2 and "--python-memory 'lots' is not a size" in bad.output

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import os
-import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import ClassVar, Iterator
@@ -12,6 +11,7 @@ import duckdb
 import pyarrow as pa
 
 from ..errors import BigPanelError
+from ..options import size_in_bytes
 from ..sqltext import ident, render
 from .base import STREAM_BATCH, Engine, first_line
 
@@ -87,7 +87,6 @@ def connect(
     return con
 
 
-_SIZE = re.compile(r"^\s*([0-9.]+)\s*([KMGT]?)(I?B)?\s*$", re.IGNORECASE)
 MEMORY_PER_THREAD = 256 * 2**20  # bytes of --memory-limit per DuckDB thread, at least
 
 
@@ -101,12 +100,9 @@ def _threads_for(memory_limit: str | None) -> int | None:
     """
     if not memory_limit:
         return None
-    m = _SIZE.match(memory_limit)
-    if not m:
+    size = size_in_bytes(memory_limit)
+    if size is None:
         return None  # DuckDB's own parser judges (and names) the value
-    unit = m.group(2).upper()
-    base = 1024 if (m.group(3) or "").upper() == "IB" else 1000
-    size = float(m.group(1)) * base ** "KMGT".find(unit) * base if unit else float(m.group(1))
     cores = os.cpu_count() or 1
     wanted = max(1, int(size // MEMORY_PER_THREAD))
     return wanted if wanted < cores else None
