@@ -7,7 +7,6 @@ import enum
 import functools
 import inspect
 import json
-import os
 import signal
 import sys
 import traceback
@@ -21,6 +20,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
+from .command import interrupted
 from .engines.registry import ENGINES
 from .errors import BigPanelError
 from .options import ESTIMATORS, SINGLETONS, VARIANCE_TYPES
@@ -511,22 +511,8 @@ def demo_command(
         )
 
 
-def _interrupted(signum: int, frame: object) -> None:
-    """SIGINT at any moment: remove half-written files, say so, exit 130 (no traceback, no abort).
-
-    Exiting from the handler does not depend on where the signal lands: inside a
-    DuckDB query (which this DuckDB reports in more than one way), in numpy, or
-    between passes.
-    """
-    files = sys.modules.get("bigpanel.files")  # not loaded yet: nothing can be pending
-    if files is not None:
-        files.remove_pending()
-    sys.stderr.write("bigpanel: interrupted; nothing was written\n")
-    sys.stderr.flush()
-    os._exit(130)
-
-
 def main() -> None:
-    """Console-script entry point."""
-    signal.signal(signal.SIGINT, _interrupted)
+    """Run the command (with the interrupt handler of :mod:`bigpanel.command`, installed again
+    for callers that start here)."""
+    signal.signal(signal.SIGINT, interrupted)
     app()

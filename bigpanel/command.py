@@ -1,8 +1,7 @@
-"""The console entry point (``bigpanel`` and ``python -m bigpanel``).
+"""The console entry point (``bigpanel`` and ``python -m bigpanel``) and its interrupt handler.
 
-It puts an interrupt handler in place before the command's own modules load, so that
-a SIGINT during start-up ends like one during a fit: one line, exit code 130, no
-traceback (the command then installs its fuller handler, see ``cli.main``).
+The handler is in place before the command's own modules load, so that a SIGINT
+during start-up ends like one during a fit: one line, exit code 130, no traceback.
 """
 
 from __future__ import annotations
@@ -12,15 +11,24 @@ import signal
 import sys
 
 
-def _interrupted_early(signum: int, frame: object) -> None:
+def interrupted(signum: int, frame: object) -> None:
+    """SIGINT at any moment: remove half-written files, say so, exit 130 (no traceback, no abort).
+
+    Exiting from the handler does not depend on where the signal lands: in the imports,
+    inside a DuckDB query (which this DuckDB reports in more than one way), in numpy, or
+    between passes.
+    """
+    files = sys.modules.get("bigpanel.files")  # not loaded yet: nothing can be pending
+    if files is not None:
+        files.remove_pending()
     sys.stderr.write("bigpanel: interrupted; nothing was written\n")
     sys.stderr.flush()
     os._exit(130)
 
 
 def main() -> None:
-    """Install the early SIGINT handler, then run the command."""
-    signal.signal(signal.SIGINT, _interrupted_early)
+    """Install the SIGINT handler, then load and run the command."""
+    signal.signal(signal.SIGINT, interrupted)
     from .cli import main as run
 
     run()
