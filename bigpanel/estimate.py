@@ -22,7 +22,7 @@ from .family import hausman_test, mundlak, run_family
 from .inference import Inference, infer
 from .memory import MemoryBackend
 from .options import ESTIMATORS, SINGLETONS, size_in_bytes
-from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, incomplete
+from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Reduction, incomplete
 from .results import FitResult
 from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
 from .engines.registry import ENGINES, open_session
@@ -266,7 +266,7 @@ def fit(
         solver={
             "engine": engine if engine == "memory" else eng.name,
             "path": PATHS[red.strategy],
-            "strategy": _strategy_report(back.plan, red.strategy),
+            "strategy": _strategy_report(red),
             "cross_products_from": back.moments_from,
             "python_budget_bytes": budget,
             "largest_python_allocation_bytes": int(back.python_bytes),
@@ -301,13 +301,11 @@ PATHS = {
 }
 
 
-def _strategy_report(plan: Plan | None, ran: str) -> dict:
-    """The plan's measurements and reason, with the strategy that finally ran."""
-    out = plan.to_dict() if plan is not None else {"name": ran, "reason": "in-memory engine: every pair table in numpy"}
-    if out["name"] != ran:
-        out["reason"] += f"; the pair tables came out over the budget, so {ran} ran"
-        out["name"] = ran
-    return out
+def _strategy_report(red: Reduction) -> dict:
+    """The strategy that ran, with the measurements and reason that chose it."""
+    if red.plan is not None:
+        return red.plan.to_dict()
+    return {"name": red.strategy, "reason": "in-memory engine: every pair table in numpy"}
 
 
 def _inference_fields(inf: Inference) -> dict:

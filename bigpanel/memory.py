@@ -52,7 +52,6 @@ class MemoryBackend:
     """Runs the fit's row-level steps on numpy arrays held in memory."""
 
     moments_from = "demeaned rows"
-    plan = None
 
     def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
         self.spec = spec

@@ -185,6 +185,6 @@ def residual_ss(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> f
     """A pass over the rows: RSS = sum_i w_i (y~_i - x~_i'b)^2 (w = 1 unweighted), each residual
     formed before it is squared, so a nearly perfect fit keeps its digits (see :func:`bigpanel.solve.exact_rss`)."""
     _store_coef(eng, keep, beta)
-    fit = " + ".join(f"b.b{j} * e{j}" for j in keep)
-    sql = render("residual_ss", weight=spec.w, resid=f"(e0 - ({fit}))", carry=", w" if spec.weights else "")
+    resid, _ = _resid_parts(keep, weighted=False)  # the weight multiplies the square in the template
+    sql = render("residual_ss", weight=spec.w, resid=resid, carry=", w" if spec.weights else "")
     return float(eng.one("residual sum of squares, row by row", sql, raw=True)["rss"])

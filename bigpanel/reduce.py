@@ -1,11 +1,11 @@
 """Passes over the raw rows that reduce the panel to group-level statistics.
 
-Pass 1 (:func:`profile`) counts what the filter and the listwise deletion
-remove and takes each value column's mean as its shift. Pass 2
-(:func:`reduce_cells`) groups the sample once by every effect (one effect) or
-every pair of effects (two or more) and keeps, per cell, the row count and the
-sums of the shifted values. Dropping singletons repeats pass 2 only while a
-level is left with one row.
+:func:`start` counts what the filter and the listwise deletion remove and
+takes each value column's shift. :func:`reduce_cells` groups the sample once by
+every effect alone and keeps, per level, the row count and the sums of the
+shifted values (repeated only while singletons are peeled off); the level counts
+then choose the strategy (:func:`choose_strategy`), and the pair-table or
+row-codes pass fetches what that strategy iterates on.
 """
 
 from __future__ import annotations
@@ -53,9 +53,8 @@ class Reduction:
     cluster column j. ``counts[d]`` holds the weight (the row count when
     unweighted) of each level of effect d and ``rows[d]`` its rows, ``rhs[d]`` the weighted sums of
     each shifted value column per level (levels x columns), ``cross[(d, e)]``
-    the sparse table of rows per pair of levels of effects d < e (None when
-    the pair tables exceed the memory budget: the projections then run in the
-    engine, see :mod:`bigpanel.sweeps`), and
+    the sparse table of rows per pair of levels of effects d < e (pair-table
+    strategy only, else None), and
     ``sumsq`` each shifted column's sum of squares over the sample. ``strategy``
     names how the effects are partialled out (:func:`choose_strategy`); ``codes``
     holds the per-row level codes of the row-codes strategy.

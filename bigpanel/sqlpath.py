@@ -10,7 +10,7 @@ from .inference import ClusterTerm
 from .moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
                       store_effects)
 from .project import Projection, components, solve_effects
-from .reduce import IN_ENGINE, ONE_WAY, ROW_CODES, Plan, Reduction, Start, create_views, incomplete, reduce_cells, start
+from .reduce import IN_ENGINE, ONE_WAY, ROW_CODES, Reduction, Start, create_views, incomplete, reduce_cells, start
 from .rowcodes import Links, build_links, solve_codes
 from .rowcodes import components as code_components
 from .spec import Spec
@@ -29,7 +29,6 @@ class SqlBackend:
         self.spec = spec
         self.source_kind = source_kind
         self.red: Reduction | None = None
-        self.plan: Plan | None = None
         self.links: Links | None = None
         self.alpha: list[np.ndarray] = []
         self.demeaned_view = False
@@ -50,7 +49,6 @@ class SqlBackend:
 
     def reduce(self, drop_singletons: bool, budget: int, strategy: str | None = None) -> Reduction:
         self.red = reduce_cells(self.eng, self.spec, drop_singletons, budget, strategy)
-        self.plan = self.red.plan
         self._held(self.red)
         return self.red
 
