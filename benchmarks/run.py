@@ -270,7 +270,7 @@ def main() -> None:
         data_dir.mkdir(parents=True, exist_ok=True)
         large = [int(float(s)) for s in args.large.split(",") if s]
         result = run(sizes, data_dir, args.memory_limit, large, args.configs)
-    from bigpanel.files import write_text
+    from bigpanel.output.files import write_text
 
     write_text(args.out, json.dumps(result, indent=2))
     plot(result, Path(args.png))

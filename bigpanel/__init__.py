@@ -14,11 +14,11 @@ __all__ = ["fit", "FitResult", "BigPanelError", "__version__"]
 def __getattr__(name: str) -> Any:
     """``fit`` and ``FitResult`` are imported on first use, so that ``bigpanel --help`` loads no numerics."""
     if name == "fit":
-        from .estimate import fit
+        from .estimators.within import fit
 
         return fit
     if name == "FitResult":
-        from .results import FitResult
+        from .results.result import FitResult
 
         return FitResult
     raise AttributeError(f"module 'bigpanel' has no attribute {name!r}")

@@ -16,14 +16,14 @@ from rich import box
 from rich.table import Table
 
 from .errors import BigPanelError
-from .sqltext import ident, join, render
+from .sql.text import ident, join, render
 
 
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     """One aggregate pass over the model's columns: sums of values, minimum of keys."""
-    from .estimate import as_list
+    from .estimators.within import as_list
     from .engines.registry import open_session
-    from .spec import build_spec, parse_formula
+    from .model.spec import build_spec, parse_formula
 
     y, x = (parse_formula(model["formula"]) if model.get("formula") else (model["y"], as_list(model["x"])))
     eng, src = open_session(
@@ -46,7 +46,7 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
 
 
 def _fit(model: dict[str, Any], engine: str) -> dict[str, Any]:
-    from .estimate import fit
+    from .estimators.within import fit
 
     return fit(**model, engine=engine).to_dict()
 

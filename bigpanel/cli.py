@@ -24,7 +24,7 @@ from .command import interrupted
 from .engines.registry import ENGINES
 from .errors import BigPanelError
 from .options import ESTIMATORS, SINGLETONS, VARIANCE_TYPES
-from .tables import RENDERERS
+from .output.tables import RENDERERS
 
 # Only typer, rich and the light modules above load at start: the commands import the
 # numerics (numpy, scipy, duckdb, pyarrow, sqlglot) when they run, so --help and usage
@@ -142,14 +142,14 @@ def progress(quiet: bool) -> Iterator:
 
 def _effect_files(folder: Path, names: list[str]) -> dict[str, Path]:
     """One Parquet file per effect in ``folder``, names made unique (``a b`` and ``a_b`` differ)."""
-    from .files import unique_stems
+    from .output.files import unique_stems
 
     return {name: folder / f"{stem}.parquet" for name, stem in unique_stems(names, "effects_").items()}
 
 
 def _check_outputs(model: dict, files: dict[str, Optional[Path]], effects_dir: Optional[Path]) -> None:
     """Check every output path before the first pass (``-`` is stdout); see :func:`check_output`."""
-    from .files import check_output, input_files
+    from .output.files import check_output, input_files
 
     inputs = input_files(str(model["source"]))
     for role, path in files.items():
@@ -227,7 +227,7 @@ def model_command(fn: Callable[..., None]) -> Callable[..., None]:
         shared = {name: kwargs.pop(name) for name in _SHARED}
         with guarded(bool(shared.pop("debug"))):
             if shared["temp_dir"]:
-                from .files import check_output, input_files
+                from .output.files import check_output, input_files
 
                 check_output(shared["temp_dir"], "--temp-dir", input_files(str(shared["source"])), folder=True)
             shared["x"] = shared["x"] or None
@@ -279,9 +279,9 @@ def fit_command(
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
     --cluster store
     """
-    from .estimate import fit as run_fit
-    from .files import parquet_writer, text_writer, write_all
-    from .report import fit_renderable
+    from .estimators.within import fit as run_fit
+    from .output.files import parquet_writer, text_writer, write_all
+    from .results.report import fit_renderable
 
     _check_outputs(model, {"--save": save}, effects_out)
     with progress(quiet or json_out) as on_step:
@@ -329,9 +329,9 @@ def effects_command(
     row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
     Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
     """
-    from .estimate import fit as run_fit
-    from .files import parquet_writer, write_all
-    from .plots import plot_effects
+    from .estimators.within import fit as run_fit
+    from .output.files import parquet_writer, write_all
+    from .output.plots import plot_effects
 
     _check_outputs(model, {"--plot": plot}, out_dir)
     with progress(quiet) as on_step:
@@ -414,8 +414,8 @@ def describe_command(
     --plot periods.png
     """
     from .describe import describe_panel, describe_renderable
-    from .files import check_output, input_files
-    from .plots import plot_periods
+    from .output.files import check_output, input_files
+    from .output.plots import plot_periods
 
     with guarded(debug):
         if plot is not None:
@@ -463,9 +463,9 @@ def table_command(
 
     Example: bigpanel table one.json two.json three.json --to latex --out table.tex
     """
-    from .files import check_output, write_text
-    from .tables import build_table, load_fits
-    from .tables import render as render_table
+    from .output.files import check_output, write_text
+    from .output.tables import build_table, load_fits
+    from .output.tables import render as render_table
 
     with guarded(debug):
         if out_file is not None:
@@ -495,7 +495,7 @@ def demo_command(
     Example: bigpanel demo sales.parquet --rows 10000000
     """
     from .demo import write_demo
-    from .files import check_output
+    from .output.files import check_output
 
     with guarded(debug):
         check_output(out_path, "demo file", [])

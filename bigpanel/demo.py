@@ -7,9 +7,9 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .errors import BigPanelError
-from .files import atomic_path
+from .output.files import atomic_path
 from .engines.duckdb import connect
-from .sqltext import literal, render
+from .sql.text import literal, render
 
 TRUE_COEFFICIENTS = {"log_price": -1.8, "promo": 0.35}
 WEEKS = 104

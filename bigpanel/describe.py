@@ -26,8 +26,8 @@ from .engines.base import Engine
 from .errors import BigPanelError
 from .engines.registry import open_session
 from .engines.source import Source
-from .spec import NUMERIC, check_column
-from .sqltext import ident, join, render
+from .model.spec import NUMERIC, check_column
+from .sql.text import ident, join, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 _ORDERED_TIME = re.compile(

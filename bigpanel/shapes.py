@@ -15,9 +15,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from .errors import BigPanelError
-from .files import atomic_path
+from .output.files import atomic_path
 from .engines.duckdb import connect
-from .sqltext import literal, render
+from .sql.text import literal, render
 
 WEEKS = 150
 SUPPLIERS = 1_000

@@ -13,7 +13,7 @@ from rich.console import Console
 
 from bigpanel import BigPanelError
 from bigpanel.describe import coverage, describe_panel, describe_renderable
-from bigpanel.plots import plot_periods
+from bigpanel.output.plots import plot_periods
 
 
 def write(df: pd.DataFrame, tmp_path, name: str = "panel.parquet") -> str:

@@ -15,7 +15,7 @@ from typer.testing import CliRunner
 import bigpanel
 from bigpanel.cli import app
 from bigpanel.errors import BigPanelError
-from bigpanel.formula import parse_rhs, term_label
+from bigpanel.model.formula import parse_rhs, term_label
 from conftest import rel
 
 

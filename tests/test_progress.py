@@ -50,7 +50,7 @@ def test_period_effects_are_drawn_against_time(tmp_path):
 
     import pyarrow as pa
 
-    from bigpanel.plots import over_time, plot_effects
+    from bigpanel.output.plots import over_time, plot_effects
 
     def table(keys):
         return pa.table({"k": keys, "effect": [0.1 * i for i in range(len(keys))], "rows": [5] * len(keys)})

@@ -120,7 +120,7 @@ def test_grouping_id_matches_duckdbs_bitmask(grouped):
     # the reference is DuckDB's own GROUPING (SQL standard: first argument = most significant bit).
     import duckdb
 
-    from bigpanel.sqltext import grouping_id
+    from bigpanel.sql.text import grouping_id
 
     con = duckdb.connect()
     got = con.sql(f"SELECT GROUPING(a, b, c) FROM (VALUES (1, 2, 3)) AS t(a, b, c) "

@@ -14,7 +14,7 @@ from rich.table import Table
 
 import bigpanel
 from bigpanel import BigPanelError
-from bigpanel.tables import build_table, decimals_for, format_number, load_fits, render, to_csv, to_latex, to_markdown
+from bigpanel.output.tables import build_table, decimals_for, format_number, load_fits, render, to_csv, to_latex, to_markdown
 
 NUMBER = re.compile(r"-?(\d+)(?:\.(\d+))?")
 CELL = re.compile(r"(\()?([^()*]+)(\))?(\**)")

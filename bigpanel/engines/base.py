@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, ClassVar, Iterator
 
 from ..errors import BigPanelError
-from ..sqltext import ident, render, render_variant
+from ..sql.text import ident, render, render_variant
 
 STREAM_BATCH = 1 << 20  # rows per batch of a streamed result
 

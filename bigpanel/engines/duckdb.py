@@ -12,7 +12,7 @@ import pyarrow as pa
 
 from ..errors import BigPanelError
 from ..options import size_in_bytes
-from ..sqltext import ident, render
+from ..sql.text import ident, render
 from .base import STREAM_BATCH, Engine, first_line
 
 

@@ -15,7 +15,7 @@ from urllib.parse import unquote
 import pyarrow as pa
 
 from ..errors import BigPanelError
-from ..sqltext import ident, join
+from ..sql.text import ident, join
 from .base import Engine, first_line
 from .dialect import TranslatingEngine
 from .source import Source

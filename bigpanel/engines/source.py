@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import duckdb
 
 from ..errors import BigPanelError
-from ..sqltext import ident, literal, render
+from ..sql.text import ident, literal, render
 from .base import first_line
 
 PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")

@@ -58,15 +58,16 @@ import numpy as np
 import pyarrow as pa
 from scipy import stats
 
-from .dof import NO_EFFECTS
-from .engines.base import Engine
-from .errors import BigPanelError
-from .inference import ClusterTerm, Inference, infer
-from .moments import cross_products, meat_cluster, meat_hc
-from .reduce import Start, create_views, start
-from .solve import solve_slopes
-from .spec import Spec
-from .sqltext import join, render
+from ..numerics.dof import NO_EFFECTS
+from ..engines.base import Engine
+from ..errors import BigPanelError
+from ..numerics.inference import Inference, infer
+from ..passes.moments import ClusterTerm
+from ..passes.moments import cross_products, meat_cluster, meat_hc
+from ..passes.reduce import Start, create_views, start
+from ..numerics.solve import solve_slopes
+from ..model.spec import Spec
+from ..sql.text import join, render
 
 
 

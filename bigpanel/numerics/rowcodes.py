@@ -38,7 +38,7 @@ from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
 from .project import Projection, conjugate_gradients
-from .reduce import Reduction, RowCodes
+from ..passes.reduce import Reduction, RowCodes
 
 DENSE_PAIRS = 1 << 26  # a pair table of two small effects is counted densely up to this many cells
 EDGE_CHUNK = 1 << 24  # rows (or edges) handled at a time while counting pair tables and components

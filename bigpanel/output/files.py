@@ -15,7 +15,7 @@ from typing import Callable, Iterator
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from .errors import BigPanelError
+from ..errors import BigPanelError
 
 
 PENDING: set[Path] = set()  # temporary files being written, removed by the interrupt handler

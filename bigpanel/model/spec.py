@@ -16,12 +16,12 @@ import duckdb
 import pyarrow as pa
 from dataclasses import dataclass
 
-from .errors import BigPanelError
-from .engines.base import Engine, EngineError
+from ..errors import BigPanelError
+from ..engines.base import Engine, EngineError
 from .formula import Factor, Term, factor_sql, parse_outcome, parse_rhs, parse_term, sql_expression, term_label
-from .engines.source import Source
-from .options import VARIANCE_TYPES
-from .sqltext import ident, literal, render
+from ..engines.source import Source
+from ..options import VARIANCE_TYPES
+from ..sql.text import ident, literal, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe

@@ -15,19 +15,19 @@ from typing import Callable
 
 import numpy as np
 
-from .dof import count_absorbed
-from .effects import effect_tables, recover
-from .errors import BigPanelError
+from ..numerics.dof import count_absorbed
+from ..numerics.effects import effect_tables, recover
+from ..errors import BigPanelError
 from .family import hausman_test, mundlak, run_family
-from .inference import Inference, infer
-from .memory import MemoryBackend
-from .options import ESTIMATORS, SINGLETONS, size_in_bytes
-from .reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Reduction, incomplete
-from .results import FitResult
-from .solve import ILL_CONDITIONED, exact_rss, solve_slopes
-from .engines.registry import ENGINES, open_session
-from .sqlpath import SqlBackend
-from .spec import build_spec, check_where, parse_formula
+from ..numerics.inference import Inference, infer
+from .memory_backend import MemoryBackend
+from ..options import ESTIMATORS, SINGLETONS, size_in_bytes
+from ..passes.reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Reduction, incomplete
+from ..results.result import FitResult
+from ..numerics.solve import ILL_CONDITIONED, exact_rss, solve_slopes
+from ..engines.registry import ENGINES, open_session
+from .sql_backend import SqlBackend
+from ..model.spec import build_spec, check_where, parse_formula
 
 FEW_CLUSTERS = 50
 

@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 import pyarrow as pa
 
-from . import __version__
+from .. import __version__
 
 
 def _num(v: float) -> float | None:

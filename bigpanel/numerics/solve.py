@@ -20,7 +20,7 @@ from typing import Callable
 import numpy as np
 from scipy import linalg
 
-from .errors import BigPanelError
+from ..errors import BigPanelError
 
 ABSORBED_SHARE = 1e-18
 COLLINEAR_SHARE = 1e-12

@@ -16,15 +16,15 @@ import pyarrow as pa
 import pyarrow.compute as pc
 from scipy import sparse
 
-from .engines.base import Engine
-from .errors import BigPanelError
-from .inference import ClusterTerm
-from .moments import Moments, cluster_sets
-from .project import Projection, components, solve_effects
-from .reduce import (ONE_WAY, PAIR_TABLES, Reduction, Start, check_scale, create_views, no_complete_rows, source_rows,
+from ..engines.base import Engine
+from ..errors import BigPanelError
+from ..passes.moments import ClusterTerm
+from ..passes.moments import Moments, cluster_sets
+from ..numerics.project import Projection, components, solve_effects
+from ..passes.reduce import (ONE_WAY, PAIR_TABLES, Reduction, Start, check_scale, create_views, no_complete_rows, source_rows,
                      value_offsets)
-from .spec import Spec
-from .sqltext import render
+from ..model.spec import Spec
+from ..sql.text import render
 
 
 def _codes(columns: list[pa.ChunkedArray]) -> tuple[np.ndarray, pa.Table]:

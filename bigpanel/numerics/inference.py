@@ -27,17 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, stats
 
+from ..passes.moments import ClusterTerm
 from .dof import Absorbed
-from .errors import BigPanelError
-
-
-@dataclass(frozen=True)
-class ClusterTerm:
-    """Scores summed by one combination of cluster columns (indices into the cluster list)."""
-
-    columns: tuple[int, ...]
-    n_clusters: int
-    meat: np.ndarray
+from ..errors import BigPanelError
 
 
 @dataclass(frozen=True)

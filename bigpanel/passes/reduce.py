@@ -17,10 +17,10 @@ import numpy as np
 import pyarrow.compute as pc
 from scipy import sparse
 
-from .engines.base import Engine
-from .errors import BigPanelError
-from .spec import Spec
-from .sqltext import grouping_id, grouping_sets, ident, join, render
+from ..engines.base import Engine
+from ..errors import BigPanelError
+from ..model.spec import Spec
+from ..sql.text import grouping_id, grouping_sets, ident, join, render
 
 MAX_SINGLETON_ROUNDS = 200
 PAIR_TABLES = "pair tables"

@@ -25,7 +25,7 @@ import numpy as np
 from scipy.sparse.csgraph import connected_components
 from scipy import sparse
 
-from .reduce import Reduction
+from ..passes.reduce import Reduction
 
 
 @dataclass(frozen=True)

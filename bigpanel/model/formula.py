@@ -30,8 +30,8 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
-from .errors import BigPanelError
-from .sqltext import ident
+from ..errors import BigPanelError
+from ..sql.text import ident
 
 # each transform's SQL and the condition on its argument a under which it is defined; outside
 # it the value is NULL (the row is dropped and counted), the same on every engine (PostgreSQL

@@ -18,7 +18,7 @@ import numpy as np
 import pyarrow as pa
 
 from .project import Projection
-from .spec import Spec
+from ..model.spec import Spec
 
 
 def recover(

@@ -9,7 +9,7 @@ from rich.console import Console, Group
 from rich.table import Table
 from rich.text import Text
 
-from .results import FitResult
+from .result import FitResult
 
 VCOV_LABEL = {
     "classical": "classical (one error variance for every row)",

@@ -5,17 +5,17 @@ from __future__ import annotations
 import numpy as np
 import pyarrow as pa
 
-from .engines.base import Engine
-from .inference import ClusterTerm
-from .moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
+from ..engines.base import Engine
+from ..passes.moments import ClusterTerm
+from ..passes.moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
                       store_effects)
-from .project import Projection, components, solve_effects
-from .reduce import IN_ENGINE, ONE_WAY, ROW_CODES, Reduction, Start, create_views, incomplete, reduce_cells, start
-from .rowcodes import Links, build_links, solve_codes
-from .rowcodes import components as code_components
-from .spec import Spec
-from .sqltext import join, render
-from .sweeps import sweep_in_engine
+from ..numerics.project import Projection, components, solve_effects
+from ..passes.reduce import IN_ENGINE, ONE_WAY, ROW_CODES, Reduction, Start, create_views, incomplete, reduce_cells, start
+from ..numerics.rowcodes import Links, build_links, solve_codes
+from ..numerics.rowcodes import components as code_components
+from ..model.spec import Spec
+from ..sql.text import join, render
+from ..numerics.sweeps import sweep_in_engine
 
 ROUNDING = 1e-14  # relative rounding of a level co-moment: plain sums, then one cancelling subtraction
 TRUSTED = 1e-10  # largest predicted relative error of the cross-products' solution taken from co-moments

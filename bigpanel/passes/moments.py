@@ -19,11 +19,19 @@ import pyarrow as pa
 from dataclasses import dataclass
 from itertools import combinations
 
-from .engines.base import Engine
-from .inference import ClusterTerm
+from ..engines.base import Engine
 from .reduce import put_one_row
-from .spec import Spec
-from .sqltext import grouping_id, grouping_sets, join, render
+from ..model.spec import Spec
+from ..sql.text import grouping_id, grouping_sets, join, render
+
+
+@dataclass(frozen=True)
+class ClusterTerm:
+    """Scores summed by one combination of cluster columns (indices into the cluster list)."""
+
+    columns: tuple[int, ...]
+    n_clusters: int
+    meat: np.ndarray
 
 
 def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) -> None:

@@ -8,11 +8,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pyarrow as pa
 
-from .errors import BigPanelError
+from ..errors import BigPanelError
 from .files import atomic_path
 
 if TYPE_CHECKING:
-    from .describe import PanelDescription
+    from ..describe import PanelDescription
 
 
 def pyplot() -> Any:

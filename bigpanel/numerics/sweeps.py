@@ -15,11 +15,11 @@ from __future__ import annotations
 import numpy as np
 import pyarrow as pa
 
-from .engines.base import Engine
+from ..engines.base import Engine
 from .project import Projection
-from .reduce import Reduction
-from .spec import Spec
-from .sqltext import join, render
+from ..passes.reduce import Reduction
+from ..model.spec import Spec
+from ..sql.text import join, render
 
 
 def _fetch_alpha(eng: Engine, spec: Spec, d: int, m: int) -> np.ndarray:

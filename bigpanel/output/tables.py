@@ -23,7 +23,7 @@ from rich import box
 from rich.table import Table
 from rich.text import Text
 
-from .errors import BigPanelError
+from ..errors import BigPanelError
 
 STARS = ((0.01, "***"), (0.05, "**"), (0.1, "*"))
 VCOV_NAMES = {"classical": "classical", "hc1": "HC1", "cr1": "CR1"}

@@ -15,7 +15,7 @@ from pathlib import Path
 _SLOT = re.compile(r"\{\{(\w+)\}\}")
 
 
-SQL_DIR = Path(__file__).resolve().parent / "sql"
+SQL_DIR = Path(__file__).resolve().parent
 
 
 @lru_cache(maxsize=None)

@@ -1,0 +1,1 @@
+"""The estimators: each runs the passes and numerics and builds a result."""

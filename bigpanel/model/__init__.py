@@ -1,0 +1,1 @@
+"""The model a user asks for: the formula language and the checked spec."""

@@ -1,0 +1,1 @@
+"""The numerics in numpy: projections, slopes, degrees of freedom, inference, effects."""

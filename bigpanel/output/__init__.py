@@ -1,0 +1,1 @@
+"""What leaves the tool: model tables, plots and files written whole."""

@@ -1,0 +1,1 @@
+"""Passes over the rows inside the engine: the sample, the group-level reduction, the moments."""

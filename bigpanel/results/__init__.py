@@ -1,0 +1,1 @@
+"""The result of a fit, its JSON and its display."""

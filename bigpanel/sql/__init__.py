@@ -1,0 +1,1 @@
+"""SQL templates (NAME.sql, NAME.<dialect>.sql) and the helpers that fill them."""
