@@ -4,9 +4,8 @@ from __future__ import annotations
 
 from typing import Any
 
-__version__ = "0.1.0"
-
-from .errors import BigPanelError  # noqa: E402
+from .errors import BigPanelError
+from .version import __version__
 
 __all__ = ["fit", "FitResult", "BigPanelError", "__version__"]
 
@@ -14,7 +13,7 @@ __all__ = ["fit", "FitResult", "BigPanelError", "__version__"]
 def __getattr__(name: str) -> Any:
     """``fit`` and ``FitResult`` are imported on first use, so that ``bigpanel --help`` loads no numerics."""
     if name == "fit":
-        from .estimators.within import fit
+        from .api import fit
 
         return fit
     if name == "FitResult":

@@ -21,7 +21,7 @@ from .sql.text import ident, join, render
 
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     """One aggregate pass over the model's columns: sums of values, minimum of keys."""
-    from .estimators.within import as_list
+    from .options import as_list
     from .engines.registry import open_session
     from .model.spec import build_spec, parse_formula
 
@@ -46,14 +46,14 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
 
 
 def _fit(model: dict[str, Any], engine: str) -> dict[str, Any]:
-    from .estimators.within import fit
+    from .api import fit
 
     return fit(**model, engine=engine).to_dict()
 
 
 def _child(conn: Any, what: str, model: dict[str, Any], runner: Callable[[dict], dict] | None) -> None:
     try:
-        from . import estimate  # noqa: F401 - imported before the clock starts: a run times work, not imports
+        from . import api  # noqa: F401 - imported before the clock starts: a run times work, not imports
 
         start = time.perf_counter()
         out = runner(model) if runner is not None else _scan_floor(model) if what == "scan" else _fit(model, what)

@@ -188,12 +188,14 @@ def _model_options(
     table: Optional[str] = typer.Option(
         None, "--table", help=TABLE_HELP, metavar="NAME"
     ),
-    tol: float = typer.Option(
-        1e-8, "--tol", help="Tolerance on the relative change of the demeaned columns.", metavar="X"
+    tol: Optional[float] = typer.Option(
+        None, "--tol", help="Tolerance on the relative change of the demeaned columns (default 1e-8).", metavar="X"
     ),
-    max_iter: int = typer.Option(10_000, "--max-iter", help="Limit on accelerated projection iterations.", metavar="N"),
-    singletons: Singletons = typer.Option(
-        "drop", "--singletons", help="Rows alone in a level of some fixed effect: drop (default) or keep."
+    max_iter: Optional[int] = typer.Option(
+        None, "--max-iter", help="Limit on accelerated projection iterations (default 10000).", metavar="N"
+    ),
+    singletons: Optional[Singletons] = typer.Option(
+        None, "--singletons", help="Rows alone in a level of some fixed effect: drop (default) or keep."
     ),
     memory_limit: Optional[str] = typer.Option(
         None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB; beyond it DuckDB spills.", metavar="SIZE"
@@ -279,7 +281,7 @@ def fit_command(
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
     --cluster store
     """
-    from .estimators.within import fit as run_fit
+    from .api import fit as run_fit
     from .output.files import parquet_writer, text_writer, write_all
     from .results.report import fit_renderable
 
@@ -305,7 +307,7 @@ def fit_command(
                     f"min {s['min']:.4g}, max {s['max']:.4g} -> {files[name]}",
                     highlight=False, markup=False, emoji=False,
                 )
-    if not res.solver["converged"]:
+    if not res.solver.converged:
         raise typer.Exit(3)
 
 
@@ -329,7 +331,7 @@ def effects_command(
     row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
     Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
     """
-    from .estimators.within import fit as run_fit
+    from .api import fit as run_fit
     from .output.files import parquet_writer, write_all
     from .output.plots import plot_effects
 
@@ -413,9 +415,8 @@ def describe_command(
     Example: bigpanel describe sales.parquet --id store:product --time week --effects store --effects product
     --plot periods.png
     """
-    from .describe import describe_panel, describe_renderable
+    from .describe import describe_panel, describe_renderable, plot_periods
     from .output.files import check_output, input_files
-    from .output.plots import plot_periods
 
     with guarded(debug):
         if plot is not None:

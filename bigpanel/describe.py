@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import asdict, dataclass
+from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
@@ -27,6 +28,7 @@ from .errors import BigPanelError
 from .engines.registry import open_session
 from .engines.source import Source
 from .model.spec import NUMERIC, check_column
+from .output.plots import pyplot, save_figure
 from .sql.text import ident, join, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
@@ -376,3 +378,24 @@ def describe_renderable(desc: PanelDescription) -> Group:
     if not desc.warnings:
         parts.append(Text("none"))
     return Group(*parts)
+
+
+def plot_periods(desc: PanelDescription, path: str | Path) -> None:
+    """Coverage curve: the share of units seen in at least k distinct periods, for every k.
+
+    A balanced panel is a flat line at 100%; the drop shows where units start to thin out.
+    """
+    plt = pyplot()
+    periods = np.array([k for k, _ in desc.period_histogram])
+    units = np.array([n for _, n in desc.period_histogram])
+    ks = np.arange(1, desc.periods + 1)
+    at_least = np.array([units[periods >= k].sum() for k in ks]) / desc.units * 100
+    fig, ax = plt.subplots(figsize=(7, 4), layout="constrained")
+    ax.step(ks, at_least, where="mid", color="#3b7d8c")
+    ax.fill_between(ks, at_least, step="mid", color="#3b7d8c", alpha=0.15)
+    ax.set_ylim(0, 105)
+    ax.xaxis.get_major_locator().set_params(integer=True)
+    ax.set_xlabel(f"seen in at least this many of the {desc.periods:,} periods ({desc.time})")
+    ax.set_ylabel(f"share of the {desc.units:,} units ({desc.id}), %")
+    ax.set_title("coverage of the panel by its units")
+    save_figure(fig, path)

@@ -2,11 +2,20 @@
 (the CLI lists them in ``--help`` without loading numpy, scipy or duckdb)."""
 
 import re
+from collections.abc import Sequence
 
 ESTIMATORS = ("within", "between", "first-difference", "random-effects")
-# the user's names of the variance estimators and the internal codes the SQL steps test for
-VARIANCE_TYPES = {"classical": "iid", "hc1": "hc1", "cr1": "cluster"}
+VARIANCE_TYPES = ("classical", "hc1", "cr1")
 SINGLETONS = ("drop", "keep")
+
+
+def as_list(value: str | Sequence[str] | None) -> list[str]:
+    """A column name or names as a list (None: empty)."""
+    if value is None:
+        return []
+    if isinstance(value, str):
+        return [value]
+    return list(value)
 
 _SIZE = re.compile(r"^\s*([0-9.]+)\s*([KMGT]?)(I?B)?\s*$", re.IGNORECASE)
 

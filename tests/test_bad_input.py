@@ -28,8 +28,8 @@ def test_null_nan_inf_dropped_listwise_and_counted(tmp_path):
                       "unit": unit, "sector": sector})
     pq.write_table(table, tmp_path / "bad.parquet")
     res = bigpanel.fit(str(tmp_path / "bad.parquet"), "y ~ x1 + x2", fe="unit", cluster="sector")
-    assert res.rows["incomplete"] == {"y": 3, "x1": 3, "unit": 1, "sector": 2}
-    assert res.rows["dropped_incomplete"] == 9
+    assert res.rows.incomplete == {"y": 3, "x1": 3, "unit": 1, "sector": 2}
+    assert res.rows.dropped_incomplete == 9
     keep = ~np.isin(np.arange(len(df)), range(9))
     ref = lsdv(df[keep], "y", ["x1", "x2"], ["unit"], cov_type="cluster", groups=df.loc[keep, "sector"])
     assert rel(res.coef, ref.params[:2]) < 1e-8

@@ -12,8 +12,7 @@ import pytest
 from rich.console import Console
 
 from bigpanel import BigPanelError
-from bigpanel.describe import coverage, describe_panel, describe_renderable
-from bigpanel.output.plots import plot_periods
+from bigpanel.describe import coverage, describe_panel, describe_renderable, plot_periods
 
 
 def write(df: pd.DataFrame, tmp_path, name: str = "panel.parquet") -> str:

@@ -68,6 +68,6 @@ def test_duckdb_and_memory_report_their_names(to_parquet):
     df = pd.DataFrame({"a": rng.integers(0, 6, 80), "x": rng.normal(size=80)})
     df["y"] = 2 * df["x"] + rng.normal(size=80)
     path = to_parquet(df)
-    assert bigpanel.fit(path, "y ~ x", fe="a").solver["engine"] == "duckdb"
-    assert bigpanel.fit(path, "y ~ x", fe="a", engine="memory").solver["engine"] == "memory"
-    assert bigpanel.fit(path, "y ~ x", fe="a", estimator="between").solver["engine"] == "duckdb"
+    assert bigpanel.fit(path, "y ~ x", fe="a").solver.engine == "duckdb"
+    assert bigpanel.fit(path, "y ~ x", fe="a", engine="memory").solver.engine == "memory"
+    assert bigpanel.fit(path, "y ~ x", fe="a", estimator="between").solver.engine == "duckdb"

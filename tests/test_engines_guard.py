@@ -51,7 +51,7 @@ def test_nan_in_a_float_effect_on_postgres(pg_url):
     res = bigpanel.fit(pg_url, "y ~ x", fe="unit", table="nankey")
     keep = np.isfinite(unit)
     ref = lsdv(pd.DataFrame({"unit": unit[keep], "x": x[keep], "y": y[keep]}), "y", ["x"], ["unit"])
-    assert res.rows["incomplete"] == {"unit": 2}
+    assert res.rows.incomplete == {"unit": 2}
     assert rel(res.coef, ref.params[:1]) < 1e-8
 
 

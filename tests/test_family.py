@@ -76,7 +76,7 @@ def test_random_effects_grunfeld(grunfeld):
     assert h["statistic"] == pytest.approx(2.33, abs=6e-3) and h["df"] == 2 and h["p_value"] > 0.3
     # Passes over the rows, the within fit's included: its reduction (whose level co-moments give
     # its cross-products), then the unit means, the GLS cross-products and the Mundlak regression's.
-    assert res.solver["raw_passes"] == 4
+    assert res.solver.raw_passes == 4
 
 
 def test_random_effects_unbalanced_matches_formula(tmp_path):

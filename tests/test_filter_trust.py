@@ -59,7 +59,7 @@ def test_allowed_filter_matches_pandas_selection(panel):
     res = bigpanel.fit(path, "y ~ x1 + x2", fe="unit", where=where)
     keep = (df["x1"].abs() < 2) & (df["name"] == "north") & df["period"].between(1, 10) & ~df["unit"].isin([3, 4])
     ref = lsdv(df[keep], "y", ["x1", "x2"], ["unit"])
-    assert res.rows["after_filter"] == int(keep.sum())
+    assert res.rows.after_filter == int(keep.sum())
     assert rel(res.coef, ref.params[:2]) < 1e-8
 
 
@@ -94,9 +94,9 @@ def test_volatile_filter_draws_one_sample(tmp_path, engine):
     df.to_parquet(path)
     res = bigpanel.fit(str(path), "y ~ x1", fe="unit", where="random() < 0.5", engine=engine)
     rows = res.rows
-    assert rows["dropped_incomplete"] == 0 and rows["dropped_singletons"] >= 0
-    assert rows["used"] + rows["dropped_singletons"] == rows["after_filter"] < rows["source"]
-    assert res.solver.get("filter") == "materialised once (volatile)"
+    assert rows.dropped_incomplete == 0 and rows.dropped_singletons >= 0
+    assert rows.used + rows.dropped_singletons == rows.after_filter < rows.source
+    assert res.solver.filter == "materialised once (volatile)"
 
 
 def test_negative_max_iter_is_refused(panel):

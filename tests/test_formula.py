@@ -83,7 +83,7 @@ def test_formula_terms_match_statsmodels_formula_ols(panel, ours, theirs, names)
 def test_dropped_rows_counted_under_the_term(panel):
     df, path = panel
     res = bigpanel.fit(path, "y ~ log(x1) + x2", fe="unit")
-    assert res.rows["incomplete"] == {"log(x1)": 2}
+    assert res.rows.incomplete == {"log(x1)": 2}
 
 
 def test_categorical_levels_reported(panel):
@@ -101,7 +101,7 @@ def test_missing_category_drops_the_row(panel, tmp_path):
     path = tmp_path / "na.parquet"
     d.to_parquet(path)
     res = bigpanel.fit(str(path), "y ~ x2 + levels(region)", fe="unit")
-    assert res.nobs == len(d) - 3 and res.rows["incomplete"]["region[north]"] == 3
+    assert res.nobs == len(d) - 3 and res.rows.incomplete["region[north]"] == 3
     ref = _reference(d.dropna(subset=["region"]), "y ~ x2 + C(region)")  # statsmodels formula OLS, unit dummies
     assert abs(res.params["x2"] - ref.params["x2"]) < 1e-8 * abs(ref.params["x2"])
 
@@ -167,7 +167,7 @@ def test_undefined_transforms_are_dropped_and_counted(panel):
     df, path = panel
     res = bigpanel.fit(path, "y ~ sqrt(x2) + z^-1 + exp(z)", fe="unit")
     neg = int((df.x2 < 0).sum())
-    assert res.rows["incomplete"]["sqrt(x2)"] == neg
+    assert res.rows.incomplete["sqrt(x2)"] == neg
     sample = df[df.x2 >= 0]
     ref = _reference(sample, "y ~ np.sqrt(x2) + I(z ** -1) + np.exp(z)")  # statsmodels formula OLS, unit dummies
     assert rel([res.params["sqrt(x2)"], res.params["z^-1"], res.params["exp(z)"]],

@@ -23,7 +23,7 @@ def test_memory_engine_matches_lsdv(to_parquet, fe, vcov):
     assert res.nobs == len(sample)
     assert rel(res.coef, ref.params[:2]) < 1e-6
     assert rel(res.std_error, ref.bse[:2]) < 1e-6
-    assert res.solver["engine"] == "memory"
+    assert res.solver.engine == "memory"
 
 
 def test_memory_and_sql_agree_on_everything(to_parquet):
@@ -45,7 +45,7 @@ def test_memory_and_sql_agree_on_everything(to_parquet):
     # The strategy chosen here (row codes: unit x period pairs do not compress) solves another
     # way; its slopes and the row sums of its effects (the identified part) agree.
     c = bigpanel.fit(path, **kw, tol=1e-12)
-    assert c.solver["strategy"]["name"] == "row codes"
+    assert c.solver.strategy["name"] == "row codes"
     assert rel(c.coef, b.coef) < 1e-9 and rel(c.std_error, b.std_error) < 1e-9
     sample = df[np.isfinite(df["x1"])]
     assert np.max(np.abs(_effect_sums(c, sample) - _effect_sums(b, sample))) < 1e-8

@@ -36,8 +36,8 @@ def test_two_way_clustering_matches_numpy(to_parquet, engine, fe):
     coef, se = cgm_reference(df, "y", ["x1", "x2"], fe, ["sector", "office"])
     assert rel(res.coef, coef) < 1e-8
     assert rel(res.std_error, se) < 1e-8
-    assert res.cluster_counts == {"sector": df["sector"].nunique(), "office": df["office"].nunique()}
-    assert res.df == min(res.cluster_counts.values()) - 1
+    assert res.inference.clusters == {"sector": df["sector"].nunique(), "office": df["office"].nunique()}
+    assert res.inference.df == min(res.inference.clusters.values()) - 1
 
 
 def test_one_cluster_column_is_the_plain_cr1(to_parquet):
@@ -57,4 +57,4 @@ def test_eigenvalue_fix_is_reported(to_parquet):
     df["b"] = (df["unit"] + df["period"]) % 3
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2", "x3"], fe="period", cluster=["a", "b"])
     assert np.linalg.eigvalsh(res.vcov).min() >= -1e-15
-    assert res.psd_fixed == any("eigenvalues were set to zero" in w for w in res.warnings)
+    assert res.inference.psd_fixed == any("eigenvalues were set to zero" in w for w in res.warnings)

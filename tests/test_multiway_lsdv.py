@@ -41,7 +41,7 @@ def test_multiway_matches_lsdv(to_parquet, fe, vcov):
     df = mobility_panel(seed=3)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, variance=vcov, cluster="office" if vcov == "cr1" else None)
     sample = drop_singletons(df, fe)
-    assert res.rows["dropped_singletons"] == len(df) - len(sample) > 0
+    assert res.rows.dropped_singletons == len(df) - len(sample) > 0
     assert res.nobs == len(sample)
     assert res.components == 2
     cov = {"classical": "nonrobust", "hc1": "HC1", "cr1": "cluster"}[vcov]
@@ -49,7 +49,7 @@ def test_multiway_matches_lsdv(to_parquet, fe, vcov):
     assert res.absorbed == dummy_block(sample, fe).shape[1]
     assert rel(res.coef, ref.params[:2]) < 1e-6
     assert rel(res.std_error, ref.bse[:2]) < 1e-6
-    assert res.solver["converged"]
+    assert res.solver.converged
 
 
 def test_keep_singletons(to_parquet):
@@ -106,8 +106,8 @@ def test_chain_graph_converges(to_parquet):
     df["y"] = 1.5 * df["x1"] + 0.5 * df["x2"] + df["firm"] / 10 + rng.normal(size=len(df))
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["worker", "firm"])
     ref = lsdv(df, "y", X, ["worker", "firm"])
-    assert res.solver["converged"]
-    assert res.solver["iterations"] < 1000
+    assert res.solver.converged
+    assert res.solver.iterations < 1000
     assert rel(res.coef, ref.params[:2]) < 1e-6
     assert rel(res.std_error, ref.bse[:2]) < 1e-6
 
@@ -122,8 +122,8 @@ def test_in_engine_sweeps_when_pairs_exceed_the_budget(to_parquet, fe):
     path = to_parquet(df)
     slow = bigpanel.fit(path, y="y", x=X, fe=fe, cell_budget=1, variance="hc1", tol=1e-12)
     fast = bigpanel.fit(path, y="y", x=X, fe=fe, variance="hc1")
-    assert slow.solver["path"].startswith("in-engine") and slow.solver["converged"]
-    assert slow.solver["raw_passes"] > fast.solver["raw_passes"]
+    assert slow.solver.path.startswith("in-engine") and slow.solver.converged
+    assert slow.solver.raw_passes > fast.solver.raw_passes
     sample = drop_singletons(df, fe)
     ref = lsdv(sample, "y", X, fe, cov_type="HC1")
     assert rel(slow.coef, ref.params[:2]) < 1e-6 and rel(slow.std_error, ref.bse[:2]) < 1e-6

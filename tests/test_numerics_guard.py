@@ -24,8 +24,8 @@ def test_nan_and_inf_in_float_effect_and_cluster_columns_drop_the_row(tmp_path, 
     pq.write_table(pa.table({c: pa.array(df[c].to_numpy()) for c in df.columns}), tmp_path / "p.parquet")
     res = bigpanel.fit(str(tmp_path / "p.parquet"), "y ~ x1 + x2", fe="unit_f", cluster="sector_f", engine=engine)
     keep = np.isfinite(df["unit_f"]) & np.isfinite(df["sector_f"])
-    assert res.rows["incomplete"] == {"unit_f": 3, "sector_f": 2}
-    assert res.rows["dropped_incomplete"] == 5
+    assert res.rows.incomplete == {"unit_f": 3, "sector_f": 2}
+    assert res.rows.dropped_incomplete == 5
     ref = lsdv(df[keep], "y", ["x1", "x2"], ["unit"], cov_type="cluster", groups=df.loc[keep, "sector"])
     assert rel(res.coef, ref.params[:2]) < 1e-8
     assert rel(res.std_error, ref.bse[:2]) < 1e-6
@@ -109,9 +109,9 @@ def test_nearly_perfect_fit_keeps_its_residual_sum_of_squares(tmp_path, engine, 
     b = np.linalg.lstsq(xd.to_numpy()[:, None], yd.to_numpy(), rcond=None)[0]
     rss = float(np.sum((yd.to_numpy() - xd.to_numpy() * b[0]) ** 2))
     se = np.sqrt(rss / (len(df) - 1 - 40) / float(xd @ xd))
-    assert res.rss == pytest.approx(rss, rel=1e-6)
+    assert res.fit.rss == pytest.approx(rss, rel=1e-6)
     assert res.std_error[0] == pytest.approx(se, rel=1e-6)
-    assert res.solver["rss_from"] == "residual pass"
+    assert res.solver.rss_from == "residual pass"
 
 
 def test_wide_decimal_keeps_its_fraction(tmp_path):

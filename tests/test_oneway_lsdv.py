@@ -25,9 +25,9 @@ def test_slopes_and_errors_match_lsdv(panel, to_parquet, vcov):
     assert rel(res.std_error, ref.bse[:3]) < 1e-8
     if vcov == "classical":
         assert rel(res.p, ref.pvalues[:3]) < 1e-6
-        assert res.df_resid == int(ref.df_resid)
+        assert res.fit.df_resid == int(ref.df_resid)
         # Overall R-squared of the full model equals the LSDV R-squared (common practice).
-        assert abs(res.r2_full_model - ref.rsquared) < 1e-10
+        assert abs(res.fit.r2_full_model - ref.rsquared) < 1e-10
 
 
 def test_cluster_not_nested(panel, to_parquet):
@@ -36,11 +36,11 @@ def test_cluster_not_nested(panel, to_parquet):
     path = to_parquet(panel)
     res = bigpanel.fit(path, y="y", x=X, fe="unit", cluster="sector")
     ref = lsdv(panel, "y", X, ["unit"], cov_type="cluster", groups=panel["sector"])
-    assert res.fe[0]["nested_in_cluster"] is False
+    assert res.fe[0].nested_in_cluster is False
     assert rel(res.coef, ref.params[:3]) < 1e-8
     assert rel(res.std_error, ref.bse[:3]) < 1e-8
-    assert res.n_clusters == panel["sector"].nunique()
-    assert res.df == res.n_clusters - 1
+    assert min(res.inference.clusters.values()) == panel["sector"].nunique()
+    assert res.inference.df == min(res.inference.clusters.values()) - 1
 
 
 @pytest.mark.parametrize("cluster", ["unit", "region"])
@@ -53,7 +53,7 @@ def test_cluster_nested(panel, to_parquet, cluster):
     ref = lsdv(panel, "y", X, ["unit"], cov_type="cluster", groups=panel[cluster])
     n, k, g = len(panel), 3, panel["unit"].nunique()
     adjust = np.sqrt((n - k - g) / (n - k - 1))
-    assert res.fe[0]["nested_in_cluster"] is True
+    assert res.fe[0].nested_in_cluster is True
     assert rel(res.std_error, ref.bse[:3] * adjust) < 1e-8
 
 

@@ -9,7 +9,7 @@ import pyarrow.parquet as pq
 import pytest
 from typer.testing import CliRunner
 
-import bigpanel.estimators.within
+import bigpanel.api
 from bigpanel.cli import app
 from conftest import lsdv, make_panel, rel
 
@@ -31,7 +31,7 @@ def no_fit(monkeypatch):
     """Fail the test if a fit starts: the path checks must come before the first pass."""
     def refuse(*args, **kwargs):
         raise AssertionError("the fit ran before the output paths were checked")
-    monkeypatch.setattr(bigpanel.estimators.within, "fit", refuse)  # the CLI imports it when a command runs
+    monkeypatch.setattr(bigpanel.api, "fit", refuse)  # the CLI imports it when a command runs
 
 
 def fit(*args):

@@ -12,7 +12,7 @@ def test_every_pass_over_the_rows_is_announced_and_numbered(to_parquet):
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=["unit", "period"], cluster="unit",
                        on_step=heard.append)
     passes = [label for label in heard if label.startswith("pass ")]
-    assert len(passes) == res.solver["raw_passes"] == 3
+    assert len(passes) == res.solver.raw_passes == 3
     assert [p.split(":")[0] for p in passes] == ["pass 1", "pass 2", "pass 3"]
 
 

@@ -49,7 +49,7 @@ def test_where_filter_equals_subsample(panel, tmp_path):
     sub = drop_singletons(sub, ["unit"])
     ref = lsdv(sub, "y", ["x1", "x2"], ["unit"])
     assert res.nobs == len(sub)
-    assert res.rows["after_filter"] < res.rows["source"] == len(panel)
+    assert res.rows.after_filter < res.rows.source == len(panel)
     assert rel(res.coef, ref.params[:2]) < 1e-8
 
 

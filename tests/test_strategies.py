@@ -63,7 +63,7 @@ def test_strategies_match_lsdv_on_a_unit_period_panel(to_parquet, strategy, fe, 
     cluster = "unit" if vcov == "cr1" else None
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=fe, variance=vcov, cluster=cluster, strategy=strategy, tol=1e-12)
     coef, se = sm_ref(df, fe, vcov, cluster)
-    assert res.solver["strategy"]["name"] == strategy and res.solver["converged"]
+    assert res.solver.strategy["name"] == strategy and res.solver.converged
     assert res.nobs == len(df) and res.absorbed == dummy_block(df, fe).shape[1]
     assert rel(res.coef, coef) < 1e-8
     assert rel(res.std_error, se) < 1e-8
@@ -103,16 +103,16 @@ def test_the_panel_chooses_its_strategy(to_parquet):
     # would not compress and the row codes run; with 40 rows per cell they do compress.
     df = unit_period_panel(seed=4)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"])
-    strategy = res.solver["strategy"]
+    strategy = res.solver.strategy
     assert strategy["name"] == "row codes" and "unit x period" in strategy["reason"]
     assert strategy["levels"] == {"unit": 40, "period": 9} and strategy["pairs_at_most"] == {"unit x period": 360}
     many = pd.concat([df] * 40, ignore_index=True)
     many["x1"] += np.random.default_rng(0).normal(size=len(many))
     res = bigpanel.fit(to_parquet(many), y="y", x=X, fe=["unit", "period"])
-    assert res.solver["strategy"]["name"] == "pair tables"
+    assert res.solver.strategy["name"] == "pair tables"
     coef = lsdv(many, "y", X, ["unit", "period"]).params[:2]
     assert rel(res.coef, coef) < 1e-8
-    assert res.solver["raw_passes"] == 3  # per-level statistics, pairs of levels, cross-products
+    assert res.solver.raw_passes == 3  # per-level statistics, pairs of levels, cross-products
 
 
 def test_nearly_perfect_fit_keeps_its_digits(to_parquet):
@@ -121,7 +121,7 @@ def test_nearly_perfect_fit_keeps_its_digits(to_parquet):
     df = unit_period_panel(seed=6)
     df["y"] = 1e3 * df["x1"] + 1e3 * df["x2"] + df["unit"] + 1e-6 * np.random.default_rng(1).normal(size=len(df))
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"], tol=1e-12)
-    assert res.solver["rss_from"] == "residual pass"
+    assert res.solver.rss_from == "residual pass"
     ref = lsdv(df, "y", X, ["unit", "period"])
     coef, se = ref.params[:2], ref.bse[:2]
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-6
@@ -133,8 +133,8 @@ def test_one_way_in_one_pass(to_parquet, cluster):
     # co-moments give everything, one pass over the rows. Reference: statsmodels LSDV.
     df = unit_period_panel(seed=7)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe="unit", cluster=cluster)
-    assert res.solver["raw_passes"] == 1
-    assert res.solver["cross_products_from"].startswith("level co-moments")
+    assert res.solver.raw_passes == 1
+    assert res.solver.cross_products_from.startswith("level co-moments")
     coef, se = sm_ref(df, ["unit"], "cr1" if cluster else "classical", cluster)
     assert rel(res.coef, coef) < 1e-10 and rel(res.std_error, se) < 1e-10
 
@@ -143,7 +143,7 @@ def test_one_way_clustered_across_levels_reads_the_rows_again(to_parquet):
     # A cluster that cuts across the units needs per-cluster sums of rows: a second pass.
     df = unit_period_panel(seed=8)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe="unit", cluster="period")
-    assert res.solver["raw_passes"] == 2 and res.solver["cross_products_from"] == "demeaned rows"
+    assert res.solver.raw_passes == 2 and res.solver.cross_products_from == "demeaned rows"
     coef, se = sm_ref(df, ["unit"], "cr1", "period")
     assert rel(res.coef, coef) < 1e-10 and rel(res.std_error, se) < 1e-10
 
@@ -165,7 +165,7 @@ def test_chain_mobility_graph_converges(to_parquet, strategy):
     # the worker and firm dummies), then the slopes from the residualised columns.
     df = chain_panel()
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["worker", "firm"], strategy=strategy, tol=1e-8)
-    assert res.solver["converged"] and 0 < res.solver["iterations"] < 2000
+    assert res.solver.converged and 0 < res.solver.iterations < 2000
     n = len(df)
     dummies = sparse.hstack([sparse.csr_matrix((np.ones(n), (np.arange(n), df[c].to_numpy()))) for c in ("worker", "firm")])
     resid = {}
@@ -180,7 +180,7 @@ def test_the_solver_reports_its_budget_and_allocation(to_parquet):
     df = unit_period_panel(seed=9)
     res = bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"])
     s = res.solver
-    assert s["python_budget_bytes"] > 0 and 0 < s["largest_python_allocation_bytes"] < s["python_budget_bytes"]
+    assert s.python_budget_bytes > 0 and 0 < s.largest_python_allocation_bytes < s.python_budget_bytes
     with pytest.raises(bigpanel.BigPanelError, match="unknown strategy"):
         bigpanel.fit(to_parquet(df), y="y", x=X, fe=["unit", "period"], strategy="fastest")
 

@@ -26,11 +26,11 @@ def test_weighted_sigma_does_not_depend_on_the_weights_scale(to_parquet, engine)
     one = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe=fe, weights="w", engine=engine, tol=1e-12)
     big = bigpanel.fit(to_parquet(df.assign(w=df["w"] * 100)), y="y", x=["x1", "x2"], fe=fe, weights="w",
                        engine=engine, tol=1e-12)
-    assert abs(one.sigma / big.sigma - 1) < 1e-9
+    assert abs(one.inference.sigma / big.inference.sigma - 1) < 1e-9
     assert rel(one.std_error, big.std_error) < 1e-9
     # Reference: statsmodels WLS with dummies; its scale sum w u^2 / df is divided by the mean weight
     ref = _wls_with_dummies(df, fe)
-    assert abs(one.sigma / np.sqrt(ref.scale / df["w"].mean()) - 1) < 1e-7
+    assert abs(one.inference.sigma / np.sqrt(ref.scale / df["w"].mean()) - 1) < 1e-7
 
 
 @pytest.mark.parametrize("engine", ["duckdb", "memory"])
@@ -41,8 +41,8 @@ def test_zero_and_negative_weights_are_counted_apart(to_parquet, engine):
     df.loc[df.index[3:5], "w"] = -1.0
     df.loc[df.index[5:9], "w"] = np.nan
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", weights="w", engine=engine)
-    assert res.rows["incomplete"] == {"w": 4, "w zero or negative": 5}
-    assert res.rows["dropped_incomplete"] == 9
+    assert res.rows.incomplete == {"w": 4, "w zero or negative": 5}
+    assert res.rows.dropped_incomplete == 9
     ref = _wls_with_dummies(df[df["w"] > 0], ["unit"])  # statsmodels WLS on the usable rows
     assert rel(res.coef, ref.params[:2]) < 1e-8
 

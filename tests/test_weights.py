@@ -40,7 +40,7 @@ def test_nonpositive_weights_are_dropped_and_counted(to_parquet):
     df["w"] = 1.0
     df.loc[df.index[:4], "w"] = [0.0, -1.0, np.nan, np.inf]
     res = bigpanel.fit(to_parquet(df), y="y", x=["x1"], fe="unit", weights="w")
-    assert res.rows["incomplete"] == {"w": 2, "w zero or negative": 2}  # missing and non-positive apart
+    assert res.rows.incomplete == {"w": 2, "w zero or negative": 2}  # missing and non-positive apart
     plain = bigpanel.fit(to_parquet(df.iloc[4:]), y="y", x=["x1"], fe="unit")
     assert rel(res.coef, plain.coef) < 1e-10
 
@@ -189,4 +189,4 @@ def test_weighted_sigma_does_not_depend_on_the_weights_scale(to_parquet, estimat
     one = bigpanel.fit(to_parquet(df), **kw, weights="w")
     big = bigpanel.fit(to_parquet(df.assign(w=100 * df["w"])), **kw, weights="w")
     assert rel(one.coef, big.coef) < 1e-9 and rel(one.std_error, big.std_error) < 1e-9
-    assert abs(one.sigma / big.sigma - 1) < 1e-9
+    assert abs(one.inference.sigma / big.inference.sigma - 1) < 1e-9

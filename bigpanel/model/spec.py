@@ -76,7 +76,7 @@ class Spec:
     x: tuple[str, ...]
     fe: tuple[tuple[str, ...], ...]
     cluster: tuple[str, ...]
-    vcov: str
+    variance: str  # classical, hc1 or cr1
     where: str | None
     time: str | None = None
     weights: str | None = None
@@ -101,11 +101,6 @@ class Spec:
     def categorical_levels(self) -> list[dict[str, object]]:
         """Each ``levels()`` term: its level count and the base level left out (JSON ``categorical``)."""
         return [{"term": term, "levels": n, "base": base} for term, n, base in self.categorical]
-
-    @property
-    def variance(self) -> str:
-        """The user's name of the variance estimator: ``classical``, ``hc1`` or ``cr1``."""
-        return next(name for name, code in VARIANCE_TYPES.items() if code == self.vcov)
 
     @property
     def w(self) -> str:
@@ -312,7 +307,7 @@ def build_spec(
     keys = [c for cols in effects for c in cols] + cluster
     plain = [c for c in [y, *regressors] if c in source.columns]
     wide = {c: wide_scale(source.columns[c]) for c in plain if wide_scale(source.columns[c]) is not None}
-    return Spec(y=y, x=tuple(regressors), fe=effects, cluster=tuple(cluster), vcov=VARIANCE_TYPES[variance],
+    return Spec(y=y, x=tuple(regressors), fe=effects, cluster=tuple(cluster), variance=variance,
                 where=where, time=time, weights=weights, y_sql=factor_sql(outcome[0], source.columns),
                 x_sql=tuple(regressors.values()), categorical=tuple(categorical.values()),
                 float_keys=tuple(c for c in keys if source.columns[c] in _FLOATS),

@@ -3,16 +3,13 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
 
 from ..errors import BigPanelError
 from .files import atomic_path
-
-if TYPE_CHECKING:
-    from ..describe import PanelDescription
 
 
 def pyplot() -> Any:
@@ -70,25 +67,4 @@ def plot_effects(effects: dict[str, pa.Table], path: str | Path, period: str | N
         ax.xaxis.set_major_locator(MaxNLocator(nbins=6))
         ax.set_title(f"{name}: {len(values):,} levels", fontsize=10)
     fig.suptitle("estimated fixed effects", fontsize=11)
-    save_figure(fig, path)
-
-
-def plot_periods(desc: PanelDescription, path: str | Path) -> None:
-    """Coverage curve: the share of units seen in at least k distinct periods, for every k.
-
-    A balanced panel is a flat line at 100%; the drop shows where units start to thin out.
-    """
-    plt = pyplot()
-    periods = np.array([k for k, _ in desc.period_histogram])
-    units = np.array([n for _, n in desc.period_histogram])
-    ks = np.arange(1, desc.periods + 1)
-    at_least = np.array([units[periods >= k].sum() for k in ks]) / desc.units * 100
-    fig, ax = plt.subplots(figsize=(7, 4), layout="constrained")
-    ax.step(ks, at_least, where="mid", color="#3b7d8c")
-    ax.fill_between(ks, at_least, step="mid", color="#3b7d8c", alpha=0.15)
-    ax.set_ylim(0, 105)
-    ax.xaxis.get_major_locator().set_params(integer=True)
-    ax.set_xlabel(f"seen in at least this many of the {desc.periods:,} periods ({desc.time})")
-    ax.set_ylabel(f"share of the {desc.units:,} units ({desc.id}), %")
-    ax.set_title("coverage of the panel by its units")
     save_figure(fig, path)

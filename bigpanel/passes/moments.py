@@ -79,7 +79,7 @@ def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
     over the clusters of the first cluster column.
     """
     sums = [f"fsum({spec.w}e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
-    if spec.vcov == "cluster":
+    if spec.variance == "cr1":
         names = spec.cluster_aliases
         groups = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
         eng.execute("demeaned cross-products per cluster",
@@ -114,7 +114,7 @@ def level_cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
     pairs = [(i, j) for i in range(m) for j in range(i, m)]
     keys = ", ".join(spec.key_aliases(0))
     gid = {"gid": 0}  # one effect: the cells hold one grouping set
-    if spec.vcov != "cluster":
+    if spec.variance != "cr1":
         sums = join([f"fsum({_comoment(i, j)}) AS q_{i}_{j}" for i, j in pairs])
         return _moments(eng.one("cross-products from the level co-moments",
                                 render("level_moments", sums=sums, keys=keys), gid), m)

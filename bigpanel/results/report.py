@@ -30,17 +30,19 @@ def _g(v: float, digits: int = 6) -> str:
     return f"{v:.{digits}g}"
 
 
-def fit_renderable(res: FitResult) -> Group:
-    """The report: a coefficient table framed by lines on sample, effects, variance and solver."""
+def _header(res: FitResult) -> Text:
     head = Text()
     head.append(f"{res.estimator} estimate  ", style="bold")
     head.append(res.formula, style="bold magenta")
     if res.estimator == "within":
-        effects = ", ".join(f"{d['name']} with {_n(d['levels'])} levels" for d in res.fe)
+        effects = ", ".join(f"{d.name} with {_n(d.levels)} levels" for d in res.fe)
         head.append(f"\nfixed effects removed: {effects}", style="dim")
     else:
-        head.append(f"\npanel unit: {res.fe[0]['name']}", style="dim")
+        head.append(f"\npanel unit: {res.fe[0].name}", style="dim")
+    return head
 
+
+def _coefficients(res: FitResult) -> Table:
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
     table.add_column("regressor")
     for col in ("slope", "s.e.", "t", "p", "95% low", "95% high"):
@@ -55,59 +57,75 @@ def fit_renderable(res: FitResult) -> Group:
             _g(res.ci_low[i], 5),
             _g(res.ci_high[i], 5),
         )
+    return table
 
+
+def _line(lines: Text, label: str, style: str = "bold") -> None:
+    lines.append(f"\n{label:<10}", style=style)
+
+
+def _rows(res: FitResult, lines: Text) -> None:
     r = res.rows
-    lines = Text()
     lines.append("rows      ", style="bold")
-    lines.append(f"{_n(r['used'])} used of {_n(r['source'])}")
+    lines.append(f"{_n(r.used)} used of {_n(r.source)}")
     drops = []
-    if r["source"] != r["after_filter"]:
-        drops.append(f"{_n(r['source'] - r['after_filter'])} outside the filter")
-    if r["dropped_incomplete"]:
-        cols = ", ".join(f"{c} {_n(v)}" for c, v in r["incomplete"].items())
-        drops.append(f"{_n(r['dropped_incomplete'])} with a missing or unusable value ({cols})")
-    if r["dropped_singletons"]:
-        drops.append(f"{_n(r['dropped_singletons'])} singletons")
+    if r.source != r.after_filter:
+        drops.append(f"{_n(r.source - r.after_filter)} outside the filter")
+    if r.dropped_incomplete:
+        cols = ", ".join(f"{c} {_n(v)}" for c, v in r.incomplete.items())
+        drops.append(f"{_n(r.dropped_incomplete)} with a missing or unusable value ({cols})")
+    if r.dropped_singletons:
+        drops.append(f"{_n(r.dropped_singletons)} singletons")
     if drops:
         lines.append("; dropped " + "; ".join(drops))
     if res.weights:
         lines.append(f"; each row counts in proportion to {res.weights}")
     for c in res.extras.get("categorical", []):
-        lines.append("\nlevels    ", style="bold")
+        _line(lines, "levels")
         lines.append(f"{c['term']}: {_n(c['levels'])} levels, one indicator each but the base {c['base']!r}")
-    lines.append("\nvariance  ", style="bold")
-    lines.append(VCOV_LABEL[res.vcov_type])
-    if res.cluster:
-        nested = [d["name"] for d in res.fe if d["nested_in_cluster"]]
-        per = ", ".join(f"{c} {_n(g)}" for c, g in res.cluster_counts.items())
-        lines.append(f"; clusters: {per}")
+
+
+def _variance(res: FitResult, lines: Text) -> None:
+    inf = res.inference
+    _line(lines, "variance")
+    lines.append(VCOV_LABEL[inf.kind])
+    if inf.clusters:
+        nested = [d.name for d in res.fe if d.nested_in_cluster]
+        lines.append("; clusters: " + ", ".join(f"{c} {_n(g)}" for c, g in inf.clusters.items()))
         if nested:
             lines.append(f"; each level of {', '.join(nested)} lies inside one cluster")
-    lines.append(f"; t on {_n(res.df)} df")
-    lines.append("\nfit       ", style="bold")
-    r2 = (f"R-squared {res.r2_full_model:.4f} with the effects, {res.r2_within:.4f} after removing them"
-          if res.estimator == "within" else f"R-squared {res.r2_transformed:.4f} of the transformed regression")
+    lines.append(f"; t on {_n(inf.df)} df")
+    _line(lines, "fit")
+    r2 = (f"R-squared {res.fit.r2_full_model:.4f} with the effects, {res.fit.r2_within:.4f} after removing them"
+          if res.estimator == "within" else f"R-squared {res.fit.r2_transformed:.4f} of the transformed regression")
     lines.append(
-        f"{r2}; residual s.e. {_g(res.sigma, 4)} "
-        f"on {_n(res.df_resid)} df; F({_n(res.f_df[0])}, {_n(res.f_df[1])}) = {res.f_stat:.4g}, p {_p(res.f_p)}"
+        f"{r2}; residual s.e. {_g(inf.sigma, 4)} on {_n(res.fit.df_resid)} df; "
+        f"F({_n(inf.f_df[0])}, {_n(inf.f_df[1])}) = {inf.f_stat:.4g}, p {_p(inf.f_p)}"
     )
+
+
+def _solver(res: FitResult, lines: Text) -> None:
     s = res.solver
     if res.estimator == "within":
-        lines.append("\neffects   ", style="bold")
+        _line(lines, "effects")
         plural = "" if res.components == 1 else "s"
         comp = f" in {res.components} connected component{plural}" if res.components else ""
         lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
-        lines.append("\nsolver    ", style="bold")
-        conv = "converged" if s["converged"] else "NOT CONVERGED"
-        steps = (f"{s['iterations']} iterations, change {s['change']:.1e} (tol {s['tol']:.0e}, {conv})"
-                 if s["converged"] or s["iterations"] else "no iterations run (NOT CONVERGED)")
-        lines.append(f"{s['path']}; {steps}; {s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")
+        _line(lines, "solver")
+        conv = "converged" if s.converged else "NOT CONVERGED"
+        steps = (f"{s.iterations} iterations, change {s.change:.1e} (tol {s.tol:.0e}, {conv})"
+                 if s.converged or s.iterations else "no iterations run (NOT CONVERGED)")
+        lines.append(f"{s.path}; {steps}; {s.raw_passes} passes over the rows; {s.seconds:.2f} s")
     else:
-        lines.append("\nsolver    ", style="bold")
-        lines.append(f"{s['raw_passes']} passes over the rows; {s['seconds']:.2f} s")
+        _line(lines, "solver")
+        lines.append(f"{s.raw_passes} passes over the rows; {s.seconds:.2f} s")
+
+
+def _panel_tests(res: FitResult, lines: Text) -> None:
+    """The random-effects components, Hausman and Mundlak tests, and the first-difference counts."""
     re_ = res.extras.get("random_effects")
     if re_:
-        lines.append("\nerror parts", style="bold")
+        _line(lines, "error parts")
         th = re_["theta"]
         lines.append(
             f" ({re_['method']}) s.d. of the unit part {_g(re_['sigma_u'], 4)}, of the row part "
@@ -117,33 +135,37 @@ def fit_renderable(res: FitResult) -> Group:
         )
     hs = res.extras.get("hausman")
     if hs:
-        lines.append("\nhausman   ", style="bold")
+        _line(lines, "hausman")
         if hs["statistic"] is not None:
             lines.append(f"chi2({hs['df']}) = {hs['statistic']:.4g}, p {_p(hs['p_value'])} on {', '.join(hs['regressors'])}")
         if "note" in hs:
             lines.append(("; " if hs["statistic"] is not None else "") + hs["note"], style="yellow")
     mk = res.extras.get("mundlak")
     if mk:
-        lines.append("\nmundlak   ", style="bold")
-        if mk["statistic"] is not None:
-            lines.append(f"F({mk['df'][0]}, {mk['df'][1]:g}) = {mk['statistic']:.4g}, p {_p(mk['p_value'])} "
-                         "(unit means added, errors clustered by unit)")
-        else:
-            lines.append(mk["note"], style="yellow")
+        _line(lines, "mundlak")
+        lines.append(f"F({mk['df'][0]}, {mk['df'][1]:g}) = {mk['statistic']:.4g}, p {_p(mk['p_value'])} "
+                     "(unit means added, errors clustered by unit)")
     fd = res.extras.get("first_difference")
     if fd:
-        lines.append("\ndiffs     ", style="bold")
+        _line(lines, "diffs")
         lines.append(
             f"{_n(fd['usable'])} over consecutive periods; {_n(fd['dropped_gaps'])} across a gap dropped; "
             f"{_n(fd['first_rows'])} first rows of a unit"
         )
+
+
+def fit_renderable(res: FitResult) -> Group:
+    """The report: a coefficient table framed by lines on sample, effects, variance and solver."""
+    lines = Text()
+    for section in (_rows, _variance, _solver, _panel_tests):
+        section(res, lines)
     if res.dropped:
-        lines.append("\ndropped   ", style="bold yellow")
+        _line(lines, "dropped", style="bold yellow")
         lines.append("; ".join(f"{d['name']} ({d['reason']})" for d in res.dropped), style="yellow")
     for w in res.warnings:
-        lines.append("\nwarning   ", style="bold red")
+        _line(lines, "warning", style="bold red")
         lines.append(w, style="red")
-    return Group(head, table, lines)
+    return Group(_header(res), _coefficients(res), lines)
 
 
 def render_text(res: FitResult, width: int = 100) -> str:
