@@ -90,7 +90,7 @@ def _column_type(field: pa.Field) -> str:
 class PostgresEngine(TranslatingEngine):
     """An :class:`Engine` over one autocommit psycopg 3 connection.
 
-    Statements are translated to PostgreSQL (:mod:`bigpanel.dialect`); results
+    Statements are translated to PostgreSQL (:mod:`bigpanel.engines.dialect`); results
     come back as Arrow tables; ``_put`` creates a temporary table and COPYs the
     rows in.
     """

@@ -73,7 +73,7 @@ def _duck_type(dtype: Any) -> str:
 class SparkEngine(TranslatingEngine):
     """An :class:`Engine` over a Spark session.
 
-    Statements are translated to Spark SQL (:mod:`bigpanel.dialect`); a
+    Statements are translated to Spark SQL (:mod:`bigpanel.engines.dialect`); a
     temporary table is a DataFrame cached and counted at once (so its pass runs
     when asked), then registered as a temporary view.
     """

@@ -129,7 +129,7 @@ class Spec:
 
 def parse_formula(formula: str) -> tuple[str, list[str]]:
     """Split ``y ~ terms`` into the outcome and the regressors' labels, the operators
-    ``+ - : * ( )`` applied (see :mod:`bigpanel.formula`)."""
+    ``+ - : * ( )`` applied (see :mod:`bigpanel.model.formula`)."""
     if formula.count("~") != 1:
         raise BigPanelError(f"formula {formula!r} needs exactly one '~' (as in 'y ~ x1 + x2')")
     lhs, rhs = (part.strip() for part in formula.split("~"))
@@ -255,7 +255,7 @@ def build_spec(
     """Check names, types and options; return the spec or raise a one-line error.
 
     Each regressor in ``x`` is a column name or a term's label (``log(price)``,
-    ``levels(region):promo``; see :mod:`bigpanel.formula`); it becomes one SQL
+    ``levels(region):promo``; see :mod:`bigpanel.model.formula`); it becomes one SQL
     expression over quoted source columns, or one per level for ``levels()``.
     ``eng`` binds expressions and reads the levels of categorical terms.
     """
