@@ -63,7 +63,8 @@ def fit(
       pair tables or row codes; ``strategy`` (``"pair tables"``, ``"row codes"`` or
       ``"in-engine sweeps"``) forces the strategy, for tests and benchmarks;
     * first-difference: ``time``, the period column;
-    * random-effects: ``hausman=True`` adds the Hausman and Mundlak tests.
+    * random-effects: ``hausman=True`` adds the Hausman and Mundlak tests; ``tol`` and
+      ``max_iter`` go to the within fit it runs first.
 
     ``engine`` is ``duckdb`` (default for files; ``memory_limit``, ``temp_dir`` and ``threads``
     are its settings), ``postgresql`` (default for a ``postgresql://`` URL), ``spark``

@@ -117,13 +117,15 @@ def mundlak(session: Session, shift: np.ndarray, varying: list[str]) -> dict[str
 
 class RandomEffects(PanelEstimator):
     """GLS with Swamy-Arora components (see the module docstring); ``hausman`` adds the
-    Hausman and Mundlak tests against the within fit, which runs first for s_e^2."""
+    Hausman and Mundlak tests against the within fit, which runs first for s_e^2 (with the
+    stopping rule ``tol``, ``max_iter`` of its projections)."""
 
     name = "random-effects"
-    options = {"hausman": False}
+    options = {"hausman": False, "tol": 1e-8, "max_iter": 10_000}
 
     def prepare(self) -> FitResult:
-        return Within(self.request, singletons="keep").fit()
+        return Within(self.request, singletons="keep", tol=self.settings["tol"],
+                      max_iter=self.settings["max_iter"]).fit()
 
     def passes_before(self, before: FitResult) -> int:
         return before.solver.raw_passes
