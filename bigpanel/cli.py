@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Callable, Iterator, List, Optional
 
 import typer
-from typer.core import TyperGroup
+from typer.core import TyperArgument, TyperGroup
 from rich import box
 from rich.console import Console
 from rich.table import Table
@@ -55,8 +55,25 @@ EngineName = _choices("EngineName", ENGINES)
 TableFormat = _choices("TableFormat", RENDERERS)
 
 
+def _plain_argument(param: TyperArgument) -> None:
+    """Show a positional argument as its metavar alone: no ``<str>`` type after it in the help,
+    and ``SOURCE`` (``[FORMULA]`` when optional, ``FILE.json...`` when repeated) in the usage line."""
+    name = param.metavar or param.name.upper()
+    shown = (name if param.required else f"[{name}]") + ("..." if param.nargs != 1 else "")
+    param.display_type_rich = lambda ctx: None  # type: ignore[method-assign]
+    param._usage_display_name = lambda: shown  # type: ignore[method-assign]
+
+
 class OneLineErrors(TyperGroup):
-    """Usage mistakes (unknown command or option, bad or missing value) as one line on stderr, exit 2."""
+    """Usage mistakes (unknown command or option, bad or missing value) as one line on stderr, exit 2;
+    positional arguments shown by their names alone (:func:`_plain_argument`)."""
+
+    def get_command(self, ctx: object, cmd_name: str) -> object:
+        cmd = super().get_command(ctx, cmd_name)
+        for param in getattr(cmd, "params", []):
+            if isinstance(param, TyperArgument):
+                _plain_argument(param)
+        return cmd
 
     def main(self, *args: object, standalone_mode: bool = True, **kwargs: object) -> object:
         if not standalone_mode:

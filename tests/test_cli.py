@@ -210,6 +210,8 @@ def test_help_shows_placeholders_and_choices_not_type_names(command):
     out = run(command, "--help")
     assert out.exit_code == 0
     assert "<bool>" not in out.stdout and "list[str]" not in out.stdout and "<int>" not in out.stdout
+    assert not re.search(r"<(str|Path|list\[Path\])>", out.stdout)  # positional arguments too
+    assert "{" not in out.stdout.splitlines()[0]  # the usage line names arguments plainly
     if command == "fit":
         assert "--variance <classical|hc1|cr1>" in out.stdout and "--singletons <drop|keep>" in out.stdout
         assert "--fe COL" in out.stdout and "PostgreSQL" in out.stdout and "Spark" in out.stdout
