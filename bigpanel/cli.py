@@ -39,6 +39,8 @@ TABLE_HELP = (
 ENGINE_HELP = ("Where the passes run: duckdb (default for files), postgresql (default for a postgresql:// URL), "
                "spark (Spark SQL) or memory (load the used columns into numpy).")
 SPARK_MASTER_HELP = "Spark master URL for --engine spark (default local[*])."
+REMOTE_HELP = ("Read a remote Parquet SOURCE (s3://, gs://, https://, ...) through DuckDB's httpfs extension; "
+               "without it such a source is refused before any network access.")
 # options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
 RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
 
@@ -212,6 +214,7 @@ def _model_options(
         None, "--threads", help="DuckDB worker threads (default: all cores).", metavar="N"
     ),
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    allow_remote: bool = typer.Option(False, "--allow-remote", help=REMOTE_HELP, metavar=""),
     debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """The model options shared by every command that fits (their declarations live here once)."""
@@ -401,6 +404,7 @@ def describe_command(
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
     engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
     spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
+    allow_remote: bool = typer.Option(False, "--allow-remote", help=REMOTE_HELP, metavar=""),
     plot: Optional[Path] = typer.Option(
         None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.",
         metavar="FILE.png",
@@ -426,7 +430,7 @@ def describe_command(
         with progress(quiet or json_out) as on_step:
             desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None,
                                   on_step=on_step, delimiter=delimiter, engine=engine.value if engine else None,
-                                  spark_master=spark_master)
+                                  spark_master=spark_master, allow_remote=allow_remote or None)
         if plot is not None:
             plot_periods(desc, plot)
         if json_out:
