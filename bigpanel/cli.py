@@ -488,6 +488,48 @@ def table_command(
             out.print(rendered)
 
 
+@app.command("refit")
+def refit_command(
+    saved: Path = typer.Argument(..., help="A saved fit (JSON from 'bigpanel fit ... --save FILE.json').",
+                                 metavar="FILE.json"),
+    source: Optional[str] = typer.Option(
+        None, "--source", metavar="SOURCE",
+        help="Read the rows from here instead of the saved location (needed when the fit read a panel held in "
+             "memory).",
+    ),
+    allow_remote: bool = typer.Option(False, "--allow-remote", help=REMOTE_HELP, metavar=""),
+    rtol: float = typer.Option(1e-9, "--rtol", help="Relative tolerance: numbers closer than this are equal.",
+                               metavar="X"),
+    atol: float = typer.Option(1e-12, "--atol", help="Absolute tolerance: differences below it are ignored.",
+                               metavar="X"),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
+) -> None:
+    """Run a saved fit again with the arguments it records and report every number that changed.
+
+    Exit code 0 when every number agrees within the tolerances, 4 when some differ.
+    Example: bigpanel refit m1.json
+    """
+    from .rerun import refit
+
+    with guarded(debug):
+        with progress(quiet) as on_step:
+            now, diffs = refit(str(saved), source=source, allow_remote=allow_remote, rtol=rtol, atol=atol,
+                               on_step=on_step)
+        if not diffs:
+            out.print(f"same: the fit of {now.source} agrees with {saved} (rtol {rtol:g}, atol {atol:g})",
+                      highlight=False, markup=False, emoji=False)
+            return
+        table = Table(box=box.SIMPLE_HEAD, title=f"{len(diffs)} differences from {saved}", title_justify="left")
+        for col in ("key", "saved", "now", "relative difference"):
+            table.add_column(col, justify="left" if col == "key" else "right")
+        for d in diffs:
+            rel = f"{d.relative:.2e}" if d.relative is not None else ""
+            table.add_row(Text(d.key), Text(repr(d.saved)), Text(repr(d.now)), rel)
+        out.print(table)
+    raise typer.Exit(4)
+
+
 @app.command("demo")
 def demo_command(
     out_path: Path = typer.Argument(..., help="File to write: .parquet, or .csv (with a header row).", metavar="FILE"),

@@ -77,7 +77,8 @@ def test_connection_view_registered_frame_and_relation(panel, base):
     for table in ("sales", "sales_frame", "main.sales", con.sql("SELECT * FROM sales")):
         assert_same(bigpanel.fit(con, **MODEL, table=table), base)
     # the in-memory engine loads the columns through the same connection: compared with itself on the file
-    assert_same(bigpanel.fit(con, **MODEL, table="sales", engine="memory"), bigpanel.fit(path, **MODEL, engine="memory"))
+    in_memory = bigpanel.fit(path, **MODEL, engine="memory")
+    assert_same(bigpanel.fit(con, **MODEL, table="sales", engine="memory"), in_memory)
     assert objects(con) == before  # nothing left behind, no setting changed
     assert leftovers(con) == []
 
@@ -157,3 +158,22 @@ def test_relation_filter_is_the_rows_it_selects(panel):
     ref = bigpanel.fit(path, **MODEL, where="period < 8")
     assert_same(res, ref)
     assert not np.allclose(res.coef, bigpanel.fit(path, **MODEL).coef, rtol=1e-6)
+
+
+def test_panel_estimators_and_describe_in_a_connection(panel):
+    # between, first differences and random effects make tables of their own (unit means, periods,
+    # quasi-demeaning): the same numbers as from the file, and none of those tables left behind
+    from bigpanel.describe import describe_panel
+
+    _, path = panel
+    con = duckdb.connect()
+    con.execute(f"CREATE VIEW sales AS SELECT * FROM read_parquet('{path}')")
+    before = objects(con)
+    for kw in (dict(estimator="between"), dict(estimator="first-difference", time="period"),
+               dict(estimator="random-effects", hausman=True)):
+        model = dict(formula="y ~ x1 + x2", fe="unit", **kw)
+        assert_same(bigpanel.fit(con, **model, table="sales"), bigpanel.fit(path, **model))
+    here = describe_panel(con, "unit", "period", table="sales", effects=("unit", "period")).to_dict()
+    there = describe_panel(path, "unit", "period", effects=("unit", "period")).to_dict()
+    assert {k: v for k, v in here.items() if k != "source"} == {k: v for k, v in there.items() if k != "source"}
+    assert objects(con) == before

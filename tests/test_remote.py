@@ -90,8 +90,8 @@ def test_locations_lose_their_credentials():
 
 
 def test_s3_secret_from_the_environment():
-    env = {"AWS_ACCESS_KEY_ID": "AKIDEXAMPLE", "AWS_SECRET_ACCESS_KEY": "it's-secret", "AWS_DEFAULT_REGION": "eu-west-1",
-           "AWS_ENDPOINT_URL": "https://minio.local:9000/"}
+    env = {"AWS_ACCESS_KEY_ID": "AKIDEXAMPLE", "AWS_SECRET_ACCESS_KEY": "it's-secret",
+           "AWS_DEFAULT_REGION": "eu-west-1", "AWS_ENDPOINT_URL": "https://minio.local:9000/"}
     sql = s3_secret_statement(env)
     assert sql.startswith("CREATE OR REPLACE TEMPORARY SECRET bigpanel_s3 (TYPE s3, ")
     assert "SECRET 'it''s-secret'" in sql and "REGION 'eu-west-1'" in sql and "ENDPOINT 'minio.local:9000'" in sql

@@ -170,7 +170,7 @@ def _records(fits: list[dict[str, Any]], header: Row) -> list[dict[str, Any]]:
 
 
 def build_table(
-    fits: list[dict[str, Any]],
+    fits: list[Any],
     stars: bool = False,
     digits: int = 2,
     labels: list[str] | None = None,
@@ -181,7 +181,9 @@ def build_table(
     above it has as many decimals.
 
     With ``stars``, estimates get *** for p < 0.01, ** for p < 0.05 and * for p < 0.1.
+    ``fits`` are saved documents or results (``bigpanel.fit``, ``bigpanel.load``).
     """
+    fits = [fit.to_dict() if hasattr(fit, "to_dict") else fit for fit in fits]
     if not fits:
         raise BigPanelError("no fits to tabulate: give at least one saved result")
     if labels is not None and len(labels) != len(fits):
