@@ -13,10 +13,8 @@ from __future__ import annotations
 
 import csv
 import io
-import json
 import math
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any, Callable
 
 from rich import box
@@ -68,18 +66,9 @@ class ModelTable:
 
 def load_fits(paths: list[str]) -> list[dict[str, Any]]:
     """Read saved results (``bigpanel fit ... --save FILE.json``); a bad file raises ``BigPanelError``."""
-    fits = []
-    for path in paths:
-        try:
-            doc = json.loads(Path(path).read_text())
-        except OSError as exc:
-            raise BigPanelError(f"cannot read {path}: {exc.strerror or exc}") from None
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise BigPanelError(f"{path} is not valid JSON ({exc})") from None
-        if not isinstance(doc, dict) or "coefficients" not in doc or "nobs" not in doc:
-            raise BigPanelError(f"{path} is not a saved bigpanel result (no 'coefficients' or 'nobs')")
-        fits.append(doc)
-    return fits
+    from ..results.saved import read_document  # here: the CLI imports this module at start, light
+
+    return [read_document(path) for path in paths]
 
 
 def decimals_for(error: float | None, significant: int = 2) -> int:

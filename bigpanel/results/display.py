@@ -11,22 +11,19 @@ from __future__ import annotations
 from html import escape
 from typing import TYPE_CHECKING
 
+from .report import p_text
+
 if TYPE_CHECKING:
     from .result import FitResult
 
-VARIANCE_NAMES = {"classical": "classical", "hc1": "HC1", "cr1": "CR1"}
 CELL = 'style="text-align:right;padding:0 0.6em"'
 NOTE = 'style="text-align:left;padding:0.2em 0.6em;font-size:90%"'
-
-
-def _p(p: float) -> str:
-    return "<1e-16" if p < 1e-16 else f"{p:.4f}" if p >= 1e-4 else f"{p:.1e}"
 
 
 def _term_rows(res: FitResult) -> list[str]:
     rows = []
     for i, name in enumerate(res.names):
-        cells = [f"{res.coef[i]:.6g}", f"{res.std_error[i]:.4g}", f"{res.t[i]:.2f}", _p(res.p[i]),
+        cells = [f"{res.coef[i]:.6g}", f"{res.std_error[i]:.4g}", f"{res.t[i]:.2f}", p_text(res.p[i]),
                  f"{res.ci_low[i]:.5g} to {res.ci_high[i]:.5g}"]
         rows.append(f'<tr><th style="text-align:left;padding:0 0.6em">{escape(name)}</th>'
                     + "".join(f"<td {CELL}>{escape(c)}</td>" for c in cells) + "</tr>")
@@ -42,7 +39,7 @@ def _facts(res: FitResult) -> list[str]:
         label = "effects" if res.estimator == "within" else "unit"
         facts.append(f"{label}: " + ", ".join(f"{d.name} ({d.levels:,} levels)" if d.levels is not None else d.name
                                               for d in res.fe))
-    variance = VARIANCE_NAMES.get(inf.kind, inf.kind)
+    variance = inf.kind if inf.kind == "classical" else inf.kind.upper()
     if inf.clusters:
         variance += " by " + ", ".join(f"{c} ({g:,} clusters)" for c, g in inf.clusters.items())
     facts.append(f"variance: {variance}; t on {inf.df:,.0f} df")

@@ -93,16 +93,23 @@ def from_dict(doc: dict[str, Any]) -> FitResult:
     )
 
 
-def load(path: str | Path) -> FitResult:
-    """Read a fit saved with ``bigpanel fit ... --save FILE.json`` (or ``FitResult.to_json()``)."""
+def read_document(path: str | Path) -> dict[str, Any]:
+    """The JSON object of a saved fit, checked only for ``coefficients`` and ``nobs``; a file that cannot be
+    read, is not JSON or is not a fit raises ``BigPanelError`` naming it."""
     try:
         doc = json.loads(Path(path).read_text())
     except OSError as exc:
         raise BigPanelError(f"cannot read {path}: {exc.strerror or exc}") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise BigPanelError(f"{path} is not valid JSON ({exc})") from None
-    if not isinstance(doc, dict):
-        raise BigPanelError(f"{path} is not a saved bigpanel fit")
+    if not isinstance(doc, dict) or "coefficients" not in doc or "nobs" not in doc:
+        raise BigPanelError(f"{path} is not a saved bigpanel fit (no 'coefficients' or 'nobs')")
+    return doc
+
+
+def load(path: str | Path) -> FitResult:
+    """Read a fit saved with ``bigpanel fit ... --save FILE.json`` (or ``FitResult.to_json()``)."""
+    doc = read_document(path)
     try:
         return from_dict(doc)
     except BigPanelError as exc:
