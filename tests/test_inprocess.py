@@ -177,3 +177,44 @@ def test_panel_estimators_and_describe_in_a_connection(panel):
     there = describe_panel(path, "unit", "period", effects=("unit", "period")).to_dict()
     assert {k: v for k, v in here.items() if k != "source"} == {k: v for k, v in there.items() if k != "source"}
     assert objects(con) == before
+
+
+def test_pandas_object_columns_are_converted_once_and_numbers_shared(panel):
+    from bigpanel.engines.inprocess import scannable
+
+    df, _ = panel
+    days = np.datetime64("2024-01-01") + df["period"].to_numpy().astype("timedelta64[D]")
+    dated = df.assign(day=pa.array(days).to_pandas(date_as_object=True))
+    assert dated["day"].dtype == object
+    table = scannable(dated, "pandas DataFrame")
+    assert isinstance(table, pa.Table) and str(table.schema.field("day").type) == "date32[day]"
+    # the float column is shared with the frame, not copied
+    assert table.column("y").chunk(0).buffers()[1].address == dated["y"].to_numpy().__array_interface__["data"][0]
+    assert scannable(df, "pandas DataFrame") is df  # no object column: registered as it is
+    mixed = df.assign(odd=[1, "a"] * (len(df) // 2) + [1] * (len(df) % 2))
+    assert scannable(mixed, "pandas DataFrame") is mixed  # Arrow cannot convert it: DuckDB reads it as it is
+    assert_same(bigpanel.fit(dated, **MODEL), bigpanel.fit(df, **MODEL))
+    by_day = bigpanel.fit(dated, "y ~ x1 + x2", fe=["unit", "day"], cluster="region")
+    assert_same(by_day, bigpanel.fit(df, **MODEL))  # day is period under another name
+
+
+def test_a_query_interrupted_inside_duckdb_leaves_nothing():
+    # DuckDB's own interrupt (what Ctrl-C in a notebook does) while a pass over the rows runs
+    import threading
+
+    con = duckdb.connect()
+    con.execute("CREATE TABLE big AS SELECT i % 5000 AS unit, i % 97 AS period, random() AS x1, random() AS y "
+                "FROM range(1000000) t(i)")
+    before = objects(con)
+
+    def interrupt_soon(step: str) -> None:
+        if step.startswith("pass 2"):
+            threading.Timer(0.02, con.interrupt).start()
+
+    try:
+        bigpanel.fit(con, "y ~ x1", fe=["unit", "period"], table="big", on_step=interrupt_soon)
+    except KeyboardInterrupt:
+        pass
+    else:
+        pytest.skip("the pass finished before the interrupt arrived")
+    assert objects(con) == before
