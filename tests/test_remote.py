@@ -96,3 +96,13 @@ def test_s3_secret_from_the_environment():
     assert sql.startswith("CREATE OR REPLACE TEMPORARY SECRET bigpanel_s3 (TYPE s3, ")
     assert "SECRET 'it''s-secret'" in sql and "REGION 'eu-west-1'" in sql and "ENDPOINT 'minio.local:9000'" in sql
     assert s3_secret_statement({"AWS_ACCESS_KEY_ID": "only-a-key"}) is None
+
+
+def test_the_saved_call_keeps_no_password():
+    from bigpanel.results.call import call_record
+
+    call = call_record({"source": "postgresql://ana:hunter2@db/sales?password=hunter3", "formula": "y ~ x",
+                        "table": "panel", "options": {"tol": 1e-10}})
+    assert call["source"] == "postgresql://ana@db/sales" and call["source_kind"] == "postgresql"
+    assert call["arguments"] == {"formula": "y ~ x", "table": "panel", "tol": 1e-10} and call["rerunnable"]
+    assert "hunter" not in repr(call)
