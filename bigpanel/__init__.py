@@ -7,15 +7,19 @@ from typing import Any
 from .errors import BigPanelError
 from .version import __version__
 
-__all__ = ["fit", "FitResult", "BigPanelError", "__version__"]
+__all__ = ["fit", "load", "FitResult", "BigPanelError", "__version__"]
 
 
 def __getattr__(name: str) -> Any:
-    """``fit`` and ``FitResult`` are imported on first use, so that ``bigpanel --help`` loads no numerics."""
+    """``fit``, ``load`` and ``FitResult`` are imported on first use, so that ``bigpanel --help`` loads no numerics."""
     if name == "fit":
         from .api import fit
 
         return fit
+    if name == "load":
+        from .results.saved import load
+
+        return load
     if name == "FitResult":
         from .results.result import FitResult
 

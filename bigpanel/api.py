@@ -13,6 +13,7 @@ from .estimators.random_effects import RandomEffects
 from .estimators.within import Within
 from .model.spec import parse_formula
 from .options import as_list
+from .results.call import call_record
 from .results.result import FitResult
 
 ESTIMATOR_CLASSES: dict[str, type[Estimator]] = {
@@ -21,7 +22,7 @@ ESTIMATOR_CLASSES: dict[str, type[Estimator]] = {
 
 
 def fit(
-    source: str,
+    source: object,
     formula: str | None = None,
     *,
     y: str | None = None,
@@ -30,7 +31,7 @@ def fit(
     cluster: str | Sequence[str] | None = None,
     variance: str | None = None,
     where: str | None = None,
-    table: str | None = None,
+    table: object = None,
     weights: str | None = None,
     estimator: str = "within",
     engine: str | None = None,
@@ -39,13 +40,18 @@ def fit(
     threads: int | None = None,
     delimiter: str | None = None,
     spark_master: str | None = None,
+    allow_remote: bool = False,
     on_step: Callable[[str], None] | None = None,
     **options: object,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (by default the within estimator).
 
     ``source`` is a Parquet file, folder or glob, a CSV file (``delimiter``: its field
-    separator), a DuckDB file with ``table``, or a ``postgresql://`` URL with ``table``.
+    separator), a DuckDB file with ``table``, or a ``postgresql://`` URL with ``table``; remote
+    Parquet (``s3://``, ``gs://``, ``https://``) with ``allow_remote=True``. It may also be a
+    panel the program holds: a DuckDB connection with ``table`` (a table or view name, or a
+    relation of it), a DuckDB relation, a pyarrow Table or Dataset, a pandas or polars DataFrame
+    (see :mod:`bigpanel.engines.inprocess`).
     Either ``formula`` (``"y ~ x1 + x2"``, see :mod:`bigpanel.model.formula`) or ``y`` and
     ``x`` name the variables; ``fe`` lists effect columns (``"a:b"`` for one effect per pair).
     ``variance`` is ``classical`` (default), ``hc1`` or ``cr1`` (cluster-robust on ``cluster``,
@@ -71,7 +77,11 @@ def fit(
     (``spark_master``, default local mode) or ``memory`` (load the used columns into numpy:
     the reference for checking the SQL path on a sample). ``on_step`` receives a line for each
     step as it starts.
+
+    The result records every argument given here but ``on_step`` (``FitResult.call``), so that
+    ``bigpanel refit`` can run the fit again from its saved JSON.
     """
+    given = {name: value for name, value in locals().items() if name != "on_step"}
     if formula is not None:
         if y is not None or x is not None:
             raise BigPanelError("give either a formula or --y/--x, not both")
@@ -86,6 +96,8 @@ def fit(
         source=source, y=y, x=xs, fe=as_list(fe), cluster=as_list(cluster), variance=variance, where=where,
         table=table, weights=weights, engine=engine, on_step=on_step,
         engine_options=dict(memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, delimiter=delimiter,
-                            spark_master=spark_master),
+                            spark_master=spark_master, allow_remote=allow_remote or None),
     )
-    return ESTIMATOR_CLASSES[estimator](request, **options).fit()
+    res = ESTIMATOR_CLASSES[estimator](request, **options).fit()
+    res.call = call_record(given)
+    return res

@@ -29,6 +29,7 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     eng, src = open_session(
         model["source"], model.get("table"), memory_limit=model.get("memory_limit"),
         temp_dir=model.get("temp_dir"), threads=model.get("threads"), delimiter=model.get("delimiter"),
+        allow_remote=model.get("allow_remote") or None,
     )
     try:
         spec = build_spec(

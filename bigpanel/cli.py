@@ -39,6 +39,8 @@ TABLE_HELP = (
 ENGINE_HELP = ("Where the passes run: duckdb (default for files), postgresql (default for a postgresql:// URL), "
                "spark (Spark SQL) or memory (load the used columns into numpy).")
 SPARK_MASTER_HELP = "Spark master URL for --engine spark (default local[*])."
+REMOTE_HELP = ("Read a remote Parquet SOURCE (s3://, gs://, https://, ...) through DuckDB's httpfs extension; "
+               "without it such a source is refused before any network access.")
 # options of earlier versions, with what replaced them (the tool is pre-1.0: no aliases)
 RENAMED = {"--vcov": "--variance classical|hc1|cr1", "--keep-singletons": "--singletons keep"}
 
@@ -229,6 +231,7 @@ def _model_options(
         None, "--threads", help="DuckDB worker threads (default: all cores).", metavar="N"
     ),
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    allow_remote: bool = typer.Option(False, "--allow-remote", help=REMOTE_HELP, metavar=""),
     debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
 ) -> None:
     """The model options shared by every command that fits (their declarations live here once)."""
@@ -418,6 +421,7 @@ def describe_command(
     delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
     engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
     spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
+    allow_remote: bool = typer.Option(False, "--allow-remote", help=REMOTE_HELP, metavar=""),
     plot: Optional[Path] = typer.Option(
         None, "--plot", help="Draw the coverage curve (share of units seen in at least k periods) to this PNG.",
         metavar="FILE.png",
@@ -443,7 +447,7 @@ def describe_command(
         with progress(quiet or json_out) as on_step:
             desc = describe_panel(source, id, time, table=table, effects=tuple(effects) if effects else None,
                                   on_step=on_step, delimiter=delimiter, engine=engine.value if engine else None,
-                                  spark_master=spark_master)
+                                  spark_master=spark_master, allow_remote=allow_remote or None)
         if plot is not None:
             plot_periods(desc, plot)
         if json_out:
@@ -499,6 +503,48 @@ def table_command(
             sys.stdout.write(rendered)
         else:
             out.print(rendered)
+
+
+@app.command("refit")
+def refit_command(
+    saved: Path = typer.Argument(..., help="A saved fit (JSON from 'bigpanel fit ... --save FILE.json').",
+                                 metavar="FILE.json"),
+    source: Optional[str] = typer.Option(
+        None, "--source", metavar="SOURCE",
+        help="Read the rows from here instead of the saved location (needed when the fit read a panel held in "
+             "memory).",
+    ),
+    allow_remote: bool = typer.Option(False, "--allow-remote", help=REMOTE_HELP, metavar=""),
+    rtol: float = typer.Option(1e-9, "--rtol", help="Relative tolerance: numbers closer than this are equal.",
+                               metavar="X"),
+    atol: float = typer.Option(1e-12, "--atol", help="Absolute tolerance: differences below it are ignored.",
+                               metavar="X"),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
+) -> None:
+    """Run a saved fit again with the arguments it records and report every number that changed.
+
+    Exit code 0 when every number agrees within the tolerances, 4 when some differ.
+    Example: bigpanel refit m1.json
+    """
+    from .rerun import refit
+
+    with guarded(debug):
+        with progress(quiet) as on_step:
+            now, diffs = refit(str(saved), source=source, allow_remote=allow_remote, rtol=rtol, atol=atol,
+                               on_step=on_step)
+        if not diffs:
+            out.print(f"same: the fit of {now.source} agrees with {saved} (rtol {rtol:g}, atol {atol:g})",
+                      highlight=False, markup=False, emoji=False)
+            return
+        table = Table(box=box.SIMPLE_HEAD, title=f"{len(diffs)} differences from {saved}", title_justify="left")
+        for col in ("key", "saved", "now", "relative difference"):
+            table.add_column(col, justify="left" if col == "key" else "right")
+        for d in diffs:
+            rel = f"{d.relative:.2e}" if d.relative is not None else ""
+            table.add_row(Text(d.key), Text(repr(d.saved)), Text(repr(d.now)), rel)
+        out.print(table)
+    raise typer.Exit(4)
 
 
 @app.command("demo")

@@ -214,6 +214,7 @@ def describe_panel(
     delimiter: str | None = None,
     engine: str | None = None,
     spark_master: str | None = None,
+    allow_remote: bool | None = None,
 ) -> PanelDescription:
     """Describe the panel in ``source`` whose units are ``id`` and periods ``time``.
 
@@ -225,7 +226,7 @@ def describe_panel(
     """
     eng, src = open_session(
         source, table, engine=engine, memory_limit=memory_limit, temp_dir=temp_dir, threads=threads,
-        on_step=on_step, delimiter=delimiter, spark_master=spark_master,
+        on_step=on_step, delimiter=delimiter, spark_master=spark_master, allow_remote=allow_remote,
     )
     try:
         _check_columns(src, id, time, effects)

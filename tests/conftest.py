@@ -96,3 +96,27 @@ def grunfeld(tmp_path_factory):
     path = tmp_path_factory.mktemp("grunfeld") / "grunfeld.parquet"
     df.to_parquet(path)
     return df, str(path)
+
+
+@pytest.fixture(scope="session", autouse=True)
+def saved_fits_follow_the_schema(tmp_path_factory):
+    """After the session, every saved fit the tests wrote under pytest's temporary folders (``--save``,
+    ``to_json()``) validates against the package's schema, bigpanel/results/fit.schema.json. A test that
+    writes a deliberately broken fit gives the file another suffix than .json."""
+    yield
+    import json
+
+    import jsonschema
+
+    from bigpanel.results.saved import schema
+
+    validator = jsonschema.Draft202012Validator(schema())
+    bad = []
+    for path in Path(tmp_path_factory.getbasetemp()).rglob("*.json"):
+        try:
+            doc = json.loads(path.read_text())
+        except (OSError, ValueError):
+            continue
+        if isinstance(doc, dict) and "coefficients" in doc and "bigpanel_version" in doc:
+            bad += [f"{path}: {e.message} at {list(e.absolute_path)}" for e in validator.iter_errors(doc)][:1]
+    assert not bad, "saved fits that do not follow fit.schema.json:\n" + "\n".join(bad)

@@ -42,7 +42,7 @@ LAYERS = [
     {"bigpanel.estimators"},
     {"bigpanel.output"},
     {"bigpanel.api", "bigpanel.cli", "bigpanel.command", "bigpanel.progress", "bigpanel.describe",
-     "bigpanel.bench", "bigpanel.demo", "bigpanel.shapes", "bigpanel", "bigpanel.__main__"},
+     "bigpanel.bench", "bigpanel.demo", "bigpanel.shapes", "bigpanel.rerun", "bigpanel", "bigpanel.__main__"},
 ]
 LONGEST_FUNCTION = 100
 

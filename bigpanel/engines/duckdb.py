@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass
 from pathlib import Path
-from typing import ClassVar, Iterator
+from typing import Callable, ClassVar, Iterator
 
 import duckdb
 import pyarrow as pa
@@ -64,9 +64,11 @@ class DuckDBEngine(Engine):
 
 
 def connect(
-    memory_limit: str | None = None, temp_dir: str | None = None, threads: int | None = None
+    memory_limit: str | None = None, temp_dir: str | None = None, threads: int | None = None,
+    prepare: Callable[[duckdb.DuckDBPyConnection], None] | None = None,
 ) -> duckdb.DuckDBPyConnection:
-    """An in-process DuckDB connection with the user's memory, spill and thread settings."""
+    """An in-process DuckDB connection with the user's memory, spill and thread settings;
+    ``prepare`` runs on it before its configuration is locked (remote sources load httpfs there)."""
     # Hand freed memory back to the system as a fit goes (not only at exit): without it the
     # sort buffers of the row-codes pass stayed resident while numpy built its tables (200M rows
     # of store x week: peak 6.4 GB, with it 4.3 GB).
@@ -83,6 +85,12 @@ def connect(
         con = duckdb.connect(":memory:", config=config)
     except duckdb.Error as exc:
         raise BigPanelError(f"bad engine setting ({first_line(exc)})") from None
+    if prepare is not None:
+        try:
+            prepare(con)
+        except BaseException:
+            con.close()
+            raise
     con.execute(render("session_settings")).fetchall()
     return con
 

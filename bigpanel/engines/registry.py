@@ -25,6 +25,7 @@ OPTIONS = {
     "threads": ("--threads", ("duckdb",)),
     "delimiter": ("--delimiter", ("duckdb",)),
     "spark_master": ("--spark-master", ("spark",)),
+    "allow_remote": ("--allow-remote", ("duckdb",)),
 }
 
 
@@ -61,8 +62,8 @@ def check_options(where: str, engine: str | None, **options: object) -> None:
 
 
 def open_session(
-    location: str,
-    table: str | None = None,
+    location: object,
+    table: object = None,
     *,
     engine: str | None = None,
     on_step: Callable[[str], None] | None = None,
@@ -70,9 +71,22 @@ def open_session(
 ) -> tuple[Engine, Source]:
     """An engine holding the view ``bp_source`` over ``location``, and the source's schema.
 
-    ``options`` are ``memory_limit``, ``temp_dir``, ``threads``, ``delimiter`` (DuckDB) and
-    ``spark_master`` (Spark); one given to another engine is an error. The caller closes the engine.
+    ``options`` are ``memory_limit``, ``temp_dir``, ``threads``, ``delimiter``, ``allow_remote``
+    (DuckDB) and ``spark_master`` (Spark); one given to another engine is an error. ``location``
+    may also be an in-process object (:mod:`bigpanel.engines.inprocess`), read by DuckDB; a remote
+    URL is read only with ``allow_remote`` (:mod:`bigpanel.engines.remote`). The caller closes the engine.
     """
+    from .inprocess import kind_of
+
+    held = kind_of(location)
+    if held is not None:
+        if engine not in (None, "duckdb", "memory"):
+            raise BigPanelError(f"a {held} is read by DuckDB: drop --engine {engine}")
+        check_options("duckdb", engine, **options)
+        from .inprocess import open_inprocess
+
+        return open_inprocess(location, table, on_step, options)
+    location = str(location)
     where = sql_engine(location, engine)
     check_options(where, engine, **options)
     if where == "postgresql":
@@ -89,9 +103,12 @@ def open_session(
 def _open_duckdb(location: str, table: str | None, on_step: Callable[[str], None] | None,
                  options: dict) -> tuple[Engine, Source]:
     from .duckdb import DuckDBEngine, connect
+    from .remote import check_remote, enable_remote, is_remote
     from .source import open_source
 
-    con = connect(options.get("memory_limit"), options.get("temp_dir"), options.get("threads"))
+    check_remote(location, options.get("allow_remote"))
+    prepare = (lambda con: enable_remote(con, location)) if is_remote(location) else None
+    con = connect(options.get("memory_limit"), options.get("temp_dir"), options.get("threads"), prepare=prepare)
     try:
         src = open_source(con, location, table, options.get("delimiter"))
     except BaseException:

@@ -18,6 +18,7 @@ import duckdb
 from ..errors import BigPanelError
 from ..sql.text import ident, literal, render
 from .base import first_line
+from .remote import is_remote, redacted
 
 PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")
 _CSV = (".csv", ".tsv", ".csv.gz", ".tsv.gz", ".txt")
@@ -34,7 +35,7 @@ class Source:
 
 
 def _kind_of(location: str, table: str | None) -> str:
-    low = location.lower()
+    low = location.lower().split("?", 1)[0] if is_remote(location) else location.lower()
     if table is not None and low.endswith(_CSV + PARQUET_SUFFIXES):
         raise BigPanelError(
             f"--table names a table inside a database file; {location} is a file of its own: drop --table"
@@ -148,8 +149,8 @@ def open_source(
     kind = _kind_of(location, table)
     try:
         if kind == "parquet":
-            files = parquet_files(location)
-            for f in files:
+            files = [location] if is_remote(location) else parquet_files(location)
+            for f in files if not is_remote(location) else []:
                 _check_not_empty(f)
             paths = "[" + ", ".join(literal(f) for f in files) + "]"
             if len(files) > 1:
@@ -182,11 +183,11 @@ def open_source(
     except BigPanelError:
         raise
     except duckdb.Error as exc:
-        raise BigPanelError(f"cannot read {location}: {first_line(exc)}") from None
+        raise BigPanelError(f"cannot read {redacted(location)}: {first_line(exc)}") from None
     columns = {row[0]: row[1] for row in described}
     if not columns:
         raise BigPanelError(f"{location} has no columns")
     if kind == "csv":
         _check_csv_header(location, list(columns), delimiter)
         _check_header(location, _delimiter(delimiter, location))
-    return Source(location=location, kind=kind, columns=columns)
+    return Source(location=redacted(location), kind=kind, columns=columns)

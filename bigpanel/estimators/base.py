@@ -31,16 +31,16 @@ FEW_CLUSTERS = 50  # below this many clusters, CR1 errors are flagged (common pr
 class Request:
     """The part of a fit request every estimator shares: where the rows are, the model, the
     sample, the variance and the engine (``engine_options``: ``memory_limit``, ``temp_dir``,
-    ``threads``, ``delimiter``, ``spark_master``)."""
+    ``threads``, ``delimiter``, ``spark_master``, ``allow_remote``)."""
 
-    source: str
+    source: object  # a path or URL, or an in-process panel (bigpanel.engines.inprocess)
     y: str
     x: list[str]
     fe: list[str]
     cluster: list[str]
     variance: str | None
     where: str | None
-    table: str | None
+    table: object  # a name, or a relation of the DuckDB connection given as the source
     weights: str | None
     engine: str | None
     engine_options: dict[str, Any]

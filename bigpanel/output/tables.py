@@ -13,10 +13,8 @@ from __future__ import annotations
 
 import csv
 import io
-import json
 import math
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any, Callable
 
 from rich import box
@@ -68,18 +66,9 @@ class ModelTable:
 
 def load_fits(paths: list[str]) -> list[dict[str, Any]]:
     """Read saved results (``bigpanel fit ... --save FILE.json``); a bad file raises ``BigPanelError``."""
-    fits = []
-    for path in paths:
-        try:
-            doc = json.loads(Path(path).read_text())
-        except OSError as exc:
-            raise BigPanelError(f"cannot read {path}: {exc.strerror or exc}") from None
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise BigPanelError(f"{path} is not valid JSON ({exc})") from None
-        if not isinstance(doc, dict) or "coefficients" not in doc or "nobs" not in doc:
-            raise BigPanelError(f"{path} is not a saved bigpanel result (no 'coefficients' or 'nobs')")
-        fits.append(doc)
-    return fits
+    from ..results.saved import read_document  # here: the CLI imports this module at start, light
+
+    return [read_document(path) for path in paths]
 
 
 def decimals_for(error: float | None, significant: int = 2) -> int:
@@ -170,7 +159,7 @@ def _records(fits: list[dict[str, Any]], header: Row) -> list[dict[str, Any]]:
 
 
 def build_table(
-    fits: list[dict[str, Any]],
+    fits: list[Any],
     stars: bool = False,
     digits: int = 2,
     labels: list[str] | None = None,
@@ -181,7 +170,9 @@ def build_table(
     above it has as many decimals.
 
     With ``stars``, estimates get *** for p < 0.01, ** for p < 0.05 and * for p < 0.1.
+    ``fits`` are saved documents or results (``bigpanel.fit``, ``bigpanel.load``).
     """
+    fits = [fit.to_dict() if hasattr(fit, "to_dict") else fit for fit in fits]
     if not fits:
         raise BigPanelError("no fits to tabulate: give at least one saved result")
     if labels is not None and len(labels) != len(fits):

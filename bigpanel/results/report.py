@@ -26,6 +26,11 @@ def _p(p: float) -> str:
     return "<1e-16" if p < 1e-16 else f"{p:.4f}" if p >= 1e-4 else f"{p:.1e}"
 
 
+def p_text(p: float) -> str:
+    """A p-value as the report writes it (the notebook display too)."""
+    return _p(p)
+
+
 def _g(v: float, digits: int = 6) -> str:
     return f"{v:.{digits}g}"
 

@@ -20,6 +20,8 @@ import pyarrow as pa
 from ..version import __version__
 from ..numerics.inference import Inference
 
+SCHEMA_VERSION = 1  # of the saved JSON; results/fit.schema.json describes it
+
 
 def number(v: float | None) -> float | None:
     """A finite float, or None (JSON has no NaN or infinity)."""
@@ -135,6 +137,9 @@ class FitResult:
     warnings: list[str] = field(default_factory=list)
     timings: dict[str, float] = field(default_factory=dict)
     extras: dict[str, Any] = field(default_factory=dict)
+    call: dict[str, Any] = field(default_factory=dict)  # what bigpanel.fit was given (results/call.py)
+    saved_effects_summary: dict[str, Any] | None = None  # a loaded fit's summary (its effect tables are not saved)
+    version: str = __version__  # of the bigpanel that made the fit
 
     @property
     def params(self) -> dict[str, float]:
@@ -175,7 +180,10 @@ class FitResult:
         return f"{self.outcome} ~ {' + '.join(regs)}"
 
     def effects_summary(self) -> dict[str, dict[str, float | int | None]]:
-        """Mean (unweighted over levels), sd, min and max of each dimension's effects."""
+        """Mean (unweighted over levels), sd, min and max of each dimension's effects (for a loaded
+        fit, the summary its file holds)."""
+        if self.saved_effects_summary is not None:
+            return self.saved_effects_summary
         out = {}
         for name, table in self.effects.items():
             col = [c for c in table.column_names if c.startswith("effect")][-1]
@@ -204,7 +212,8 @@ class FitResult:
             for i, name in enumerate(self.names)
         }
         return {
-            "bigpanel_version": __version__,
+            "schema_version": SCHEMA_VERSION,
+            "bigpanel_version": self.version,
             "estimator": self.estimator,
             "source": self.source,
             "where": self.where,
@@ -244,6 +253,7 @@ class FitResult:
             "effects_summary": self.effects_summary(),
             "warnings": self.warnings,
             "timings": {k: round(v, 4) for k, v in self.timings.items()},
+            "call": self.call,
             **self.extras,
         }
 
@@ -256,6 +266,32 @@ class FitResult:
         from .report import render_text
 
         return render_text(self, width=width)
+
+    def coefficients(self, level: float = 0.95) -> pa.Table:
+        """One row per kept regressor: term, estimate, std_error, t, p_value, ci_low, ci_high (the interval
+        at ``level`` on the fit's t degrees of freedom), as a pyarrow Table (``.to_pandas()``,
+        ``polars.from_arrow``)."""
+        from .frames import coefficient_table
+
+        return coefficient_table(self, level)
+
+    def vcov_table(self) -> pa.Table:
+        """The variance matrix labelled: a ``term`` column, then one column per term (see ``vcov``)."""
+        from .frames import vcov_table
+
+        return vcov_table(self)
+
+    def __rich__(self) -> Any:
+        """The terminal report, for rich consoles (``rich.print(res)``)."""
+        from .report import fit_renderable
+
+        return fit_renderable(self)
+
+    def _repr_html_(self) -> str:
+        """A compact HTML table for notebooks: every term, then the sample, variance and fit."""
+        from .display import fit_html
+
+        return fit_html(self)
 
     def __repr__(self) -> str:
         return f"<FitResult {self.formula} | {', '.join(d.name for d in self.fe)}; N={self.nobs}>"
