@@ -23,7 +23,7 @@ from rich.text import Text
 from .command import interrupted
 from .engines.registry import ENGINES
 from .errors import BigPanelError
-from .options import ESTIMATORS, SINGLETONS, VARIANCE_TYPES
+from .options import BOOTSTRAP_WEIGHTS, ESTIMATORS, SINGLETONS, VARIANCE_TYPES
 from .output.tables import RENDERERS
 
 # Only typer, rich and the light modules above load at start: the commands import the
@@ -53,6 +53,7 @@ Singletons = _choices("Singletons", SINGLETONS)
 Estimator = _choices("Estimator", ESTIMATORS)
 EngineName = _choices("EngineName", ENGINES)
 TableFormat = _choices("TableFormat", RENDERERS)
+BootstrapWeights = _choices("BootstrapWeights", BOOTSTRAP_WEIGHTS)
 
 
 class OneLineErrors(TyperGroup):
@@ -275,6 +276,27 @@ def fit_command(
         None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect.", metavar="DIR"
     ),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    wild_bootstrap: bool = typer.Option(
+        False, "--wild-bootstrap", metavar="",
+        help="Add restricted wild cluster bootstrap p-values (null: slope = 0) to the CR1 t tests; needs --cluster.",
+    ),
+    draws: Optional[int] = typer.Option(
+        None, "--draws", metavar="B",
+        help="Bootstrap draws (default 9999); with Rademacher weights and 2^G <= B all 2^G sign vectors are used.",
+    ),
+    bootstrap_weights: Optional[BootstrapWeights] = typer.Option(
+        None, "--bootstrap-weights", help="rademacher or webb (default: webb with 12 clusters or fewer)."
+    ),
+    seed: Optional[int] = typer.Option(
+        None, "--seed", metavar="S", help="Seed of the bootstrap weights (default: drawn and reported)."
+    ),
+    test: Optional[List[str]] = typer.Option(
+        None, "--test", metavar="NAME", help="Regressor to bootstrap; repeat for more (default: every slope)."
+    ),
+    bootstrap_cluster: Optional[str] = typer.Option(
+        None, "--bootstrap-cluster", metavar="COL",
+        help="With several --cluster columns, the one whose clusters are resampled (default: fewest clusters).",
+    ),
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
@@ -289,7 +311,8 @@ def fit_command(
     with progress(quiet or json_out) as on_step:
         res = run_fit(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
-            weights=weights, on_step=on_step,
+            weights=weights, on_step=on_step, wild_bootstrap=wild_bootstrap, draws=draws,
+            bootstrap_weights=bootstrap_weights, seed=seed, test=test or None, bootstrap_cluster=bootstrap_cluster,
         )
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]
