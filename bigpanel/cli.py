@@ -313,6 +313,7 @@ def fit_command(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
             weights=weights, on_step=on_step, wild_bootstrap=wild_bootstrap, draws=draws,
             bootstrap_weights=bootstrap_weights, seed=seed, test=test or None, bootstrap_cluster=bootstrap_cluster,
+            effect_errors=effects_out is not None,
         )
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]
@@ -352,6 +353,8 @@ def effects_command(
 
     Normalisation: one effect holds the intercept (mean_g(y) - mean_g(x)'b); with more, effect 2 has
     row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
+    One effect also gets standard errors (classical; CR1 too with --cluster when its levels span clusters);
+    with more, levels are identified only up to the normalisation and get none.
     Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
     """
     from .api import fit as run_fit
@@ -360,7 +363,7 @@ def effects_command(
 
     _check_outputs(model, {"--plot": plot}, out_dir)
     with progress(quiet) as on_step:
-        res = run_fit(**model, on_step=on_step)
+        res = run_fit(**model, on_step=on_step, effect_errors=True)
     files = _effect_files(Path(out_dir), list(res.effects))
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items()]
     if plot is not None:
@@ -376,6 +379,10 @@ def effects_command(
         table.add_row(Text(name), f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}",
                       Text(str(path)))
     out.print(table)
+    notes = res.extras.get("effect_errors", {})
+    for key in ("std_error", "std_error_clustered", "note"):
+        if key in notes:
+            out.print(f"{key.replace('_', ' ')}: {notes[key]}", highlight=False, markup=False, emoji=False)
     if plot is not None:
         out.print(f"histograms: {plot}", highlight=False, markup=False, emoji=False)
 

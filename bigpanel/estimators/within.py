@@ -23,6 +23,7 @@ from ..results.result import EffectInfo, FitResult, FitStatistics, SolverReport
 from .absorb import Absorption, Projections, absorb
 from .base import Estimator, Session, cluster_warnings, opened, row_counts
 from .bootstrap import BOOTSTRAP_OPTIONS, BootstrapOptions, wild_bootstrap
+from .effect_errors import effect_errors
 
 PATHS = {
     ONE_WAY: "exact one-way demeaning",
@@ -36,11 +37,12 @@ class Within(Estimator):
     """Slopes of the regression with a dummy for every level of every effect (LSDV), computed
     without the dummies; ``singletons`` (``drop`` or ``keep``), the stopping rule ``tol`` and
     ``max_iter`` of the projections, the Python-side budget ``cell_budget``, a forced
-    ``strategy`` (tests, benchmarks) and the wild bootstrap's options (:mod:`.bootstrap`) are its own options."""
+    ``strategy`` (tests, benchmarks), ``effect_errors`` (clustered standard errors of a single
+    effect's levels) and the wild bootstrap's options (:mod:`.bootstrap`) are its own options."""
 
     name = "within"
     options = {"tol": 1e-8, "max_iter": 10_000, "singletons": "drop", "cell_budget": None, "strategy": None,
-               **BOOTSTRAP_OPTIONS}
+               "effect_errors": False, **BOOTSTRAP_OPTIONS}
     in_memory = True
 
     def fit(self) -> FitResult:
@@ -55,8 +57,10 @@ class Within(Estimator):
             bootstrap = wild_bootstrap(session, ab, slopes, inf, names, boot) if boot.draws else None
             fx = recover(ab.proj, ab.red.counts, slopes.keep, slopes.beta, ab.first.shift, ab.labels)
             effects = effect_tables(session.spec, ab.back.level_keys, fx, ab.red.rows)
+            effects, errors = effect_errors(session, ab, slopes, inf, effects, bool(self.settings["effect_errors"]))
             solver = self._solver(session, ab, slopes, rss_from)
         res = self._result(session, ab, slopes, inf, solver, effects)
+        res.extras["effect_errors"] = errors
         if bootstrap is not None:
             res.extras["bootstrap"] = bootstrap[0]
             for name, p in bootstrap[1].items():
