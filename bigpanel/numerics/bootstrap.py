@@ -289,9 +289,12 @@ def cut_across_schur(counts: list[np.ndarray], cross: dict[tuple[int, int], spar
         for b, e in enumerate(dims):
             if a != b:
                 sigma[offsets[a]:offsets[a + 1], offsets[b]:offsets[b + 1]] = block(d, e).toarray()
-    if nested is not None:
+    if nested is not None:  # N' diag(1/W) N by dense blocks of levels (a sparse product is far slower here)
         n = sparse.hstack([block(nested, d) for d in dims]).tocsr()
-        sigma -= (n.T @ sparse.diags(1.0 / counts[nested]) @ n).toarray()
+        step = max(1, BLOCK_CELLS // n.shape[1])
+        for start in range(0, n.shape[0], step):
+            part = n[start:start + step].toarray()
+            sigma -= part.T @ (part / counts[nested][start:start + step, None])
     eig, vec = np.linalg.eigh((sigma + sigma.T) / 2)
     keep = eig > SCHUR_RTOL * eig[-1]
     return (vec[:, keep] / eig[keep]) @ vec[:, keep].T
