@@ -97,7 +97,7 @@ def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[in
     columns += ["w"] if spec.weights else []
     joins = effect_joins(spec) + "".join(
         f"\n      JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in dims)
-    sql = render("bootstrap_cross_sums", cluster=cluster, codes=join(codes), grouping=", ".join(codes),
+    sql = render("bootstrap_cross_sums", cluster=cluster, codes=join(codes), grouping=", ".join([cluster, *codes]),
                  columns=join(columns), joins=joins, sets=grouping_sets([[cluster, c] for c in codes]),
                  sums=join([f"fsum({spec.w}e{j}) AS f{j}" for j in range(m)]))
     tab = eng.arrow("bootstrap: sums per cluster and level of the effects that cut across", sql, raw=True)
@@ -106,7 +106,7 @@ def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[in
     offsets = np.concatenate([[0], np.cumsum(sizes)])
     level = np.zeros(len(gid), dtype=np.int64)
     for a, c in enumerate(codes):
-        rows = gid == grouping_id(codes, [c])
+        rows = gid == grouping_id([cluster, *codes], [cluster, c])
         level[rows] = tab.column(c).to_numpy(zero_copy_only=False)[rows].astype(np.int64) + offsets[a]
     sums = np.column_stack([tab.column(f"f{j}").to_numpy(zero_copy_only=False).astype(float) for j in range(m)])
     return PairSums(at.astype(np.int64), level, sums, len(keys), int(offsets[-1]))
