@@ -25,6 +25,7 @@ from time import perf_counter
 from typing import Any
 
 import numpy as np
+import pyarrow as pa
 
 from ..errors import BigPanelError
 from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_schur, plan_draws, wild_tests)
@@ -91,7 +92,8 @@ def _tested(names: list[str], test: list[str] | None) -> list[int]:
     return [names.index(name) for name in dict.fromkeys(test)]
 
 
-def _cross_effects(session: Session, ab: Absorption, boot: int, keys: Any) -> tuple[CrossEffects | None, list[str]]:
+def _cross_effects(session: Session, ab: Absorption, boot: int,
+                   keys: pa.Array) -> tuple[CrossEffects | None, list[str]]:
     """The effects that cut across the bootstrap clusters, when the exact treatment applies."""
     spec, red = session.spec, ab.red
     dims = [d for d in range(len(spec.fe)) if not red.nested[d][boot]]
