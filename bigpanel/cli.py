@@ -293,6 +293,10 @@ def fit_command(
     test: Optional[List[str]] = typer.Option(
         None, "--test", metavar="NAME", help="Regressor to bootstrap; repeat for more (default: every slope)."
     ),
+    bootstrap_interval: bool = typer.Option(
+        False, "--bootstrap-interval", metavar="",
+        help="Also a 95% interval for each tested slope by inverting the bootstrap test (about 50 bootstraps each).",
+    ),
     bootstrap_cluster: Optional[str] = typer.Option(
         None, "--bootstrap-cluster", metavar="COL",
         help="With several --cluster columns, the one whose clusters are resampled (default: fewest clusters).",
@@ -313,6 +317,7 @@ def fit_command(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
             weights=weights, on_step=on_step, wild_bootstrap=wild_bootstrap, draws=draws,
             bootstrap_weights=bootstrap_weights, seed=seed, test=test or None, bootstrap_cluster=bootstrap_cluster,
+            bootstrap_interval=bootstrap_interval,
             effect_errors=effects_out is not None,
         )
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}

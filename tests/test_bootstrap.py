@@ -47,18 +47,18 @@ def sign_vectors(g: int) -> np.ndarray:
     return 1.0 - 2.0 * ((i[:, None] >> np.arange(g)[None, :]) & 1)
 
 
-def brute_force_t(df, xs, fe, cluster, k, vs, weights=None, factors=None):
-    """t* of H0: b_k = 0 for each weight vector (rows of ``vs``, one weight per cluster in sorted key
-    order), by refitting the dummy regression; multi-way clusters by inclusion-exclusion (each term
-    with the CR1 factor given and negative eigenvalues set to zero)."""
+def brute_force_t(df, xs, fe, cluster, k, vs, weights=None, factors=None, value=0.0):
+    """t* of H0: b_k = ``value`` for each weight vector (rows of ``vs``, one weight per cluster in sorted
+    key order), by refitting the dummy regression; multi-way clusters by inclusion-exclusion (each
+    term with the CR1 factor given and negative eigenvalues set to zero)."""
     z = np.hstack([df[xs].to_numpy(float), dummy_block(df, fe)])
     y = df["y"].to_numpy(float)
     w = np.ones(len(y)) if weights is None else df[weights].to_numpy(float)
     sw = np.sqrt(w)
     clusters = [cluster] if isinstance(cluster, str) else list(cluster)
     others = [j for j in range(z.shape[1]) if j != k]
-    c_r = np.linalg.lstsq(z[:, others] * sw[:, None], y * sw, rcond=None)[0]
-    fit_r = z[:, others] @ c_r
+    c_r = np.linalg.lstsq(z[:, others] * sw[:, None], (y - value * z[:, k]) * sw, rcond=None)[0]
+    fit_r = z[:, others] @ c_r + value * z[:, k]
     u_r = y - fit_r
     boot = np.searchsorted(np.sort(df[clusters[0]].unique()), df[clusters[0]].to_numpy())
     terms = [(0,)] if len(clusters) == 1 else [(0,), (1,), (0, 1)]
@@ -76,7 +76,7 @@ def brute_force_t(df, xs, fe, cluster, k, vs, weights=None, factors=None):
     if len(terms) > 1:
         eig, vec = np.linalg.eigh((var + var.transpose(0, 2, 1)) / 2)
         var = (vec * np.maximum(eig, 0)[:, None, :]) @ vec.transpose(0, 2, 1)
-    return b[:, k] / np.sqrt(var[:, k, k])
+    return (b[:, k] - value) / np.sqrt(var[:, k, k])
 
 
 def p_value(t_draws: np.ndarray) -> float:
@@ -212,6 +212,7 @@ def test_monte_carlo_bootstrap_holds_its_size_where_cr1_over_rejects():
     (dict(cluster="state", wild_bootstrap=True, draws=10), "at least 99 draws"),
     (dict(cluster="state", wild_bootstrap=True, bootstrap_weights="normal"), "choose one of rademacher, webb"),
     (dict(cluster="state", seed=3), "--seed applies to the wild bootstrap"),
+    (dict(cluster="state", bootstrap_interval=True), "--bootstrap-interval applies to the wild bootstrap"),
     (dict(cluster="state", wild_bootstrap=True, bootstrap_cluster="unit"), "not among the --cluster columns"),
     (dict(cluster=["state", "period"], fe=["unit", "period"], wild_bootstrap=True, bootstrap_cluster="state"),
      "with several cluster columns every effect must be nested"),
@@ -231,6 +232,7 @@ def test_tested_subset_and_report(to_parquet):
     text = " ".join(res.summary().split())
     assert "bootstrap p" in text and "wild cluster bootstrap-t" in text
     assert "199 draws of Webb weights" in text and "seed 1" in text
+    assert "intervals by inverting" not in text
 
 
 def test_command_line_and_model_table(to_parquet, tmp_path):
@@ -244,9 +246,12 @@ def test_command_line_and_model_table(to_parquet, tmp_path):
     saved = [tmp_path / "boot.json", tmp_path / "plain.json"]
     out = runner.invoke(app, ["fit", path, "y ~ x1 + x2", "--fe", "unit", "--cluster", "state", "--wild-bootstrap",
                               "--draws", "499", "--bootstrap-weights", "rademacher", "--seed", "7", "--test", "x1",
-                              "--save", str(saved[0])])
+                              "--bootstrap-interval", "--save", str(saved[0])])
     assert out.exit_code == 0, out.output
+    assert "95% intervals by inverting the bootstrap test: x1 [" in " ".join(out.stdout.split())
     doc = json.loads(saved[0].read_text())
+    x1 = doc["coefficients"]["x1"]
+    assert x1["bootstrap_ci_low"] < x1["estimate"] < x1["bootstrap_ci_high"]
     assert doc["bootstrap"]["draws"] == 499 and doc["bootstrap"]["seed"] == 7 and not doc["bootstrap"]["enumerated"]
     assert runner.invoke(app, ["fit", path, "y ~ x1 + x2", "--fe", "unit", "--save", str(saved[1])]).exit_code == 0
     table = runner.invoke(app, ["table", *map(str, saved), "--to", "markdown"]).stdout
@@ -257,3 +262,20 @@ def test_command_line_and_model_table(to_parquet, tmp_path):
     bad = runner.invoke(app, ["fit", path, "y ~ x1", "--fe", "unit", "--cluster", "state", "--wild-bootstrap",
                               "--bootstrap-weights", "gauss"])
     assert bad.exit_code == 2
+
+
+def test_interval_bounds_are_where_the_brute_force_test_starts_to_reject(to_parquet):
+    # The brute-force bootstrap test of b = b0 (every sign vector, the dummy regression refitted)
+    # rejects at 5% just outside each bound and not just inside it (1e-4 standard errors away;
+    # the bounds are bisected to 1e-6).
+    df = state_panel(seed=12)
+    res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe=["unit", "period"], cluster="state", wild_bootstrap=True,
+                       bootstrap_weights="rademacher", bootstrap_interval=True)
+    vs = sign_vectors(10)
+    for k, name in enumerate(["x1", "x2"]):
+        coef = res.to_dict()["coefficients"][name]
+        step = 1e-4 * coef["std_error"]
+        for bound, outward in ((coef["bootstrap_ci_low"], -1), (coef["bootstrap_ci_high"], 1)):
+            outside, inside = (p_value(brute_force_t(df, ["x1", "x2"], ["unit", "period"], "state", k, vs,
+                                                     value=bound + sign * step)) for sign in (outward, -outward))
+            assert outside < 0.05 <= inside

@@ -28,7 +28,8 @@ import numpy as np
 import pyarrow as pa
 
 from ..errors import BigPanelError
-from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_schur, plan_draws, wild_tests)
+from ..numerics.bootstrap import ClusterSums, CrossEffects, cut_across_schur, plan_draws, wild_tests
+from ..numerics.bootstrap_interval import inverted_interval
 from ..numerics.inference import Inference, cluster_factor
 from ..numerics.solve import Slopes
 from ..passes.moments import cluster_sets
@@ -36,8 +37,9 @@ from ..passes.reduce import CELL_BYTES, pair_tables
 from .absorb import Absorption
 from .base import Session
 
+# the within estimator's bootstrap options and their defaults
 BOOTSTRAP_OPTIONS = {"wild_bootstrap": False, "draws": None, "bootstrap_weights": None, "seed": None, "test": None,
-                     "bootstrap_cluster": None}  # the within estimator's bootstrap options and their defaults
+                     "bootstrap_cluster": None, "bootstrap_interval": False}
 DEFAULT_DRAWS = 9_999
 MAX_CLUSTERS = 10_000  # bootstrap clusters: the draws cost G x K^2 each; beyond this CR1 needs no rescue
 MAX_CELLS = 1_000_000  # multi-way: cells of the finest combination of cluster columns held per draw block
@@ -48,26 +50,31 @@ MAX_CROSS_PAIRS = 10_000_000  # clusters x those levels: the G x T x m sums held
 @dataclass(frozen=True)
 class BootstrapOptions:
     """``draws`` (None: no bootstrap), ``weights`` (rademacher, webb or None for the default),
-    ``seed``, the regressors to ``test`` (None: all) and the bootstrap ``cluster`` column."""
+    ``seed``, the regressors to ``test`` (None: all), the bootstrap ``cluster`` column and whether
+    to add the ``interval`` that inverts the test."""
 
     draws: int | None
     weights: str | None
     seed: int | None
     test: list[str] | None
     cluster: str | None
+    interval: bool = False
 
     @classmethod
     def checked(cls, wild_bootstrap: bool, draws: int | None, bootstrap_weights: str | None, seed: int | None,
-                test: str | list[str] | None, bootstrap_cluster: str | None) -> BootstrapOptions:
+                test: str | list[str] | None, bootstrap_cluster: str | None,
+                bootstrap_interval: bool) -> BootstrapOptions:
         asked = [name for name, v in (("--draws", draws), ("--bootstrap-weights", bootstrap_weights),
-                                      ("--seed", seed), ("--test", test), ("--bootstrap-cluster", bootstrap_cluster))
+                                      ("--seed", seed), ("--test", test), ("--bootstrap-cluster", bootstrap_cluster),
+                                      ("--bootstrap-interval", bootstrap_interval or None))
                  if v is not None]
         if not wild_bootstrap:
             if asked:
                 raise BigPanelError(f"{asked[0]} applies to the wild bootstrap: add --wild-bootstrap")
             return cls(None, None, None, None, None)
         tests = [test] if isinstance(test, str) else (list(test) if test else None)
-        return cls(DEFAULT_DRAWS if draws is None else int(draws), bootstrap_weights, seed, tests, bootstrap_cluster)
+        return cls(DEFAULT_DRAWS if draws is None else int(draws), bootstrap_weights, seed, tests, bootstrap_cluster,
+                   bool(bootstrap_interval))
 
 
 def _dimension(session: Session, inf: Inference, chosen: str | None) -> int:
@@ -124,8 +131,9 @@ def _cross_effects(session: Session, ab: Absorption, boot: int,
 
 
 def wild_bootstrap(session: Session, ab: Absorption, slopes: Slopes, inf: Inference, names: list[str],
-                   opts: BootstrapOptions) -> tuple[dict[str, Any], dict[str, float]]:
-    """Run the bootstrap: the JSON section ``bootstrap`` and each tested coefficient's p-value."""
+                   opts: BootstrapOptions) -> tuple[dict[str, Any], dict[str, dict[str, float]]]:
+    """Run the bootstrap: the JSON section ``bootstrap`` and each tested coefficient's p-value (and
+    interval, when asked)."""
     spec, started, passes = session.spec, perf_counter(), ab.back.raw_passes
     boot = _dimension(session, inf, opts.cluster)
     g = inf.clusters[spec.cluster[boot]]
@@ -144,12 +152,21 @@ def wild_bootstrap(session: Session, ab: Absorption, slopes: Slopes, inf: Infere
     factors = [cluster_factor(len(np.unique(cells.codes[:, list(t)], axis=0)), ab.mom.n, k, ab.absorbed, t)
                for t in terms]
     sums = ClusterSums(cells.q, cells.codes, boot, terms, factors, cross)
-    results = {names[r.k]: r for r in wild_tests(sums, slopes.keep, slopes.bread, tested, inf.t, draws)}
+    per_coefficient = {names[r.k]: {"bootstrap_p_value": r.p_value}
+                       for r in wild_tests(sums, slopes.keep, slopes.bread, tested, inf.t, draws)}
+    if opts.interval:
+        for i in tested:
+            se = float(inf.std_error[i])
+            low, high = inverted_interval(sums, slopes.keep, slopes.bread, i, float(slopes.beta[i]), se,
+                                          float(inf.ci_high[i] - slopes.beta[i]) / se, draws)
+            per_coefficient[names[i]].update(bootstrap_ci_low=low, bootstrap_ci_high=high)
     section = {
         "method": "restricted wild cluster bootstrap-t (null b = 0 imposed), symmetric p-values",
         "draws": draws.count, "weights": draws.kind, "enumerated": draws.enumerated, "seed": draws.seed,
         "dimension": spec.cluster[boot], "clusters": g, "tested": [names[i] for i in tested],
         "effects_cutting_across": cut,
         "extra_passes": ab.back.raw_passes - passes, "seconds": round(perf_counter() - started, 4),
+        "interval": "95%, the values b0 whose bootstrap test of b = b0 is not rejected at 5%" if opts.interval
+        else None,
     }
-    return section, {name: r.p_value for name, r in results.items()}
+    return section, per_coefficient

@@ -63,8 +63,8 @@ class Within(Estimator):
         res.extras["effect_errors"] = errors
         if bootstrap is not None:
             res.extras["bootstrap"] = bootstrap[0]
-            for name, p in bootstrap[1].items():
-                res.per_coefficient.setdefault(name, {})["bootstrap_p_value"] = p
+            for name, values in bootstrap[1].items():
+                res.per_coefficient.setdefault(name, {}).update(values)
         return res
 
     def _slopes(self, session: Session, ab: Absorption) -> tuple[Slopes, str]:

@@ -254,16 +254,21 @@ class BootstrapTest:
     t_draws: np.ndarray
 
 
+def block_size(sums: ClusterSums, keep: list[int]) -> int:
+    """Weight vectors per block, so that a block holds about ``BLOCK_CELLS`` numbers."""
+    h = len(sums.q)
+    per_draw = h + sums.clusters if len(sums.terms) == 1 else 2 * h * max(len(keep), 1)
+    return max(16, BLOCK_CELLS // per_draw)
+
+
 def wild_tests(sums: ClusterSums, keep: list[int], bread: np.ndarray, tested: list[int], t_fit: np.ndarray,
                draws: Draws) -> list[BootstrapTest]:
     """The restricted wild cluster bootstrap-t p-values of H0: b_k = 0 for every k in ``tested``
     (``t_fit[k]`` the fit's t), all from the same draws, made once (module docstring)."""
     total = sums.q.sum(axis=0)
     scores = [WildScores(sums, keep, bread, restricted(total, keep, k)) for k in tested]
-    h = len(sums.q)
-    per_draw = h + sums.clusters if len(sums.terms) == 1 else 2 * h * max(len(keep), 1)  # numbers held per draw
     t_draws: list[list[np.ndarray]] = [[] for _ in tested]
-    for v in draws.blocks(max(16, BLOCK_CELLS // per_draw)):
+    for v in draws.blocks(block_size(sums, keep)):
         for out, sc in zip(t_draws, scores):
             out.append(sc.t(v))
     results = []

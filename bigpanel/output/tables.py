@@ -170,7 +170,7 @@ def _records(fits: list[dict[str, Any]], header: Row) -> list[dict[str, Any]]:
             out.append({
                 "model": label, "outcome": fit.get("outcome"), "term": term,
                 **{key: coef.get(key) for key in ("estimate", "std_error", "t", "p_value", "ci_low", "ci_high",
-                                                  "bootstrap_p_value")},
+                                                  "bootstrap_p_value", "bootstrap_ci_low", "bootstrap_ci_high")},
                 "nobs": fit["nobs"], "variance": vcov.get("type"),
                 "cluster": vcov.get("cluster"), "clusters": vcov.get("clusters"),
                 "r2_full_model": stats.get("r2_full_model"), "r2_within": stats.get("r2_within"),

@@ -72,6 +72,11 @@ def _bootstrap(res: FitResult, lines: Text) -> None:
            else f"{_n(b['draws'])} draws of {b['weights'].capitalize()} weights, seed {b['seed']}")
     lines.append(f"restricted wild cluster bootstrap-t of each slope = 0, resampling the {_n(b['clusters'])} "
                  f"clusters of {b['dimension']}: {how}")
+    bounds = [(n, c["bootstrap_ci_low"], c["bootstrap_ci_high"]) for n, c in res.per_coefficient.items()
+              if "bootstrap_ci_low" in c]
+    if bounds:
+        lines.append("; 95% intervals by inverting the bootstrap test: "
+                     + ", ".join(f"{n} [{_g(lo, 5)}, {_g(hi, 5)}]" for n, lo, hi in bounds))
     cut = b["effects_cutting_across"]
     if cut:
         lines.append(f"; the effects of {', '.join(cut)} cut across these clusters and enter every draw exactly "
