@@ -135,7 +135,7 @@ class FitResult:
     warnings: list[str] = field(default_factory=list)
     timings: dict[str, float] = field(default_factory=dict)
     extras: dict[str, Any] = field(default_factory=dict)
-    per_coefficient: dict[str, dict[str, Any]] = field(default_factory=dict)  # more keys for a coefficient's JSON
+    per_coefficient: dict[str, dict[str, float]] = field(default_factory=dict)  # more numbers in a coefficient's JSON
 
     @property
     def params(self) -> dict[str, float]:
@@ -201,7 +201,7 @@ class FitResult:
                 "p_value": number(inf.p[i]),
                 "ci_low": number(inf.ci_low[i]),
                 "ci_high": number(inf.ci_high[i]),
-                **self.per_coefficient.get(name, {}),
+                **{key: number(v) for key, v in self.per_coefficient.get(name, {}).items()},
             }
             for i, name in enumerate(self.names)
         }
