@@ -2,13 +2,15 @@
 
     python benchmarks/run.py                      # 10M, 50M and 200M rows of every shape (about 40 minutes)
     python benchmarks/run.py --sizes 1e7          # a quick look
+    python benchmarks/run.py --configs bootstrap --sizes 1e7,5e7   # the wild bootstrap's cost at 50 clusters
 
 Panels (all invented, generated once and cached under benchmarks/data/):
 
 * demo: the retail demo, store x product x week (pairs of levels compress);
 * store-week: one row per store and week (shape a);
 * store-week-supplier: the same plus a supplier effect of ~1,000 levels across rows (shape b);
-* staff: employee x store x year with job spells (shape c).
+* staff: employee x store x year with job spells (shape c);
+* store-week-region: store-week with 50 regions as clusters (the ``bootstrap`` group).
 
 Every measurement runs in a fresh child process (bigpanel.bench.measure): wall time
 inside the child, peak resident memory of the child. "scan" is one plain DuckDB
@@ -41,7 +43,8 @@ from bigpanel.shapes import SHAPES, write_shape
 
 HERE = Path(__file__).resolve().parent
 DEMO_FORMULA = "log_units ~ log_price + promo"
-# (panel, effects, cluster column or None): the configurations measured at every size, by group.
+BOOTSTRAP = {"wild_bootstrap": True, "draws": 9_999, "seed": 1}
+# (panel, effects, cluster column or None[, more fit options]): the configurations measured at every size, by group.
 CONFIGS = {
     "main": [
         ("demo", ["store"], None),
@@ -56,6 +59,17 @@ CONFIGS = {
     "one-way": [  # one effect on a panel without missing values: the one-pass fit
         ("store-week", ["store"], None),
         ("store-week", ["store"], "store"),
+    ],
+    "bootstrap": [  # 50 clusters, each fit without and with 9,999 wild bootstrap draws (Rademacher weights, the
+        # default above 12 clusters); store effects nested in the regions (no pass: the draws only), then week
+        # effects cutting across them (the passes of the exact treatment: per (cluster, level) sums, pair tables)
+        ("store-week-region", ["store"], "region"),
+        ("store-week-region", ["store"], "region", BOOTSTRAP),
+        ("store-week-region", ["store", "week"], "region"),
+        ("store-week-region", ["store", "week"], "region", BOOTSTRAP),
+        # the demo's 12 regions: products and weeks cut across them, on pair tables (no pair pass)
+        ("demo", ["store", "product", "week"], "region"),
+        ("demo", ["store", "product", "week"], "region", BOOTSTRAP),
     ],
     "row-codes": [  # the row-codes configurations of the main group but staff (a rerun after a fix)
         ("store-week", ["store", "week"], None),
@@ -89,8 +103,10 @@ def formula(name: str) -> str:
 
 
 def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
-    name, fe, cluster = config
+    name, fe, cluster, *more = config
     rec = {"rows": rows, "panel": name, "effects": fe, "cluster": cluster, "what": what, "ok": out["ok"]}
+    if more:
+        rec["options"] = more[0]
     if not out["ok"]:
         rec["error"] = out["error"]
         return rec
@@ -100,6 +116,8 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     if what != "scan":
         rec["coefficients"] = {n: c["estimate"] for n, c in res["coefficients"].items()}
         rec["iterations"] = res["solver"]["iterations"]
+    if what == "fit" and "bootstrap" in res:
+        rec["bootstrap_seconds"] = res["bootstrap"]["seconds"]
     if what == "fit":
         s = res["solver"]
         rec.update(strategy=s["strategy"]["name"], reason=s["strategy"]["reason"], converged=s["converged"],
@@ -116,11 +134,12 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
     plan = [(rows, config) for rows in sizes for config in CONFIGS[group]]
     plan += [(rows, config) for rows in large for config in CONFIGS[group] if config[0] == "store-week"]
     for rows, config in plan:
-        name, fe, cluster = config
+        name, fe, cluster, *more = config
         path = panel_file(name, rows, data_dir)
         model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
         steps = [("scan", model, None),
-                 ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
+                 ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill), **(more[0] if more else {})},
+                  None)]
         fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
         if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
             if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
@@ -136,7 +155,8 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
 
 def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
-    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}"
+    boot = f", wild bootstrap {rec['options']['draws']:,}" if "wild_bootstrap" in rec.get("options", {}) else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{boot}"
 
 
 def warm_scan(records: list[dict], rec: dict) -> dict | None:
@@ -179,7 +199,25 @@ def summarise(records: list[dict]) -> dict:
         if len(pts) >= 2:
             x, y = np.log([p[0] for p in pts]), np.log([p[1] for p in pts])
             out["loglog_slope"][key] = round(float(np.polyfit(x, y, 1)[0]), 3)
+    out.update(bootstrap_overhead(ok))
     return out
+
+
+def bootstrap_overhead(ok: list[dict]) -> dict:
+    """For each fit with the wild bootstrap, the time it adds to the same fit without: the share of
+    the plain fit's time, in total and for the bootstrap step alone (its draws and its passes)."""
+    out: dict = {}
+    for rec in ok:
+        if rec["what"] != "fit" or "bootstrap_seconds" not in rec:
+            continue
+        plain = next((r for r in ok if r["what"] == "fit" and "options" not in r and r["rows"] == rec["rows"]
+                      and r["panel"] == rec["panel"] and r["effects"] == rec["effects"]
+                      and r["cluster"] == rec["cluster"]), None)
+        if plain:
+            out[f"{_key(rec)} @ {rec['rows']:,}"] = {
+                "added_share": round(rec["seconds"] / plain["seconds"] - 1, 3),
+                "bootstrap_step_share": round(rec["bootstrap_seconds"] / plain["seconds"], 3)}
+    return {"bootstrap_overhead": out} if out else {}
 
 
 def table(result: dict) -> Table:
@@ -220,7 +258,7 @@ def markdown(result: dict) -> str:
 
 
 def plot(result: dict, path: Path) -> None:
-    from bigpanel.plots import pyplot, save_figure
+    from bigpanel.output.plots import pyplot, save_figure
 
     plt = pyplot()
     fig, (ax_t, ax_m) = plt.subplots(1, 2, figsize=(12, 4.6))

@@ -23,7 +23,7 @@ from rich.text import Text
 from .command import interrupted
 from .engines.registry import ENGINES
 from .errors import BigPanelError
-from .options import ESTIMATORS, SINGLETONS, VARIANCE_TYPES
+from .options import BOOTSTRAP_WEIGHTS, ESTIMATORS, SINGLETONS, VARIANCE_TYPES
 from .output.tables import RENDERERS
 
 # Only typer, rich and the light modules above load at start: the commands import the
@@ -55,6 +55,7 @@ Singletons = _choices("Singletons", SINGLETONS)
 Estimator = _choices("Estimator", ESTIMATORS)
 EngineName = _choices("EngineName", ENGINES)
 TableFormat = _choices("TableFormat", RENDERERS)
+BootstrapWeights = _choices("BootstrapWeights", BOOTSTRAP_WEIGHTS)
 
 
 def _plain_argument(param: TyperArgument) -> None:
@@ -295,6 +296,31 @@ def fit_command(
         None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect.", metavar="DIR"
     ),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    wild_bootstrap: bool = typer.Option(
+        False, "--wild-bootstrap", metavar="",
+        help="Add restricted wild cluster bootstrap p-values (null: slope = 0) to the CR1 t tests; needs --cluster.",
+    ),
+    draws: Optional[int] = typer.Option(
+        None, "--draws", metavar="B",
+        help="Bootstrap draws (default 9999); with Rademacher weights and 2^G <= B all 2^G sign vectors are used.",
+    ),
+    bootstrap_weights: Optional[BootstrapWeights] = typer.Option(
+        None, "--bootstrap-weights", help="rademacher or webb (default: webb with 12 clusters or fewer)."
+    ),
+    seed: Optional[int] = typer.Option(
+        None, "--seed", metavar="S", help="Seed of the bootstrap weights (default: drawn and reported)."
+    ),
+    test: Optional[List[str]] = typer.Option(
+        None, "--test", metavar="NAME", help="Regressor to bootstrap; repeat for more (default: every slope)."
+    ),
+    bootstrap_interval: bool = typer.Option(
+        False, "--bootstrap-interval", metavar="",
+        help="Also a 95% interval for each tested slope by inverting the bootstrap test (about 50 bootstraps each).",
+    ),
+    bootstrap_cluster: Optional[str] = typer.Option(
+        None, "--bootstrap-cluster", metavar="COL",
+        help="With several --cluster columns, the one whose clusters are resampled (default: fewest clusters).",
+    ),
 ) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
@@ -309,7 +335,10 @@ def fit_command(
     with progress(quiet or json_out) as on_step:
         res = run_fit(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
-            weights=weights, on_step=on_step,
+            weights=weights, on_step=on_step, wild_bootstrap=wild_bootstrap, draws=draws,
+            bootstrap_weights=bootstrap_weights, seed=seed, test=test or None, bootstrap_cluster=bootstrap_cluster,
+            bootstrap_interval=bootstrap_interval,
+            effect_errors=effects_out is not None,
         )
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]
@@ -349,6 +378,8 @@ def effects_command(
 
     Normalisation: one effect holds the intercept (mean_g(y) - mean_g(x)'b); with more, effect 2 has
     row-weighted mean zero in each connected component and effects 3+ row-weighted mean zero.
+    One effect also gets standard errors (classical; CR1 too with --cluster when its levels span clusters);
+    with more, levels are identified only up to the normalisation and get none.
     Example: bigpanel effects sales.parquet 'log_units ~ log_price + promo' --fe store --fe week --out fx/ --plot fx.png
     """
     from .api import fit as run_fit
@@ -357,7 +388,7 @@ def effects_command(
 
     _check_outputs(model, {"--plot": plot}, out_dir)
     with progress(quiet) as on_step:
-        res = run_fit(**model, on_step=on_step)
+        res = run_fit(**model, on_step=on_step, effect_errors=True)
     files = _effect_files(Path(out_dir), list(res.effects))
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items()]
     if plot is not None:
@@ -373,6 +404,10 @@ def effects_command(
         table.add_row(Text(name), f"{s['levels']:,}", f"{s['mean']:.4g}", sd, f"{s['min']:.4g}", f"{s['max']:.4g}",
                       Text(str(path)))
     out.print(table)
+    notes = res.extras.get("effect_errors", {})
+    for key in ("std_error", "std_error_clustered", "note"):
+        if key in notes:
+            out.print(f"{key.replace('_', ' ')}: {notes[key]}", highlight=False, markup=False, emoji=False)
     if plot is not None:
         out.print(f"histograms: {plot}", highlight=False, markup=False, emoji=False)
 

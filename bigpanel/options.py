@@ -7,6 +7,7 @@ from collections.abc import Sequence
 ESTIMATORS = ("within", "between", "first-difference", "random-effects")
 VARIANCE_TYPES = ("classical", "hc1", "cr1")
 SINGLETONS = ("drop", "keep")
+BOOTSTRAP_WEIGHTS = ("rademacher", "webb")
 
 
 def as_list(value: str | Sequence[str] | None) -> list[str]:

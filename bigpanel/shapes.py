@@ -3,6 +3,8 @@
 * ``store-week``: one row per store and week, 150 weeks, about 3% of cells missing;
 * ``store-week-supplier``: the same plus a supplier effect of about 1,000 levels that
   cuts across stores and weeks;
+* ``store-week-region``: store-week plus a ``region`` column (50 regions, stores nested in
+  them), the clusters of the wild bootstrap's benchmark;
 * ``staff``: employee x store x year with job spells (employee x store pairs compress,
   employee x year pairs do not).
 
@@ -21,6 +23,7 @@ from .sql.text import literal, render
 
 WEEKS = 150
 SUPPLIERS = 1_000
+REGIONS = 50
 YEARS = 10
 STAFF_PER_STORE = 25
 
@@ -42,6 +45,9 @@ SHAPES = {
     "store-week-supplier": Shape("store-week-supplier", "log_sales ~ log_price + promo_share + staff_hours",
                                  ("store", "week", "supplier"), "store",
                                  {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
+    "store-week-region": Shape("store-week-region", "log_sales ~ log_price + promo_share + staff_hours",
+                               ("store", "week"), "store",
+                               {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "staff": Shape("staff", "log_wage ~ log_hours + training + overtime", ("employee", "store", "year"), "employee",
                    {"log_hours": 0.6, "training": 0.3, "overtime": -0.2}),
 }
@@ -65,7 +71,11 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                 supplier = name == "store-week-supplier"
                 cells = int(rows / 0.97) // WEEKS * WEEKS
                 params = {"cells": cells, "weeks": WEEKS, "seed": seed, "suppliers": SUPPLIERS}
+                region = name == "store-week-region"
+                if region:
+                    params["regions"] = REGIONS
                 sql = render("shape_store_week", path=literal(str(tmp)),
+                             region_column="CAST(s % $regions + 1 AS SMALLINT) AS region," if region else "",
                              supplier_column="CAST(supplier + 1 AS SMALLINT) AS supplier," if supplier else "",
                              supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "")
                 con.execute(sql, params).fetchall()

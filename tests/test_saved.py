@@ -47,6 +47,8 @@ CASES = {
     "first differences": dict(formula="y ~ x1 + x2", fe="unit", estimator="first-difference", time="period"),
     "random effects, hausman": dict(formula="y ~ x1 + x2", fe="unit", estimator="random-effects", hausman=True),
     "max_iter 0 (not converged)": dict(formula="y ~ x1", fe=["unit", "period"], max_iter=0),
+    "wild bootstrap with interval": dict(formula="y ~ x1", fe="unit", cluster="region", wild_bootstrap=True,
+                                         draws=199, seed=3, bootstrap_interval=True),
 }
 
 

@@ -18,6 +18,7 @@ from scipy import sparse
 
 from ..engines.base import Engine
 from ..errors import BigPanelError
+from ..passes.bootstrap import Cells, PairSums, coded
 from ..passes.moments import ClusterTerm
 from ..passes.moments import Moments, cluster_sets
 from ..numerics.project import Projection, components, solve_effects
@@ -203,6 +204,30 @@ class MemoryBackend:
             scores = np.column_stack([np.bincount(codes, weights=u * x[:, j], minlength=g) for j in range(x.shape[1])])
             terms.append(ClusterTerm(cols, g, scores.T @ scores))
         return terms
+
+    def cluster_cells(self) -> Cells:
+        """The wild bootstrap's per-cell cross-products (see :mod:`bigpanel.passes.bootstrap`)."""
+        codes, keys = coded([self.rows.column(a).combine_chunks() for a in self.spec.cluster_aliases])
+        cells, cell = np.unique(codes, axis=0, return_inverse=True)
+        cell = cell.ravel()
+        m = self.e.shape[1]
+        q = np.zeros((len(cells), m, m))
+        for i in range(m):
+            for j in range(i, m):
+                q[:, i, j] = q[:, j, i] = np.bincount(cell, weights=self.w * self.e[:, i] * self.e[:, j])
+        return Cells(q, cells, keys)
+
+    def cross_sums(self, boot: int, keys: pa.Array, dims: list[int]) -> PairSums:
+        """Per (cluster of column ``boot``, level of the effects ``dims``) sums of the demeaned columns."""
+        cluster = self.clusters[boot]
+        offsets = np.concatenate([[0], np.cumsum([int(self.codes[d].max()) + 1 for d in dims])])
+        parts = []
+        for d, at in zip(dims, offsets):
+            pairs, pair = np.unique(cluster * offsets[-1] + at + self.codes[d], return_inverse=True)
+            sums = np.column_stack([np.bincount(pair.ravel(), weights=self.w * self.e[:, j])
+                                    for j in range(self.e.shape[1])])
+            parts.append((pairs // offsets[-1], pairs % offsets[-1], sums))
+        return PairSums(*(np.concatenate(p) for p in zip(*parts)), len(keys), int(offsets[-1]))
 
     def level_keys(self, d: int) -> pa.Table:
         return self.keys[d]

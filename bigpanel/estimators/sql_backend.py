@@ -6,6 +6,7 @@ import numpy as np
 import pyarrow as pa
 
 from ..engines.base import Engine
+from ..passes.bootstrap import Cells, PairSums, cluster_cells, cross_sums
 from ..passes.moments import ClusterTerm
 from ..passes.moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
                       store_effects)
@@ -128,6 +129,15 @@ class SqlBackend:
 
     def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
         return meat_cluster(self.eng, self.spec, keep, beta)
+
+    def cluster_cells(self) -> Cells:
+        """The wild bootstrap's per-cell cross-products (see :mod:`bigpanel.passes.bootstrap`)."""
+        return cluster_cells(self.eng, self.spec)
+
+    def cross_sums(self, boot: int, keys: pa.Array, dims: list[int]) -> PairSums:
+        """Per (cluster of column ``boot``, level of the effects ``dims``) sums of the demeaned columns: a pass."""
+        self._demeaned()
+        return cross_sums(self.eng, self.spec, boot, keys, dims, [len(self.red.counts[d]) for d in dims])
 
     def rss(self, keep: list[int], beta: np.ndarray) -> float:
         """The residual sum of squares from a pass over the demeaned rows."""

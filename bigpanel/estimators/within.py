@@ -22,6 +22,8 @@ from ..passes.reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES
 from ..results.result import EffectInfo, FitResult, FitStatistics, SolverReport
 from .absorb import Absorption, Projections, absorb
 from .base import Estimator, Session, cluster_warnings, opened, row_counts
+from .bootstrap import BOOTSTRAP_OPTIONS, BootstrapOptions, wild_bootstrap
+from .effect_errors import effect_errors
 
 PATHS = {
     ONE_WAY: "exact one-way demeaning",
@@ -34,23 +36,36 @@ PATHS = {
 class Within(Estimator):
     """Slopes of the regression with a dummy for every level of every effect (LSDV), computed
     without the dummies; ``singletons`` (``drop`` or ``keep``), the stopping rule ``tol`` and
-    ``max_iter`` of the projections, the Python-side budget ``cell_budget`` and a forced
-    ``strategy`` (tests, benchmarks) are its own options."""
+    ``max_iter`` of the projections, the Python-side budget ``cell_budget``, a forced
+    ``strategy`` (tests, benchmarks), ``effect_errors`` (clustered standard errors of a single
+    effect's levels) and the wild bootstrap's options (:mod:`.bootstrap`) are its own options."""
 
     name = "within"
-    options = {"tol": 1e-8, "max_iter": 10_000, "singletons": "drop", "cell_budget": None, "strategy": None}
+    options = {"tol": 1e-8, "max_iter": 10_000, "singletons": "drop", "cell_budget": None, "strategy": None,
+               "effect_errors": False, **BOOTSTRAP_OPTIONS}
     in_memory = True
 
     def fit(self) -> FitResult:
-        how = Projections.checked(**self.settings)
+        how = Projections.checked(**{k: self.settings[k] for k in ("tol", "max_iter", "singletons", "cell_budget",
+                                                                  "strategy")})
+        boot = BootstrapOptions.checked(**{k: self.settings[k] for k in BOOTSTRAP_OPTIONS})
         with opened(self.request) as session:
             ab = absorb(session, how, in_memory=self.request.engine == "memory")
             slopes, rss_from = self._slopes(session, ab)
             inf = self._inference(session, ab, slopes)
+            names = [([session.spec.y, *session.spec.x])[j] for j in slopes.keep]
+            bootstrap = wild_bootstrap(session, ab, slopes, inf, names, boot) if boot.draws else None
             fx = recover(ab.proj, ab.red.counts, slopes.keep, slopes.beta, ab.first.shift, ab.labels)
             effects = effect_tables(session.spec, ab.back.level_keys, fx, ab.red.rows)
+            effects, errors = effect_errors(session, ab, slopes, inf, effects, bool(self.settings["effect_errors"]))
             solver = self._solver(session, ab, slopes, rss_from)
-        return self._result(session, ab, slopes, inf, solver, effects)
+        res = self._result(session, ab, slopes, inf, solver, effects)
+        res.extras["effect_errors"] = errors
+        if bootstrap is not None:
+            res.extras["bootstrap"] = bootstrap[0]
+            for name, values in bootstrap[1].items():
+                res.per_coefficient.setdefault(name, {}).update(values)
+        return res
 
     def _slopes(self, session: Session, ab: Absorption) -> tuple[Slopes, str]:
         """Slopes from E'WE, and the RSS (from a residual pass when the cross-products cancel)."""

@@ -79,6 +79,11 @@ def with_variance(inf: Inference, beta: np.ndarray, vcov: np.ndarray, tested: li
                    f_df=(float(len(tested)), inf.df), f_p=f_p)
 
 
+def cluster_factor(g: int, n: int, k: int, absorbed: Absorbed, columns: tuple[int, ...]) -> float:
+    """The CR1 factor G/(G - 1) * (N - 1)/(N - K - P_c) of one combination of cluster columns."""
+    return (g / (g - 1)) * ((n - 1) / (n - k - absorbed.cluster_total(columns)))
+
+
 def _cluster_sandwich(bread: np.ndarray, n: int, k: int, absorbed: Absorbed, terms: list[ClusterTerm],
                       names: tuple[str, ...]) -> tuple[np.ndarray, float, float]:
     """The CR1 variance (one or several cluster columns), its factor and its df (see the module docstring)."""
@@ -91,7 +96,7 @@ def _cluster_sandwich(bread: np.ndarray, n: int, k: int, absorbed: Absorbed, ter
             raise BigPanelError(
                 f"cluster column {name!r} takes a single value: cluster-robust errors need two or more clusters"
             )
-        c = (g / (g - 1)) * ((n - 1) / (n - k - absorbed.cluster_total(term.columns)))
+        c = cluster_factor(g, n, k, absorbed, term.columns)
         v += (-1) ** (len(term.columns) + 1) * c * bread @ term.meat @ bread
         if len(terms) == 1:
             factor = c

@@ -47,7 +47,8 @@ class ModelTable:
     """The cells of a model table; every row is a label followed by one cell per fit.
 
     ``body`` alternates an estimate row (label: the regressor) and a standard
-    error row (label: empty); ``footer`` holds N, the effects, the clusters per
+    error row (label: empty), followed by a row of wild bootstrap p-values in
+    brackets when some fit has them; ``footer`` holds N, the effects, the clusters per
     cluster column, the variance type, the full-model and within R-squared and,
     when they differ, the outcome, estimator and weights. ``records`` has one
     dict per model and term with the unrounded numbers (the CSV output).
@@ -118,8 +119,16 @@ def _coefficient_rows(fits: list[dict[str, Any]], stars: bool, digits: int) -> l
             places = decimals_for(coef.get("std_error"), digits)
             estimates.append(format_number(coef.get("estimate"), places) + mark)
             errors.append(f"({format_number(coef.get('std_error'), places)})")
-        rows += [estimates, errors]
+        rows += [estimates, errors] + _bootstrap_row(fits, name)
     return rows
+
+
+def _bootstrap_row(fits: list[dict[str, Any]], name: str) -> list[Row]:
+    """The wild bootstrap p-values of coefficient ``name`` in brackets, when some fit has one."""
+    values = [(f["coefficients"].get(name) or {}).get("bootstrap_p_value") for f in fits]
+    if all(v is None for v in values):
+        return []
+    return [["", *("" if v is None else f"[{v:.3f}]" for v in values)]]
 
 
 def _footer_rows(fits: list[dict[str, Any]]) -> list[Row]:
@@ -149,7 +158,8 @@ def _records(fits: list[dict[str, Any]], header: Row) -> list[dict[str, Any]]:
         for term, coef in fit["coefficients"].items():
             out.append({
                 "model": label, "outcome": fit.get("outcome"), "term": term,
-                **{key: coef.get(key) for key in ("estimate", "std_error", "t", "p_value", "ci_low", "ci_high")},
+                **{key: coef.get(key) for key in ("estimate", "std_error", "t", "p_value", "ci_low", "ci_high",
+                                                  "bootstrap_p_value", "bootstrap_ci_low", "bootstrap_ci_high")},
                 "nobs": fit["nobs"], "variance": vcov.get("type"),
                 "cluster": vcov.get("cluster"), "clusters": vcov.get("clusters"),
                 "r2_full_model": stats.get("r2_full_model"), "r2_within": stats.get("r2_within"),
@@ -181,6 +191,8 @@ def build_table(
         raise BigPanelError(f"--digits must be 1 or more, not {digits}")
     header = ["", *(labels if labels is not None else (f"({i})" for i in range(1, len(fits) + 1)))]
     notes = ["standard errors in parentheses"]
+    if any("bootstrap_p_value" in c for f in fits for c in f["coefficients"].values()):
+        notes.append("wild cluster bootstrap p-values in brackets (restricted, null slope = 0)")
     if stars:
         notes.append("significance: " + "; ".join(f"{mark} p < {cut}" for cut, mark in STARS))
     return ModelTable(header, _coefficient_rows(fits, stars, digits), _footer_rows(fits), notes, _records(fits, header))

@@ -45,18 +45,24 @@ def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) ->
 
 def create_tilde(eng: Engine, spec: Spec) -> None:
     """The view ``bp_tilde`` of the demeaned columns e_j (and the cluster columns)."""
-    k = len(spec.fe)
-    cols = []
-    for j, v in enumerate(spec.value_aliases):
-        effects = " - ".join(f"a{d + 1}.a{j}" for d in range(k))
-        cols.append(f"{v} - s.m{j} - {effects} AS e{j}")
-    cols += spec.cluster_aliases
+    cols = demeaned_columns(spec) + spec.cluster_aliases
     if spec.weights:
         cols.append("w")
-    joins = "\n".join(
-        f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
-    )
-    eng.execute("demeaned view", render("tilde", columns=join(cols), joins=joins))
+    eng.execute("demeaned view", render("tilde", columns=join(cols), joins=effect_joins(spec)))
+
+
+def demeaned_columns(spec: Spec) -> list[str]:
+    """Each value column minus its shift and the solved effects: ``e0`` (outcome), ``ej`` (regressors),
+    over ``bp_sample`` joined to ``bp_shift AS s`` and :func:`effect_joins`."""
+    k = len(spec.fe)
+    return [f"{v} - s.m{j} - " + " - ".join(f"a{d + 1}.a{j}" for d in range(k)) + f" AS e{j}"
+            for j, v in enumerate(spec.value_aliases)]
+
+
+def effect_joins(spec: Spec) -> str:
+    """The joins of the sample to every effect's solved values ``bp_alpha_d`` (as ``ad``)."""
+    return "\n".join(f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})"
+                     for d in range(len(spec.fe)))
 
 
 @dataclass(frozen=True)

@@ -439,7 +439,7 @@ def _level_joins(spec: Spec) -> str:
                      for d in range(len(spec.fe)))
 
 
-def _pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
+def pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
     """One pass: the (weighted) rows per pair of levels of every pair of effects, grouped on the
     integer level codes (one grouping set per pair), then fetched as codes and weights."""
     k = len(spec.fe)
@@ -498,7 +498,7 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, f
     n_obs = int(rows[0].sum())
     plan = (Plan(ONE_WAY, "one effect: exact demeaning by level means", n_obs) if k == 1
             else choose_strategy(spec, [len(c) for c in counts], n_obs, budget, forced))
-    cross = _pair_tables(eng, spec, list(counts)) if plan.strategy == PAIR_TABLES else None
+    cross = pair_tables(eng, spec, list(counts)) if plan.strategy == PAIR_TABLES else None
     codes = fetch_codes(eng, spec, [len(c) for c in counts], n_obs) if plan.strategy == ROW_CODES else None
     return Reduction(list(counts), list(rows), [s[0] for s in sums], cross, list(nested), sums[0][1],
                      n_complete, n_obs, rounds, plan.strategy, codes, plan)

@@ -50,7 +50,8 @@ def _header(res: FitResult) -> Text:
 def _coefficients(res: FitResult) -> Table:
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, header_style="bold")
     table.add_column("regressor")
-    for col in ("slope", "s.e.", "t", "p", "95% low", "95% high"):
+    boot = {name: c["bootstrap_p_value"] for name, c in res.per_coefficient.items() if "bootstrap_p_value" in c}
+    for col in ("slope", "s.e.", "t", "p", "95% low", "95% high") + (("bootstrap p",) if boot else ()):
         table.add_column(col, justify="right")
     for i, name in enumerate(res.names):
         table.add_row(
@@ -61,8 +62,30 @@ def _coefficients(res: FitResult) -> Table:
             _p(res.p[i]),
             _g(res.ci_low[i], 5),
             _g(res.ci_high[i], 5),
+            *((_p(boot[name]) if name in boot else "",) if boot else ()),
         )
     return table
+
+
+def _bootstrap(res: FitResult, lines: Text) -> None:
+    """How the bootstrap p-values were drawn: dimension, weights, draws or enumeration, seed."""
+    b = res.extras.get("bootstrap")
+    if not b:
+        return
+    _line(lines, "bootstrap")
+    how = (f"all {_n(b['draws'])} sign vectors enumerated (Rademacher weights; deterministic)" if b["enumerated"]
+           else f"{_n(b['draws'])} draws of {b['weights'].capitalize()} weights, seed {b['seed']}")
+    lines.append(f"restricted wild cluster bootstrap-t of each slope = 0, resampling the {_n(b['clusters'])} "
+                 f"clusters of {b['dimension']}: {how}")
+    bounds = [(n, c["bootstrap_ci_low"], c["bootstrap_ci_high"]) for n, c in res.per_coefficient.items()
+              if "bootstrap_ci_low" in c]
+    if bounds:
+        lines.append("; 95% intervals by inverting the bootstrap test: "
+                     + ", ".join(f"{n} [{_g(lo, 5)}, {_g(hi, 5)}]" for n, lo, hi in bounds))
+    cut = b["effects_cutting_across"]
+    if cut:
+        lines.append(f"; the effects of {', '.join(cut)} cut across these clusters and enter every draw exactly "
+                     "through their levels")
 
 
 def _line(lines: Text, label: str, style: str = "bold") -> None:
@@ -162,7 +185,7 @@ def _panel_tests(res: FitResult, lines: Text) -> None:
 def fit_renderable(res: FitResult) -> Group:
     """The report: a coefficient table framed by lines on sample, effects, variance and solver."""
     lines = Text()
-    for section in (_rows, _variance, _solver, _panel_tests):
+    for section in (_rows, _variance, _bootstrap, _solver, _panel_tests):
         section(res, lines)
     if res.dropped:
         _line(lines, "dropped", style="bold yellow")

@@ -140,6 +140,7 @@ class FitResult:
     call: dict[str, Any] = field(default_factory=dict)  # what bigpanel.fit was given (results/call.py)
     saved_effects_summary: dict[str, Any] | None = None  # a loaded fit's summary (its effect tables are not saved)
     version: str = __version__  # of the bigpanel that made the fit
+    per_coefficient: dict[str, dict[str, float]] = field(default_factory=dict)  # more numbers in a coefficient's JSON
 
     @property
     def params(self) -> dict[str, float]:
@@ -208,6 +209,7 @@ class FitResult:
                 "p_value": number(inf.p[i]),
                 "ci_low": number(inf.ci_low[i]),
                 "ci_high": number(inf.ci_high[i]),
+                **{key: number(v) for key, v in self.per_coefficient.get(name, {}).items()},
             }
             for i, name in enumerate(self.names)
         }

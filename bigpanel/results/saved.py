@@ -90,7 +90,15 @@ def from_dict(doc: dict[str, Any]) -> FitResult:
         warnings=list(doc["warnings"]), timings=dict(doc["timings"]),
         extras={k: v for k, v in doc.items() if k not in CORE_KEYS}, call=dict(doc.get("call") or {}),
         saved_effects_summary=dict(doc["effects_summary"]), version=doc["bigpanel_version"],
+        per_coefficient=_per_coefficient(doc["coefficients"]),
     )
+
+
+def _per_coefficient(coefficients: dict[str, dict[str, Any]]) -> dict[str, dict[str, float]]:
+    """The numbers a coefficient's entry holds beyond the standard six (the bootstrap's)."""
+    standard = {"estimate", "std_error", "t", "p_value", "ci_low", "ci_high"}
+    extra = {name: {k: v for k, v in entry.items() if k not in standard} for name, entry in coefficients.items()}
+    return {name: values for name, values in extra.items() if values}
 
 
 def read_document(path: str | Path) -> dict[str, Any]:

@@ -3,7 +3,9 @@
 --   missing at random), log sales on three regressors with store and week effects;
 -- * store-week-supplier: the same plus the supplier of the week's main delivery,
 --   about 1,000 levels drawn at random for every row (an effect that cuts across
---   stores and weeks).
+--   stores and weeks);
+-- * store-week-region: store-week plus the store's region, 50 regions (stores
+--   nested in regions: few clusters for the wild cluster bootstrap).
 -- log_sales = 1.0 log_price - 0.5 promo_share + 0.25 staff_hours + store + week
 --             (+ supplier) effects + noise; the regressors move with the store and
 -- week effects, so pooled OLS is biased. Rows are written store by store.
@@ -27,6 +29,7 @@ COPY (
   SELECT CAST(s + 1 AS INTEGER) AS store,
          CAST(w + 1 AS SMALLINT) AS week,
          {{supplier_column}}
+         {{region_column}}
          z1 + 0.5 * z_store AS log_price,
          z2 + 0.3 * z_week AS promo_share,
          z3 AS staff_hours,

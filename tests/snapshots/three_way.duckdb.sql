@@ -293,10 +293,12 @@ JOIN bp_alpha_3 AS a3 USING (f3_1)
 -- params: {}
 -- Final pass of a cluster-robust fit: the cross-products of the demeaned columns
 -- summed per cluster (compensated sums), for every combination of cluster
--- columns (grouping sets), kept in the engine. The totals and the cluster
--- scores are read from this table, so the errors need no further row pass.
+-- columns (grouping sets), with the cluster keys, kept in the engine. The totals,
+-- the cluster scores and the wild bootstrap's cells are read from this table, so
+-- the errors need no further row pass.
 CREATE OR REPLACE TEMP TABLE bp_cluster_moments AS
 SELECT GROUPING(cl1, cl2) AS gid,
+       cl1, cl2,
        count(*) AS n,
        fsum(w * e0 * e0) AS q_0_0,
        fsum(w * e0 * e1) AS q_0_1,

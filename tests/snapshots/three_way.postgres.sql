@@ -172,7 +172,7 @@ CREATE OR REPLACE TEMPORARY VIEW bp_tilde AS SELECT v0 - s.m0 - a1.a0 - a2.a0 - 
 ;
 DROP TABLE IF EXISTS bp_cluster_moments
 ;
-CREATE TEMPORARY TABLE bp_cluster_moments AS SELECT GROUPING(cl1, cl2) AS gid, COUNT(*) AS n, SUM(w * e0 * e0) AS q_0_0, SUM(w * e0 * e1) AS q_0_1, SUM(w * e1 * e1) AS q_1_1 FROM bp_tilde GROUP BY GROUPING SETS ((cl1), (cl2), (cl1, cl2))
+CREATE TEMPORARY TABLE bp_cluster_moments AS SELECT GROUPING(cl1, cl2) AS gid, cl1, cl2, COUNT(*) AS n, SUM(w * e0 * e0) AS q_0_0, SUM(w * e0 * e1) AS q_0_1, SUM(w * e1 * e1) AS q_1_1 FROM bp_tilde GROUP BY GROUPING SETS ((cl1), (cl2), (cl1, cl2))
 ;
 -- params: {"gid": 1}
 ;
