@@ -18,6 +18,7 @@ from ..errors import BigPanelError
 from ..numerics.effects import effect_tables, recover
 from ..numerics.inference import Inference, infer
 from ..numerics.solve import ILL_CONDITIONED, Slopes, exact_rss, solve_slopes
+from ..passes.moments import ols_residuals
 from ..passes.reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES
 from ..results.result import EffectInfo, FitResult, FitStatistics, SolverReport
 from .absorb import Absorption, Projections, absorb
@@ -65,10 +66,11 @@ class Within(Estimator):
     def _inference(self, session: Session, ab: Absorption, slopes: Slopes) -> Inference:
         spec = session.spec
         meat, terms = None, []
+        res = ols_residuals(len(spec.value_aliases), slopes.keep, slopes.beta)
         if spec.variance == "hc1":
-            meat = ab.back.meat_hc(slopes.keep, slopes.beta)
+            meat = ab.back.meat_hc(res)
         elif spec.variance == "cr1":
-            terms = ab.back.meat_cluster(slopes.keep, slopes.beta)
+            terms = ab.back.meat_cluster(res)
         mean_weight = float(ab.red.counts[0].sum()) / ab.mom.n
         return infer(slopes.beta, slopes.bread, slopes.rss, ab.mom.n, ab.absorbed, spec.variance, meat=meat,
                      cluster_terms=terms, cluster_names=spec.cluster, mean_weight=mean_weight)
