@@ -265,6 +265,19 @@ def fit_command(
         "one are dropped and counted apart.",
         metavar="COL",
     ),
+    endogenous: Optional[List[str]] = typer.Option(
+        None, "--endogenous", metavar="COL",
+        help="Endogenous regressor, instrumented by the --instrument columns (2SLS); repeat for more. Or in the "
+        "formula: 'y ~ x + p, p instrumented by z1 + z2'.",
+    ),
+    instrument: Optional[List[str]] = typer.Option(
+        None, "--instrument", metavar="COL",
+        help="Excluded instrument for the --endogenous regressors; repeat for more.",
+    ),
+    liml: bool = typer.Option(
+        False, "--liml", help="With instruments: LIML instead of 2SLS (better with many or weak instruments).",
+        metavar="",
+    ),
     json_out: bool = typer.Option(
         False, "--json", help="Print the full result as one JSON object instead of the table.", metavar=""
     ),
@@ -289,7 +302,7 @@ def fit_command(
     with progress(quiet or json_out) as on_step:
         res = run_fit(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
-            weights=weights, on_step=on_step,
+            weights=weights, on_step=on_step, endogenous=endogenous, instruments=instrument, liml=liml,
         )
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]

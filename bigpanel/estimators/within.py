@@ -43,8 +43,8 @@ class Within(Estimator):
     in_memory = True
 
     def fit(self) -> FitResult:
-        how = Projections.checked(**self.settings)
-        with opened(self.request) as session:
+        how = Projections.checked(**{key: self.settings[key] for key in Within.options})
+        with opened(self.request, **self.spec_options()) as session:
             ab = absorb(session, how, in_memory=self.request.engine == "memory")
             slopes, rss_from = self._slopes(session, ab)
             inf = self._inference(session, ab, slopes)
@@ -52,6 +52,10 @@ class Within(Estimator):
             effects = effect_tables(session.spec, ab.back.level_keys, fx, ab.red.rows)
             solver = self._solver(session, ab, slopes, rss_from)
         return self._result(session, ab, slopes, inf, solver, effects)
+
+    def spec_options(self) -> dict[str, Any]:
+        """What the spec needs beyond the request (the instruments, for a subclass)."""
+        return {}
 
     def _slopes(self, session: Session, ab: Absorption) -> tuple[Slopes, str]:
         """Slopes from E'WE, and the RSS (from a residual pass when the cross-products cancel)."""
