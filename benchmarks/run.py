@@ -8,7 +8,9 @@ Panels (all invented, generated once and cached under benchmarks/data/):
 * demo: the retail demo, store x product x week (pairs of levels compress);
 * store-week: one row per store and week (shape a);
 * store-week-supplier: the same plus a supplier effect of ~1,000 levels across rows (shape b);
-* staff: employee x store x year with job spells (shape c).
+* staff: employee x store x year with job spells (shape c);
+* store-week-iv: store-week with log_price endogenous and two cost shifters as its
+  instruments (group ``iv``: the IV fit beside the within fit with the same effects).
 
 Every measurement runs in a fresh child process (bigpanel.bench.measure): wall time
 inside the child, peak resident memory of the child. "scan" is one plain DuckDB
@@ -37,11 +39,12 @@ import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
 from bigpanel.demo import write_demo
-from bigpanel.shapes import SHAPES, write_shape
+from bigpanel.shapes import IV_INSTRUMENTS, SHAPES, write_shape
 
 HERE = Path(__file__).resolve().parent
 DEMO_FORMULA = "log_units ~ log_price + promo"
-# (panel, effects, cluster column or None): the configurations measured at every size, by group.
+# (panel, effects, cluster column or None[, "iv"]): the configurations measured at every size, by group;
+# "iv" instruments log_price by the panel's cost shifters (2SLS).
 CONFIGS = {
     "main": [
         ("demo", ["store"], None),
@@ -56,6 +59,12 @@ CONFIGS = {
     "one-way": [  # one effect on a panel without missing values: the one-pass fit
         ("store-week", ["store"], None),
         ("store-week", ["store"], "store"),
+    ],
+    "iv": [  # instrumental variables beside the within fit with the same effects (target: IV <= 1.3 x within)
+        ("store-week-iv", ["store", "week"], None),
+        ("store-week-iv", ["store", "week"], None, "iv"),
+        ("store-week-iv", ["store", "week"], "store"),
+        ("store-week-iv", ["store", "week"], "store", "iv"),
     ],
     "row-codes": [  # the row-codes configurations of the main group but staff (a rerun after a fix)
         ("store-week", ["store", "week"], None),
@@ -88,9 +97,20 @@ def formula(name: str) -> str:
     return DEMO_FORMULA if name == "demo" else SHAPES[name].formula
 
 
+def model_of(config: tuple, path: str) -> dict:
+    """The fit's keywords for a configuration (the IV ones name the endogenous regressor and instruments)."""
+    name, fe, cluster, *kind = config
+    model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
+    if kind == ["iv"]:
+        model.update(endogenous=["log_price"], instruments=list(IV_INSTRUMENTS))
+    return model
+
+
 def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
-    name, fe, cluster = config
+    name, fe, cluster, *kind = config
     rec = {"rows": rows, "panel": name, "effects": fe, "cluster": cluster, "what": what, "ok": out["ok"]}
+    if kind:
+        rec["model"] = kind[0]
     if not out["ok"]:
         rec["error"] = out["error"]
         return rec
@@ -116,13 +136,13 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
     plan = [(rows, config) for rows in sizes for config in CONFIGS[group]]
     plan += [(rows, config) for rows in large for config in CONFIGS[group] if config[0] == "store-week"]
     for rows, config in plan:
-        name, fe, cluster = config
+        name, fe, cluster, *kind = config
         path = panel_file(name, rows, data_dir)
-        model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
+        model = model_of(config, path)
         steps = [("scan", model, None),
                  ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
         fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
-        if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
+        if (cluster is None or name == "staff") and not kind:  # slopes only: one numpy fit per panel and effects
             if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
                 steps.append(("numpy", model, plain_numpy.fit))
         for what, m, runner in steps:
@@ -136,14 +156,15 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
 
 def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
-    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}"
+    iv = ", IV" if rec.get("model") == "iv" else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{iv}"
 
 
 def warm_scan(records: list[dict], rec: dict) -> dict | None:
     """The fastest scan of the same columns (same panel, size and effects): the first scan of a
     file may include reading it from disk, which the fits after it do not pay."""
     scans = [r for r in records if r["ok"] and r["what"] == "scan" and r["rows"] == rec["rows"]
-             and r["panel"] == rec["panel"] and r["effects"] == rec["effects"]]
+             and r["panel"] == rec["panel"] and r["effects"] == rec["effects"] and r.get("model") == rec.get("model")]
     return min(scans, key=lambda r: r["seconds"]) if scans else None
 
 
@@ -158,9 +179,10 @@ def summarise(records: list[dict]) -> dict:
 
     def numpy_of(rows: int, rec: dict) -> dict | None:
         return next((r for r in ok if r["rows"] == rows and r["what"] == "numpy" and r["panel"] == rec["panel"]
-                     and r["effects"] == rec["effects"]), None)
+                     and r["effects"] == rec["effects"] and not rec.get("model")), None)
 
-    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {}}
+    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {},
+                 "iv_over_within": {}}
     keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] == "fit"))
     sizes = sorted({r["rows"] for r in ok})
     for key in keys:
@@ -169,6 +191,9 @@ def summarise(records: list[dict]) -> dict:
             label = f"{key} @ {rows:,}"
             if scan and fit:
                 out["ratio_to_scan"][label] = round(fit["seconds"] / scan["seconds"], 2)
+            within = find(rows, key.removesuffix(", IV"), "fit") if key.endswith(", IV") else None
+            if fit and within:
+                out["iv_over_within"][label] = round(fit["seconds"] / within["seconds"], 3)
             ref = numpy_of(rows, fit) if fit else None
             if fit and ref:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
@@ -193,7 +218,7 @@ def table(result: dict) -> Table:
             got = {r["what"]: r for r in recs if r["rows"] == rows and _key(r) == key}
             fit = got.get("fit")
             scan = warm_scan(recs, fit) if fit is not None else None
-            ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit
+            ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit and not fit.get("model")
                         and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]), None)
             if fit is None:
                 continue
@@ -220,7 +245,7 @@ def markdown(result: dict) -> str:
 
 
 def plot(result: dict, path: Path) -> None:
-    from bigpanel.plots import pyplot, save_figure
+    from bigpanel.output.plots import pyplot, save_figure
 
     plt = pyplot()
     fig, (ax_t, ax_m) = plt.subplots(1, 2, figsize=(12, 4.6))
