@@ -130,6 +130,21 @@ def test_overidentified_two_effects_clustered(to_parquet, clusters):
     assert np.all(np.abs(res.coef - [1.0, -0.5]) < 4 * res.std_error)  # the truth we set, within 4 s.e.
 
 
+def test_one_effect_clustered_by_it(to_parquet):
+    # One effect and errors clustered by it: the cross-products come from the level co-moments
+    # and the cluster meats from their per-cluster sums (no row pass after the first). Against
+    # numpy 2SLS on the demeaned data, CR1 with P_c = 1 (the effect is nested in the cluster).
+    df = iv_panel(seed=12)
+    res = bigpanel.fit(to_parquet(df), "y ~ x + p, p instrumented by z1 + z2", fe="unit", cluster="unit")
+    assert res.solver.cross_products_from == "level co-moments (no row pass)"
+    sample = drop_singletons(df, ["unit"])
+    e, _ = partialled(sample, ["y", "x", "p", "z1", "z2"], ["unit"])
+    b, u, xhat, bread = tsls(e[:, 0], e[:, 1:3], e[:, [1, 3, 4]])
+    v = cr1(bread, xhat * u[:, None], sample[["unit"]].to_numpy(), len(u), 2, 1)
+    assert rel(res.coef, b) < 1e-8
+    assert rel(res.std_error, np.sqrt(np.diag(v))) < 1e-8
+
+
 @pytest.mark.parametrize("variance", ["classical", "hc1"])
 def test_two_endogenous_weighted(to_parquet, variance):
     # Invented panel, two endogenous regressors (p, q) and four instruments, analytic weights:

@@ -178,15 +178,13 @@ def _instruments(res: FitResult, lines: Text) -> None:
     values = "; ".join(f"{k} {v:g}" for k, v in weak["stock_yogo"].items())
     lines.append(f"{weak['statistic']} {weak['value']:.4g}"
                  + (f"; Stock-Yogo critical values (from memory): {values}" if values else ""))
-    under = res.extras["underidentification"]
-    _line(lines, "rank test")
-    lines.append(f"{under['test']} chi2({under['df']}) = {under['statistic']:.4g}, p {_p(under['p_value'])} "
-                 "(null: not identified)")
-    over = res.extras.get("overidentification")
-    if over:
-        _line(lines, "validity")
-        lines.append(f"{over['test']} chi2({over['df']}) = {over['statistic']:.4g}, p {_p(over['p_value'])} "
-                     "(null: every instrument is valid)")
+    for label, key, null in (("rank test", "underidentification", "not identified"),
+                             ("validity", "overidentification", "every instrument is valid")):
+        test = res.extras.get(key)
+        if test:
+            _line(lines, label)
+            lines.append(f"{test['test']} chi2({test['df']}) = {test['statistic']:.4g}, p {_p(test['p_value'])} "
+                         f"(null: {null})")
     ar = res.extras["anderson_rubin"]
     _line(lines, "AR test")
     lines.append(f"F({ar['df'][0]:g}, {_n(ar['df'][1])}) = {ar['statistic']:.4g}, p {_p(ar['p_value'])} "
