@@ -193,7 +193,7 @@ class MemoryBackend:
     def meat_hc(self, res: Residuals) -> np.ndarray:
         """The raw HC meat of :class:`~bigpanel.passes.moments.Residuals`, row by row."""
         scores = self._scores(res)
-        return scores.T @ scores
+        return res.wanted(scores.T @ scores)
 
     def meat_cluster(self, res: Residuals) -> list[ClusterTerm]:
         """The raw cluster meats: the row scores summed per cluster of every combination of cluster columns."""
@@ -205,7 +205,7 @@ class MemoryBackend:
             g = int(codes.max()) + 1
             sums = np.column_stack([np.bincount(codes, weights=scores[:, j], minlength=g)
                                     for j in range(scores.shape[1])])
-            terms.append(ClusterTerm(cols, g, sums.T @ sums))
+            terms.append(ClusterTerm(cols, g, res.wanted(sums.T @ sums)))
         return terms
 
     def level_keys(self, d: int) -> pa.Table:

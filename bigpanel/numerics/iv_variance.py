@@ -52,7 +52,8 @@ def selection(m: int, cols: list[int]) -> np.ndarray:
 
 def iv_residuals(q: np.ndarray, fit: KClass) -> Residuals:
     """The fit's residual, each first stage's and the reduced form's, over the m value columns;
-    the scores live on Zf (and, for LIML, on the endogenous regressors too)."""
+    the scores live on Zf (and, for LIML, on the endogenous regressors too). Only the meats that
+    are used are summed: each residual's own, and the first stages' with one another (KP)."""
     m, zf = len(q), fit.instruments
     cols = [fit.residual(m)]
     for j in fit.endogenous:
@@ -65,7 +66,9 @@ def iv_residuals(q: np.ndarray, fit: KClass) -> Residuals:
     reduced[zf] -= coefficients(q, zf, [0])[:, 0]
     cols.append(reduced)
     support = sorted(set(zf) | (set(fit.endogenous) if fit.kappa != 1.0 else set()))
-    return Residuals(np.column_stack(cols), support)
+    stages = range(FIRST, FIRST + len(fit.endogenous))
+    blocks = ((FIT, FIT), *((a, b) for a in stages for b in stages if a <= b), (len(cols) - 1, len(cols) - 1))
+    return Residuals(np.column_stack(cols), support, blocks)
 
 
 @dataclass(frozen=True)

@@ -147,15 +147,38 @@ class Residuals:
     sum_c v_ca v_cb' with v_ca = Q_c coef[:, a] from the per-cluster cross-products Q_c
     (CR1), laid out as a (p s) x (p s) matrix with residual a's block at rows a s ... a s + s - 1;
     :func:`mapped` applies the maps. OLS: one residual, coef = (1, -b) over (y, kept
-    regressors), support = the kept regressors, M = identity.
+    regressors), support = the kept regressors, M = identity. ``blocks`` lists the pairs of
+    residuals (a <= b) whose T_ab is wanted (None: every pair); the others are left zero.
     """
 
     coef: np.ndarray
     support: list[int]
+    blocks: tuple[tuple[int, int], ...] | None = None
 
     @property
     def count(self) -> int:
         return self.coef.shape[1]
+
+    def wanted(self, raw: np.ndarray) -> np.ndarray:
+        """``raw`` with the blocks of unwanted pairs of residuals set to zero."""
+        if self.blocks is None:
+            return raw
+        s, out = len(self.support), np.zeros_like(raw)
+        for a, b in self.blocks:
+            out[a * s:(a + 1) * s, b * s:(b + 1) * s] = raw[a * s:(a + 1) * s, b * s:(b + 1) * s]
+            out[b * s:(b + 1) * s, a * s:(a + 1) * s] = raw[b * s:(b + 1) * s, a * s:(a + 1) * s]
+        return out
+
+    def pairs(self, symmetric: bool) -> list[tuple[int, int, int, int]]:
+        """Index pairs (a, j), (b, k) of the raw meat that are summed: the wanted blocks a <= b
+        and, where a block is symmetric (every HC block, the diagonal ones of CR1), j <= k."""
+        s, out = len(self.support), []
+        for a in range(self.count):
+            for b in range(a, self.count):
+                if self.blocks is not None and (a, b) not in self.blocks:
+                    continue
+                out += [(a, j, b, k) for j in range(s) for k in range(s) if j <= k or not (symmetric or a == b)]
+        return out
 
 
 def ols_residuals(m: int, keep: list[int], beta: np.ndarray) -> Residuals:
@@ -191,24 +214,13 @@ def _residual_sql(used: list[int], a: int, column: str) -> str:
     return " + ".join(f"b.r{a}_{j} * {column.format(j=j)}" for j in used)
 
 
-def _pairs(count: int, s: int, symmetric: bool) -> list[tuple[int, int, int, int]]:
-    """Index pairs (a, j), (b, l) of the raw meat that are summed: a <= b and, when the blocks are
-    symmetric (HC), j <= l; else every (a, j) <= (b, l) in stacked order (CR1)."""
-    cells = [(a, j) for a in range(count) for j in range(s)]
-    out = []
-    for x, (a, j) in enumerate(cells):
-        for b, k in cells[x:]:
-            if not symmetric or j <= k:
-                out.append((a, j, b, k))
-    return out
-
-
-def _raw(row: dict, count: int, s: int, symmetric: bool) -> np.ndarray:
-    out = np.zeros((count * s, count * s))
-    for a, j, b, k in _pairs(count, s, symmetric):
+def _raw(row: dict, res: Residuals, symmetric: bool) -> np.ndarray:
+    s = len(res.support)
+    out = np.zeros((res.count * s, res.count * s))
+    for a, j, b, k in res.pairs(symmetric):
         v = row[f"h_{a}_{j}_{b}_{k}"]
         out[a * s + j, b * s + k] = out[b * s + k, a * s + j] = v
-        if symmetric:
+        if symmetric or a == b:
             out[a * s + k, b * s + j] = out[b * s + j, a * s + k] = v
     return out
 
@@ -219,12 +231,11 @@ def meat_hc(eng: Engine, spec: Spec, res: Residuals) -> np.ndarray:
     used = _store_residuals(eng, res)
     weight = " * w" if spec.weights else ""
     resid = join([f"({_residual_sql(used[a], a, 'e{j}')}){weight} AS u{a}" for a in range(res.count)])
-    s = len(res.support)
     sums = [f"fsum(u{a} * u{b} * e{res.support[j]} * e{res.support[k]}) AS h_{a}_{j}_{b}_{k}"
-            for a, j, b, k in _pairs(res.count, s, symmetric=True)]
+            for a, j, b, k in res.pairs(symmetric=True)]
     carry = ", ".join(f"e{j}" for j in res.support)
     row = eng.one("robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
-    return _raw(row, res.count, s, symmetric=True)
+    return _raw(row, res, symmetric=True)
 
 
 def cluster_sets(n: int) -> list[tuple[int, ...]]:
@@ -243,13 +254,13 @@ def meat_cluster(eng: Engine, spec: Spec, res: Residuals) -> list[ClusterTerm]:
         + f" AS g{a}_{x}"
         for a in range(res.count) for x in range(s)
     ])
-    sums = [f"fsum(g{a}_{j} * g{b}_{k}) AS h_{a}_{j}_{b}_{k}" for a, j, b, k in _pairs(res.count, s, symmetric=False)]
+    sums = [f"fsum(g{a}_{j} * g{b}_{k}) AS h_{a}_{j}_{b}_{k}" for a, j, b, k in res.pairs(symmetric=False)]
     tab = eng.arrow("cluster scores", render("meat_cluster", sums=join(sums), scores=scores))
     width = len(spec.cluster_aliases)
     terms = []
     for row in tab.to_pylist():
         cols = tuple(j for j in range(width) if not (row["gid"] >> (width - 1 - j)) & 1)
-        terms.append(ClusterTerm(cols, int(row["n_clusters"]), _raw(row, res.count, s, symmetric=False)))
+        terms.append(ClusterTerm(cols, int(row["n_clusters"]), _raw(row, res, symmetric=False)))
     return sorted(terms, key=lambda t: (len(t.columns), t.columns))
 
 
