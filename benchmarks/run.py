@@ -11,6 +11,8 @@ Panels (all invented, generated once and cached under benchmarks/data/):
 * store-week-supplier: the same plus a supplier effect of ~1,000 levels across rows (shape b);
 * staff: employee x store x year with job spells (shape c);
 * store-week-region: store-week with 50 regions as clusters (the ``bootstrap`` group).
+* store-week-iv: store-week with log_price endogenous and two cost shifters as its
+  instruments (group ``iv``: the IV fit beside the within fit with the same effects).
 
 Every measurement runs in a fresh child process (bigpanel.bench.measure): wall time
 inside the child, peak resident memory of the child. "scan" is one plain DuckDB
@@ -39,11 +41,12 @@ import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
 from bigpanel.demo import write_demo
-from bigpanel.shapes import SHAPES, write_shape
+from bigpanel.shapes import IV_INSTRUMENTS, SHAPES, write_shape
 
 HERE = Path(__file__).resolve().parent
 DEMO_FORMULA = "log_units ~ log_price + promo"
 BOOTSTRAP = {"wild_bootstrap": True, "draws": 9_999, "seed": 1}
+IV = {"endogenous": ["log_price"], "instruments": list(IV_INSTRUMENTS)}  # 2SLS on the panel's cost shifters
 # (panel, effects, cluster column or None[, more fit options]): the configurations measured at every size, by group.
 CONFIGS = {
     "main": [
@@ -70,6 +73,12 @@ CONFIGS = {
         # the demo's 12 regions: products and weeks cut across them, on pair tables (no pair pass)
         ("demo", ["store", "product", "week"], "region"),
         ("demo", ["store", "product", "week"], "region", BOOTSTRAP),
+    ],
+    "iv": [  # instrumental variables beside the within fit with the same effects (target: IV <= 1.3 x within)
+        ("store-week-iv", ["store", "week"], None),
+        ("store-week-iv", ["store", "week"], None, IV),
+        ("store-week-iv", ["store", "week"], "store"),
+        ("store-week-iv", ["store", "week"], "store", IV),
     ],
     "row-codes": [  # the row-codes configurations of the main group but staff (a rerun after a fix)
         ("store-week", ["store", "week"], None),
@@ -100,6 +109,12 @@ def panel_file(name: str, rows: int, data_dir: Path) -> str:
 
 def formula(name: str) -> str:
     return DEMO_FORMULA if name == "demo" else SHAPES[name].formula
+
+
+def model_of(config: tuple, path: str) -> dict:
+    """The fit's keywords for a configuration (its more options included: the scan reads the same columns)."""
+    name, fe, cluster, *more = config
+    return {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster, **(more[0] if more else {})}
 
 
 def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
@@ -136,12 +151,11 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
     for rows, config in plan:
         name, fe, cluster, *more = config
         path = panel_file(name, rows, data_dir)
-        model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
+        model = model_of(config, path)
         steps = [("scan", model, None),
-                 ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill), **(more[0] if more else {})},
-                  None)]
+                 ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
         fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
-        if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
+        if (cluster is None or name == "staff") and not more:  # slopes only: one numpy fit per panel and effects
             if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
                 steps.append(("numpy", model, plain_numpy.fit))
         for what, m, runner in steps:
@@ -155,15 +169,21 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
 
 def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
-    boot = f", wild bootstrap {rec['options']['draws']:,}" if "wild_bootstrap" in rec.get("options", {}) else ""
-    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{boot}"
+    options = rec.get("options", {})
+    extra = f", wild bootstrap {options['draws']:,}" if "wild_bootstrap" in options else ", IV" if "endogenous" in options else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{extra}"
+
+
+def reads_instruments(rec: dict) -> bool:
+    """Whether a record's model reads the instrument columns (an IV configuration)."""
+    return "endogenous" in rec.get("options", {})
 
 
 def warm_scan(records: list[dict], rec: dict) -> dict | None:
     """The fastest scan of the same columns (same panel, size and effects): the first scan of a
     file may include reading it from disk, which the fits after it do not pay."""
     scans = [r for r in records if r["ok"] and r["what"] == "scan" and r["rows"] == rec["rows"]
-             and r["panel"] == rec["panel"] and r["effects"] == rec["effects"]]
+             and r["panel"] == rec["panel"] and r["effects"] == rec["effects"] and reads_instruments(r) == reads_instruments(rec)]
     return min(scans, key=lambda r: r["seconds"]) if scans else None
 
 
@@ -178,9 +198,10 @@ def summarise(records: list[dict]) -> dict:
 
     def numpy_of(rows: int, rec: dict) -> dict | None:
         return next((r for r in ok if r["rows"] == rows and r["what"] == "numpy" and r["panel"] == rec["panel"]
-                     and r["effects"] == rec["effects"]), None)
+                     and r["effects"] == rec["effects"] and not rec.get("options")), None)
 
-    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {}}
+    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {},
+                 "iv_over_within": {}}
     keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] == "fit"))
     sizes = sorted({r["rows"] for r in ok})
     for key in keys:
@@ -189,6 +210,9 @@ def summarise(records: list[dict]) -> dict:
             label = f"{key} @ {rows:,}"
             if scan and fit:
                 out["ratio_to_scan"][label] = round(fit["seconds"] / scan["seconds"], 2)
+            within = find(rows, key.removesuffix(", IV"), "fit") if key.endswith(", IV") else None
+            if fit and within:
+                out["iv_over_within"][label] = round(fit["seconds"] / within["seconds"], 3)
             ref = numpy_of(rows, fit) if fit else None
             if fit and ref:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
@@ -231,7 +255,7 @@ def table(result: dict) -> Table:
             got = {r["what"]: r for r in recs if r["rows"] == rows and _key(r) == key}
             fit = got.get("fit")
             scan = warm_scan(recs, fit) if fit is not None else None
-            ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit
+            ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit and not fit.get("options")
                         and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]), None)
             if fit is None:
                 continue

@@ -1,27 +1,19 @@
 """bigpanel: fixed-effects (within) regressions on panels that stay in the database engine."""
 
-from __future__ import annotations
-
 from typing import Any
-
-from .errors import BigPanelError
-from .version import __version__
 
 __all__ = ["fit", "load", "FitResult", "BigPanelError", "__version__"]
 
+# Every name is imported on first use: ``bigpanel --help`` loads no numerics, and the entry
+# point (bigpanel.command) installs its interrupt handler after as little import work as can be.
+_HOMES = {"fit": "api", "load": "results.saved", "FitResult": "results.result", "BigPanelError": "errors",
+          "__version__": "version"}
+
 
 def __getattr__(name: str) -> Any:
-    """``fit``, ``load`` and ``FitResult`` are imported on first use, so that ``bigpanel --help`` loads no numerics."""
-    if name == "fit":
-        from .api import fit
+    """``fit``, ``load``, ``FitResult``, ``BigPanelError`` and ``__version__``, imported when first asked for."""
+    if name not in _HOMES:
+        raise AttributeError(f"module 'bigpanel' has no attribute {name!r}")
+    from importlib import import_module
 
-        return fit
-    if name == "load":
-        from .results.saved import load
-
-        return load
-    if name == "FitResult":
-        from .results.result import FitResult
-
-        return FitResult
-    raise AttributeError(f"module 'bigpanel' has no attribute {name!r}")
+    return getattr(import_module(f".{_HOMES[name]}", __name__), name)

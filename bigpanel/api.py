@@ -9,15 +9,17 @@ from .errors import BigPanelError
 from .estimators.base import Estimator, Request
 from .estimators.between import Between
 from .estimators.first_difference import FirstDifference
+from .estimators.instrumental import InstrumentalVariables
 from .estimators.random_effects import RandomEffects
 from .estimators.within import Within
+from .model.iv_formula import split_instrumented
 from .model.spec import parse_formula
 from .options import as_list
 from .results.call import call_record
 from .results.result import FitResult
 
 ESTIMATOR_CLASSES: dict[str, type[Estimator]] = {
-    cls.name: cls for cls in (Within, Between, FirstDifference, RandomEffects)
+    cls.name: cls for cls in (Within, Between, FirstDifference, RandomEffects, InstrumentalVariables)
 }
 
 
@@ -42,6 +44,8 @@ def fit(
     spark_master: str | None = None,
     allow_remote: bool = False,
     on_step: Callable[[str], None] | None = None,
+    endogenous: str | Sequence[str] | None = None,
+    instruments: str | Sequence[str] | None = None,
     **options: object,
 ) -> FitResult:
     """Fit ``y`` on ``x`` absorbing the fixed effects ``fe`` (by default the within estimator).
@@ -70,7 +74,11 @@ def fit(
       ``"in-engine sweeps"``) forces the strategy, for tests and benchmarks;
     * first-difference: ``time``, the period column;
     * random-effects: ``hausman=True`` adds the Hausman and Mundlak tests; ``tol`` and
-      ``max_iter`` go to the within fit it runs first.
+      ``max_iter`` go to the within fit it runs first;
+    * instrumental-variables (chosen by giving ``endogenous`` and ``instruments``, or in the
+      formula ``"y ~ x1 + p, p instrumented by z1 + z2"``): the within fit's options, and
+      ``liml=True`` for LIML instead of 2SLS. ``endogenous`` terms are regressors (added to
+      ``x`` when not among them); ``instruments`` are the excluded instruments.
 
     ``engine`` is ``duckdb`` (default for files; ``memory_limit``, ``temp_dir`` and ``threads``
     are its settings), ``postgresql`` (default for a ``postgresql://`` URL), ``spark``
@@ -82,12 +90,23 @@ def fit(
     ``bigpanel refit`` can run the fit again from its saved JSON.
     """
     given = {name: value for name, value in locals().items() if name != "on_step"}
+    endogenous, instruments = as_list(endogenous), as_list(instruments)
     if formula is not None:
         if y is not None or x is not None:
             raise BigPanelError("give either a formula or --y/--x, not both")
+        formula, named, excluded = split_instrumented(formula)
+        if named and (endogenous or instruments):
+            raise BigPanelError("give the instruments either in the formula or with --endogenous/--instrument, "
+                                "not both")
+        endogenous, instruments = (named, excluded) if named else (endogenous, instruments)
         y, xs = parse_formula(formula)
     else:
         xs = as_list(x)
+    if endogenous or instruments:
+        if estimator not in ("within", InstrumentalVariables.name):
+            raise BigPanelError(f"instruments work with the within estimator, not --estimator {estimator}")
+        estimator = InstrumentalVariables.name
+        options.update(endogenous=endogenous, instruments=instruments)
     if not y:
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if estimator not in ESTIMATOR_CLASSES:

@@ -34,7 +34,7 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
     try:
         spec = build_spec(
             src, y, x, as_list(model["fe"]), as_list(model.get("cluster")), model.get("variance"), model.get("where"),
-            eng=eng,
+            eng=eng, endogenous=as_list(model.get("endogenous")), instruments=as_list(model.get("instruments")),
         )
         aggs = [f"sum(CAST({c} AS DOUBLE)) AS s{i}" for i, c in enumerate(spec.value_sql)]
         keys = [c for cols in spec.fe for c in cols] + list(spec.cluster)

@@ -241,32 +241,42 @@ def _model_options(
 _SHARED = inspect.signature(_model_options).parameters
 
 
-def model_command(fn: Callable[..., None]) -> Callable[..., None]:
-    """Give ``fn(model, **own)`` the shared model options; ``model`` holds them as ``fit`` keywords."""
-    own = [p for p in inspect.signature(fn).parameters.values() if p.name != "model"]
+def model_command(*groups: Callable[..., None]) -> Callable[[Callable[..., None]], Callable[..., None]]:
+    """Give ``fn(model, **own)`` the shared model options and those of the option ``groups`` (functions
+    whose parameters declare them); ``model`` holds them all as ``bigpanel.fit`` keywords (an empty
+    repeated option as None, a choice as its value)."""
+    declared = [*_SHARED.values(), *(p for g in groups for p in inspect.signature(g).parameters.values())]
+    names = [p.name for p in declared]
 
-    @functools.wraps(fn)
-    def wrapper(**kwargs: object) -> None:
-        shared = {name: kwargs.pop(name) for name in _SHARED}
-        with guarded(bool(shared.pop("debug"))):
-            if shared["temp_dir"]:
-                from .output.files import check_output, input_files
+    def decorate(fn: Callable[..., None]) -> Callable[..., None]:
+        own = [p for p in inspect.signature(fn).parameters.values() if p.name != "model"]
 
-                check_output(shared["temp_dir"], "--temp-dir", input_files(str(shared["source"])), folder=True)
-            shared["x"] = shared["x"] or None
-            shared = {k: v.value if isinstance(v, enum.Enum) else v for k, v in shared.items()}
-            fn(model=shared, **{k: v.value if isinstance(v, enum.Enum) else v for k, v in kwargs.items()})
+        @functools.wraps(fn)
+        def wrapper(**kwargs: object) -> None:
+            shared = {name: _plain(kwargs.pop(name)) for name in names}
+            with guarded(bool(shared.pop("debug"))):
+                if shared["temp_dir"]:
+                    from .output.files import check_output, input_files
 
-    params = list(_SHARED.values()) + own
-    wrapper.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
-    wrapper.__annotations__ = {p.name: p.annotation for p in params}
-    return wrapper
+                    check_output(shared["temp_dir"], "--temp-dir", input_files(str(shared["source"])), folder=True)
+                fn(model=shared, **{k: _plain(v) for k, v in kwargs.items()})
+
+        params = declared + own
+        wrapper.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
+        wrapper.__annotations__ = {p.name: p.annotation for p in params}
+        return wrapper
+
+    return decorate
 
 
-@app.command("fit")
-@model_command
-def fit_command(
-    model: dict,
+def _plain(value: object) -> object:
+    """A choice as its value, an empty repeated option as None (not given), anything else as it is."""
+    if isinstance(value, enum.Enum):
+        return value.value
+    return None if isinstance(value, list) and not value else value
+
+
+def _estimation_options(
     engine: Optional[EngineName] = typer.Option(None, "--engine", help=ENGINE_HELP),
     spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
     estimator: Estimator = typer.Option(
@@ -286,16 +296,24 @@ def fit_command(
         "one are dropped and counted apart.",
         metavar="COL",
     ),
-    json_out: bool = typer.Option(
-        False, "--json", help="Print the full result as one JSON object instead of the table.", metavar=""
+    endogenous: Optional[List[str]] = typer.Option(
+        None, "--endogenous", metavar="COL",
+        help="Endogenous regressor, instrumented by the --instrument columns (2SLS); repeat for more. Or in the "
+        "formula: 'y ~ x + p, p instrumented by z1 + z2'.",
     ),
-    save: Optional[Path] = typer.Option(
-        None, "--save", help="Also store the full result as JSON in this file.", metavar="FILE.json"
+    instruments: Optional[List[str]] = typer.Option(
+        None, "--instrument", metavar="COL",
+        help="Excluded instrument for the --endogenous regressors; repeat for more.",
     ),
-    effects_out: Optional[Path] = typer.Option(
-        None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect.", metavar="DIR"
+    liml: bool = typer.Option(
+        False, "--liml", help="With instruments: LIML instead of 2SLS (better with many or weak instruments).",
+        metavar="",
     ),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+) -> None:
+    """The options of ``fit`` that choose and configure the estimator (declared once; passed to ``bigpanel.fit``)."""
+
+
+def _bootstrap_options(
     wild_bootstrap: bool = typer.Option(
         False, "--wild-bootstrap", metavar="",
         help="Add restricted wild cluster bootstrap p-values (null: slope = 0) to the CR1 t tests; needs --cluster.",
@@ -322,6 +340,24 @@ def fit_command(
         help="With several --cluster columns, the one whose clusters are resampled (default: fewest clusters).",
     ),
 ) -> None:
+    """The wild cluster bootstrap's options of ``fit`` (passed to ``bigpanel.fit``)."""
+
+
+@app.command("fit")
+@model_command(_estimation_options, _bootstrap_options)
+def fit_command(
+    model: dict,
+    json_out: bool = typer.Option(
+        False, "--json", help="Print the full result as one JSON object instead of the table.", metavar=""
+    ),
+    save: Optional[Path] = typer.Option(
+        None, "--save", help="Also store the full result as JSON in this file.", metavar="FILE.json"
+    ),
+    effects_out: Optional[Path] = typer.Option(
+        None, "--effects-out", help="Folder for the estimated effects, one Parquet file per effect.", metavar="DIR"
+    ),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+) -> None:
     """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
 
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
@@ -333,13 +369,7 @@ def fit_command(
 
     _check_outputs(model, {"--save": save}, effects_out)
     with progress(quiet or json_out) as on_step:
-        res = run_fit(
-            **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
-            weights=weights, on_step=on_step, wild_bootstrap=wild_bootstrap, draws=draws,
-            bootstrap_weights=bootstrap_weights, seed=seed, test=test or None, bootstrap_cluster=bootstrap_cluster,
-            bootstrap_interval=bootstrap_interval,
-            effect_errors=effects_out is not None,
-        )
+        res = run_fit(**model, on_step=on_step, effect_errors=effects_out is not None)
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]
     if save is not None and str(save) != "-":
@@ -361,7 +391,7 @@ def fit_command(
 
 
 @app.command("effects")
-@model_command
+@model_command()
 def effects_command(
     model: dict,
     out_dir: Path = typer.Option(..., "--out", help="Folder for one Parquet file per effect (level, effect, rows)."),
@@ -413,7 +443,7 @@ def effects_command(
 
 
 @app.command("bench")
-@model_command
+@model_command()
 def bench_command(
     model: dict,
     json_out: bool = typer.Option(False, "--json", help="Print the comparison as JSON."),

@@ -11,6 +11,9 @@ import signal
 import sys
 
 
+FILES_MODULE = "bigpanel.output.files"  # its PENDING temporaries are removed on an interrupt
+
+
 def interrupted(signum: int, frame: object) -> None:
     """SIGINT at any moment: remove half-written files, say so, exit 130 (no traceback, no abort).
 
@@ -18,7 +21,7 @@ def interrupted(signum: int, frame: object) -> None:
     inside a DuckDB query (which this DuckDB reports in more than one way), in numpy, or
     between passes.
     """
-    files = sys.modules.get("bigpanel.files")  # not loaded yet: nothing can be pending
+    files = sys.modules.get(FILES_MODULE)  # not loaded yet: nothing can be pending
     if files is not None:
         files.remove_pending()
     sys.stderr.write("bigpanel: interrupted; nothing was written\n")

@@ -4,7 +4,7 @@
 import re
 from collections.abc import Sequence
 
-ESTIMATORS = ("within", "between", "first-difference", "random-effects")
+ESTIMATORS = ("within", "between", "first-difference", "random-effects", "instrumental-variables")
 VARIANCE_TYPES = ("classical", "hc1", "cr1")
 SINGLETONS = ("drop", "keep")
 BOOTSTRAP_WEIGHTS = ("rademacher", "webb")

@@ -5,6 +5,8 @@
   cuts across stores and weeks;
 * ``store-week-region``: store-week plus a ``region`` column (50 regions, stores nested in
   them), the clusters of the wild bootstrap's benchmark;
+* ``store-week-iv``: store-week with log_price endogenous (it answers the demand noise)
+  and two cost shifters that move it, ``cost_index`` and ``rival_price`` (instruments);
 * ``staff``: employee x store x year with job spells (employee x store pairs compress,
   employee x year pairs do not).
 
@@ -26,6 +28,10 @@ SUPPLIERS = 1_000
 REGIONS = 50
 YEARS = 10
 STAFF_PER_STORE = 25
+# store-week-iv: the cost shifters (instruments) and what they and the demand noise add to log_price
+IV_COLUMNS = "bp_normal(i, 17, $seed) AS cost_index, bp_normal(i, 19, $seed) AS rival_price,"
+IV_PRICE = "+ 0.8 * bp_normal(i, 17, $seed) + 0.5 * bp_normal(i, 19, $seed) + 0.5 * z_noise"
+IV_INSTRUMENTS = ("cost_index", "rival_price")
 
 
 @dataclass(frozen=True)
@@ -48,6 +54,8 @@ SHAPES = {
     "store-week-region": Shape("store-week-region", "log_sales ~ log_price + promo_share + staff_hours",
                                ("store", "week"), "store",
                                {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
+    "store-week-iv": Shape("store-week-iv", "log_sales ~ log_price + promo_share + staff_hours", ("store", "week"),
+                           "store", {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "staff": Shape("staff", "log_wage ~ log_hours + training + overtime", ("employee", "store", "year"), "employee",
                    {"log_hours": 0.6, "training": 0.3, "overtime": -0.2}),
 }
@@ -68,7 +76,7 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                           "stores": max(2, employees // STAFF_PER_STORE)}
                 con.execute(render("shape_staff", path=literal(str(tmp))), params).fetchall()
             else:
-                supplier = name == "store-week-supplier"
+                supplier, iv = name == "store-week-supplier", name == "store-week-iv"
                 cells = int(rows / 0.97) // WEEKS * WEEKS
                 params = {"cells": cells, "weeks": WEEKS, "seed": seed, "suppliers": SUPPLIERS}
                 region = name == "store-week-region"
@@ -77,7 +85,8 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                 sql = render("shape_store_week", path=literal(str(tmp)),
                              region_column="CAST(s % $regions + 1 AS SMALLINT) AS region," if region else "",
                              supplier_column="CAST(supplier + 1 AS SMALLINT) AS supplier," if supplier else "",
-                             supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "")
+                             supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "",
+                             instrument_columns=IV_COLUMNS if iv else "", price_shift=IV_PRICE if iv else "")
                 con.execute(sql, params).fetchall()
     finally:
         con.close()

@@ -49,6 +49,8 @@ COLUMNS = {  # name -> PostgreSQL type of the generated panel
     "x2": "double precision",
     "y": "double precision",
     "w": "double precision",
+    "z1": "double precision",
+    "z2": "double precision",
 }
 
 
@@ -81,6 +83,8 @@ def make_panel(seed: int = 7, n_stores: int = 160, n_weeks: int = 40) -> pa.Tabl
     null = np.zeros(n, dtype=bool)
     null[[11, 110]] = True
     w = rng.uniform(0.5, 4.0, n)  # analytic weights, drawn last so the other columns keep their values
+    z1 = 0.6 * x1 + rng.normal(size=n)  # instruments for x1 (the IV cases), drawn after the weights
+    z2 = 0.4 * x1 + rng.normal(size=n)
     monday = dt.date(2024, 1, 1)
     return pa.table(
         {
@@ -94,6 +98,8 @@ def make_panel(seed: int = 7, n_stores: int = 160, n_weeks: int = 40) -> pa.Tabl
             "x2": pa.array(x2, mask=null),
             "y": pa.array(y),
             "w": pa.array(w),
+            "z1": pa.array(z1),
+            "z2": pa.array(z2),
         }
     )
 
@@ -287,6 +293,32 @@ def test_estimator_family_same_as_duckdb(engine, case, request, parquet_file):
     if "random_effects" in ref.extras:
         mine, theirs = res.extras["random_effects"], ref.extras["random_effects"]
         assert rel([mine["sigma_u"], mine["sigma_e"]], [theirs["sigma_u"], theirs["sigma_e"]]) < 1e-9
+
+
+IV_FORMULA = "y ~ x1 + x2 + promo, x1 instrumented by z1 + z2"
+IV_CASES = {  # instrumental variables: the same SQL with the instruments as two more value columns
+    "two-way, cluster region and week, LIML": dict(fe=["store", "week"], cluster=["region", "week"], liml=True),
+    "three-way, hc1, weights": dict(fe=["store", "week", "item"], variance="hc1", weights="w"),
+}
+
+
+@pytest.mark.parametrize("engine", ["postgres", "spark"])
+@pytest.mark.parametrize("case", list(IV_CASES))
+def test_instrumental_variables_same_as_duckdb(engine, case, request, parquet_file):
+    kw = {**IV_CASES[case], "tol": TOL}
+    ref = bigpanel.fit(parquet_file, IV_FORMULA, **kw)
+    if engine == "postgres":
+        res = bigpanel.fit(request.getfixturevalue("pg_url"), IV_FORMULA, table="sales", **kw)
+    else:
+        request.getfixturevalue("spark_on")
+        res = bigpanel.fit(parquet_file, IV_FORMULA, engine="spark", **kw)
+    assert res.names == ref.names == ["x1", "x2", "promo"] and res.rows == ref.rows
+    assert rel(res.coef, ref.coef) < 1e-9 and rel(res.std_error, ref.std_error) < 1e-9
+    for key, field in (("weak_identification", "value"), ("overidentification", "statistic"),
+                       ("anderson_rubin", "statistic")):
+        assert res.extras[key][field] == pytest.approx(ref.extras[key][field], rel=1e-9)
+    assert res.extras["first_stage"]["x1"]["partial_f"] == pytest.approx(ref.extras["first_stage"]["x1"]["partial_f"],
+                                                                         rel=1e-9)
 
 
 def test_truth_recovered(reference):

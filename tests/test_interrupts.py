@@ -67,3 +67,18 @@ def test_sigint_while_the_command_starts(big_panel, tmp_path):
     assert proc.returncode == 130, err
     assert err.strip() == "bigpanel: interrupted; nothing was written"
     assert not save.exists()
+
+
+def test_an_interrupt_removes_the_files_being_written(tmp_path):
+    # A SIGINT while an output is half-written (inside atomic_path) leaves no temporary behind:
+    # the handler finds the files module by its name (it broke silently when the module moved).
+    code = ("import os, signal, sys; from bigpanel.command import interrupted; "
+            "from bigpanel.output.files import atomic_path; signal.signal(signal.SIGINT, interrupted)\n"
+            "with atomic_path(sys.argv[1]) as tmp:\n"
+            "    tmp.write_text('half'); print(tmp, flush=True); os.kill(os.getpid(), signal.SIGINT)\n")
+    target = tmp_path / "out.json"
+    proc = subprocess.run([sys.executable, "-c", code, str(target)], capture_output=True, text=True, timeout=60,
+                          env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    assert proc.returncode == 130 and proc.stderr.strip() == "bigpanel: interrupted; nothing was written"
+    written = proc.stdout.strip()
+    assert written and not os.path.exists(written) and not target.exists()

@@ -40,8 +40,10 @@ def _clustered(ab: Absorption, slopes: Slopes, inf: Inference, xbar: np.ndarray)
 
 
 def effect_errors(session: Session, ab: Absorption, slopes: Slopes, inf: Inference, effects: dict[str, pa.Table],
-                  clustered: bool) -> tuple[dict[str, pa.Table], dict[str, Any]]:
-    """The effect tables with their standard error columns, and the JSON section ``effect_errors``."""
+                  clustered: bool, ols_scores: bool = True) -> tuple[dict[str, pa.Table], dict[str, Any]]:
+    """The effect tables with their standard error columns, and the JSON section ``effect_errors``.
+    ``ols_scores`` says the fit's scores are X~'u (not so for instrumental variables, whose
+    levels get the classical errors only: the CR1 algebra here is the OLS fit's)."""
     spec = session.spec
     if len(spec.fe) > 1:
         return effects, {"note": NOT_IDENTIFIED}
@@ -51,7 +53,9 @@ def effect_errors(session: Session, ab: Absorption, slopes: Slopes, inf: Inferen
     table = _column(effects[name], "std_error", classical_errors(xbar, ab.red.counts[0], s2, slopes.bread))
     section: dict[str, Any] = {"effect": name, "std_error": CLASSICAL}
     if clustered and spec.variance == "cr1":
-        if len(spec.cluster) > 1:
+        if not ols_scores:
+            section["std_error_clustered"] = "not computed: the fit's scores are not OLS scores (instruments)"
+        elif len(spec.cluster) > 1:
             section["std_error_clustered"] = "not computed: multi-way clustering"
         elif all(ab.red.nested[0]):
             section["std_error_clustered"] = (f"none: every level of {name} lies inside one cluster of "

@@ -19,7 +19,7 @@ from scipy import sparse
 from ..engines.base import Engine
 from ..errors import BigPanelError
 from ..passes.bootstrap import Cells, PairSums, coded
-from ..passes.moments import ClusterTerm
+from ..passes.moments import ClusterTerm, Residuals, ols_residuals
 from ..passes.moments import Moments, cluster_sets
 from ..numerics.project import Projection, components, solve_effects
 from ..passes.reduce import (ONE_WAY, PAIR_TABLES, Reduction, Start, check_scale, create_views, no_complete_rows, source_rows,
@@ -180,29 +180,33 @@ class MemoryBackend:
         self.e = e
         return Moments(len(e), (e * self.w[:, None]).T @ e)
 
-    def _resid(self, keep: list[int], beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        x = self.e[:, keep]
-        return (self.e[:, 0] - x @ beta) * self.w, x
-
     def rss(self, keep: list[int], beta: np.ndarray) -> float:
         """The residual sum of squares, sum_i w_i (y~_i - x~_i'b)^2, each residual formed first."""
-        r = self.e[:, 0] - self.e[:, keep] @ beta
+        r = self.e @ ols_residuals(self.e.shape[1], keep, beta).coef[:, 0]
         return float(np.dot(self.w * r, r))
 
-    def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
-        u, x = self._resid(keep, beta)
-        w = x * u[:, None]
-        return w.T @ w
+    def _scores(self, res: Residuals) -> np.ndarray:
+        """Row scores w_i u_ia e_ij over the support, residual a's block at columns a s ... a s + s - 1."""
+        u = (self.e @ res.coef) * self.w[:, None]
+        es = self.e[:, res.support]
+        return (u[:, :, None] * es[:, None, :]).reshape(len(es), -1)
 
-    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
-        u, x = self._resid(keep, beta)
+    def meat_hc(self, res: Residuals) -> np.ndarray:
+        """The raw HC meat of :class:`~bigpanel.passes.moments.Residuals`, row by row."""
+        scores = self._scores(res)
+        return res.wanted(scores.T @ scores)
+
+    def meat_cluster(self, res: Residuals) -> list[ClusterTerm]:
+        """The raw cluster meats: the row scores summed per cluster of every combination of cluster columns."""
+        scores = self._scores(res)
         terms = []
         for cols in cluster_sets(len(self.clusters)):
             _, codes = np.unique(np.column_stack([self.clusters[j] for j in cols]), axis=0, return_inverse=True)
             codes = codes.ravel()
             g = int(codes.max()) + 1
-            scores = np.column_stack([np.bincount(codes, weights=u * x[:, j], minlength=g) for j in range(x.shape[1])])
-            terms.append(ClusterTerm(cols, g, scores.T @ scores))
+            sums = np.column_stack([np.bincount(codes, weights=scores[:, j], minlength=g)
+                                    for j in range(scores.shape[1])])
+            terms.append(ClusterTerm(cols, g, res.wanted(sums.T @ sums)))
         return terms
 
     def cluster_cells(self) -> Cells:

@@ -7,7 +7,7 @@ import pyarrow as pa
 
 from ..engines.base import Engine
 from ..passes.bootstrap import Cells, PairSums, cluster_cells, cross_sums
-from ..passes.moments import ClusterTerm
+from ..passes.moments import ClusterTerm, Residuals, ols_residuals
 from ..passes.moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
                       store_effects)
 from ..numerics.project import Projection, components, solve_effects
@@ -123,12 +123,14 @@ class SqlBackend:
         self._demeaned()
         return cross_products(self.eng, self.spec, len(self.spec.value_aliases))
 
-    def meat_hc(self, keep: list[int], beta: np.ndarray) -> np.ndarray:
+    def meat_hc(self, res: Residuals) -> np.ndarray:
+        """The raw HC meat of :class:`~bigpanel.passes.moments.Residuals`: a pass over the demeaned rows."""
         self._demeaned()
-        return meat_hc(self.eng, self.spec, keep, beta)
+        return meat_hc(self.eng, self.spec, res)
 
-    def meat_cluster(self, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
-        return meat_cluster(self.eng, self.spec, keep, beta)
+    def meat_cluster(self, res: Residuals) -> list[ClusterTerm]:
+        """The raw cluster meats, from the per-cluster cross-products (no pass)."""
+        return meat_cluster(self.eng, self.spec, res)
 
     def cluster_cells(self) -> Cells:
         """The wild bootstrap's per-cell cross-products (see :mod:`bigpanel.passes.bootstrap`)."""
@@ -142,7 +144,7 @@ class SqlBackend:
     def rss(self, keep: list[int], beta: np.ndarray) -> float:
         """The residual sum of squares from a pass over the demeaned rows."""
         self._demeaned()
-        return residual_ss(self.eng, self.spec, keep, beta)
+        return residual_ss(self.eng, self.spec, ols_residuals(len(self.spec.value_aliases), keep, beta))
 
     def level_keys(self, d: int) -> pa.Table:
         sql = render("level_table", columns=join(self.spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")

@@ -23,7 +23,7 @@ from ..errors import BigPanelError
 from ..numerics.dof import NO_EFFECTS
 from ..numerics.inference import Inference, infer, with_variance
 from ..numerics.solve import solve_slopes
-from ..passes.moments import cross_products, meat_cluster, meat_hc
+from ..passes.moments import cross_products, meat_cluster, meat_hc, ols_residuals
 from ..passes.reduce import Start, create_views, incomplete, start
 from ..results.result import EffectInfo, FitResult, FitStatistics, SolverReport
 from .base import Estimator, Session, cluster_warnings, opened, row_counts
@@ -57,10 +57,11 @@ def ols_with_constant(eng: Any, spec: Any, k: int, shift: np.ndarray, unit_const
     if k + 1 not in keep:
         raise BigPanelError("the constant is collinear with the regressors")
     meat, terms = None, []
+    res = ols_residuals(k + 2, keep, slopes.beta)
     if spec.variance == "hc1":
-        meat = meat_hc(eng, spec, keep, slopes.beta)
+        meat = meat_hc(eng, spec, res)
     elif spec.variance == "cr1":
-        terms = meat_cluster(eng, spec, keep, slopes.beta)
+        terms = meat_cluster(eng, spec, res)
     raw = infer(slopes.beta, slopes.bread, slopes.rss, mom.n, NO_EFFECTS, spec.variance, meat=meat,
                 cluster_terms=terms, cluster_names=spec.cluster, mean_weight=mean_weight)
     c = keep.index(k + 1)

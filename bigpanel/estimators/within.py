@@ -18,6 +18,7 @@ from ..errors import BigPanelError
 from ..numerics.effects import effect_tables, recover
 from ..numerics.inference import Inference, infer
 from ..numerics.solve import ILL_CONDITIONED, Slopes, exact_rss, solve_slopes
+from ..passes.moments import ols_residuals
 from ..passes.reduce import IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES
 from ..results.result import EffectInfo, FitResult, FitStatistics, SolverReport
 from .absorb import Absorption, Projections, absorb
@@ -44,12 +45,13 @@ class Within(Estimator):
     options = {"tol": 1e-8, "max_iter": 10_000, "singletons": "drop", "cell_budget": None, "strategy": None,
                "effect_errors": False, **BOOTSTRAP_OPTIONS}
     in_memory = True
+    ols_scores = True  # the scores are X~'u: the clustered effect errors' algebra applies
 
     def fit(self) -> FitResult:
         how = Projections.checked(**{k: self.settings[k] for k in ("tol", "max_iter", "singletons", "cell_budget",
                                                                   "strategy")})
-        boot = BootstrapOptions.checked(**{k: self.settings[k] for k in BOOTSTRAP_OPTIONS})
-        with opened(self.request) as session:
+        boot = BootstrapOptions.checked(**{k: self.settings.get(k, v) for k, v in BOOTSTRAP_OPTIONS.items()})
+        with opened(self.request, **self.spec_options()) as session:
             ab = absorb(session, how, in_memory=self.request.engine == "memory")
             slopes, rss_from = self._slopes(session, ab)
             inf = self._inference(session, ab, slopes)
@@ -57,7 +59,8 @@ class Within(Estimator):
             bootstrap = wild_bootstrap(session, ab, slopes, inf, names, boot) if boot.draws else None
             fx = recover(ab.proj, ab.red.counts, slopes.keep, slopes.beta, ab.first.shift, ab.labels)
             effects = effect_tables(session.spec, ab.back.level_keys, fx, ab.red.rows)
-            effects, errors = effect_errors(session, ab, slopes, inf, effects, bool(self.settings["effect_errors"]))
+            effects, errors = effect_errors(session, ab, slopes, inf, effects, bool(self.settings.get("effect_errors")),
+                                            self.ols_scores)
             solver = self._solver(session, ab, slopes, rss_from)
         res = self._result(session, ab, slopes, inf, solver, effects)
         res.extras["effect_errors"] = errors
@@ -66,6 +69,10 @@ class Within(Estimator):
             for name, values in bootstrap[1].items():
                 res.per_coefficient.setdefault(name, {}).update(values)
         return res
+
+    def spec_options(self) -> dict[str, Any]:
+        """What the spec needs beyond the request (the instruments, for a subclass)."""
+        return {}
 
     def _slopes(self, session: Session, ab: Absorption) -> tuple[Slopes, str]:
         """Slopes from E'WE, and the RSS (from a residual pass when the cross-products cancel)."""
@@ -80,10 +87,11 @@ class Within(Estimator):
     def _inference(self, session: Session, ab: Absorption, slopes: Slopes) -> Inference:
         spec = session.spec
         meat, terms = None, []
+        res = ols_residuals(len(spec.value_aliases), slopes.keep, slopes.beta)
         if spec.variance == "hc1":
-            meat = ab.back.meat_hc(slopes.keep, slopes.beta)
+            meat = ab.back.meat_hc(res)
         elif spec.variance == "cr1":
-            terms = ab.back.meat_cluster(slopes.keep, slopes.beta)
+            terms = ab.back.meat_cluster(res)
         mean_weight = float(ab.red.counts[0].sum()) / ab.mom.n
         return infer(slopes.beta, slopes.bread, slopes.rss, ab.mom.n, ab.absorbed, spec.variance, meat=meat,
                      cluster_terms=terms, cluster_names=spec.cluster, mean_weight=mean_weight)

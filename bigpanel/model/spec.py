@@ -86,6 +86,13 @@ class Spec:
     y_sql: str = ""
     x_sql: tuple[str, ...] = ()
     categorical: tuple[tuple[str, int, str], ...] = ()
+    endogenous: tuple[str, ...] = ()  # regressors (labels in x) that instruments stand in for
+    instruments: tuple[str, ...] = ()  # excluded instruments: the last labels of x, value columns but not regressors
+
+    @property
+    def regressors(self) -> tuple[str, ...]:
+        """The regressors: ``x`` without the excluded instruments at its end."""
+        return self.x[:len(self.x) - len(self.instruments)]
 
     @property
     def volatile_where(self) -> bool:
@@ -217,12 +224,12 @@ def _shown(factor: Factor) -> str:
 
 
 def _term_columns(term: Term, source: Source, eng: Engine | None, where: str | None,
-                  categorical: dict[str, tuple[str, int, str]]) -> list[tuple[str, str]]:
+                  categorical: dict[str, tuple[str, int, str]], role: str = "regressor") -> list[tuple[str, str]]:
     """(label, SQL) of every column a term makes: a product over its factors, each levels()
     factor giving one indicator per level but the first."""
     columns = [("", "")]
     for f in term:
-        _check_factor(f, source, "regressor", eng)
+        _check_factor(f, source, role, eng)
         if f.kind == "levels":
             levels = _levels(eng, f.arg, where)
             categorical[f.arg] = (f.label, len(levels), levels[0])
@@ -251,14 +258,19 @@ def build_spec(
     weights: str | None = None,
     *,
     eng: Engine | None = None,
+    endogenous: list[str] | None = None,
+    instruments: list[str] | None = None,
 ) -> Spec:
     """Check names, types and options; return the spec or raise a one-line error.
 
     Each regressor in ``x`` is a column name or a term's label (``log(price)``,
     ``levels(region):promo``; see :mod:`bigpanel.model.formula`); it becomes one SQL
     expression over quoted source columns, or one per level for ``levels()``.
-    ``eng`` binds expressions and reads the levels of categorical terms.
+    ``eng`` binds expressions and reads the levels of categorical terms. ``endogenous``
+    terms are regressors too (added after ``x`` unless listed there); ``instruments``
+    become value columns after the regressors (see :func:`_instrument_columns`).
     """
+    x = list(x) + [e for e in endogenous or [] if e not in x]
     if not x:
         raise BigPanelError("no regressors: give at least one --x (or a formula 'y ~ x1 + ...')")
     if not fe:
@@ -275,7 +287,11 @@ def build_spec(
     if where is not None:
         where = canonical_where(where, source.columns) if where.strip() else None
     categorical: dict[str, tuple[str, int, str]] = {}
-    regressors = dict(col for name in x for col in _term_columns(_term(name, source), source, eng, where, categorical))
+    per_term = {name: _term_columns(_term(name, source), source, eng, where, categorical) for name in x}
+    regressors = dict(col for columns in per_term.values() for col in columns)
+    endogenous_labels = list(dict.fromkeys(label for name in endogenous or [] for label, _ in per_term[name]))
+    extra = _instrument_columns(source, eng, where, categorical, list(regressors), y, endogenous_labels,
+                                instruments or [])
     effects = tuple(_split_effect(term, source) for term in fe)
     for cols in effects:
         for name in cols:
@@ -305,13 +321,37 @@ def build_spec(
         if not NUMERIC.match(source.columns[weights]):
             raise BigPanelError(f"weights column {weights!r} has type {source.columns[weights]}, not a number")
     keys = [c for cols in effects for c in cols] + cluster
+    regressors.update(extra)
     plain = [c for c in [y, *regressors] if c in source.columns]
     wide = {c: wide_scale(source.columns[c]) for c in plain if wide_scale(source.columns[c]) is not None}
     return Spec(y=y, x=tuple(regressors), fe=effects, cluster=tuple(cluster), variance=variance,
                 where=where, time=time, weights=weights, y_sql=factor_sql(outcome[0], source.columns),
                 x_sql=tuple(regressors.values()), categorical=tuple(categorical.values()),
+                endogenous=tuple(endogenous_labels), instruments=tuple(extra),
                 float_keys=tuple(c for c in keys if source.columns[c] in _FLOATS),
                 wide_values=tuple(wide), wide_scales=tuple(wide.values()))
+
+
+def _instrument_columns(source: Source, eng: Engine | None, where: str | None,
+                        categorical: dict[str, tuple[str, int, str]], regressors: list[str], y: str,
+                        endogenous: list[str], instruments: list[str]) -> dict[str, str]:
+    """(label, SQL) of the excluded ``instruments``; one that is the outcome, a regressor (the
+    ``endogenous`` labels among them) or listed twice is refused in one line."""
+    extra: dict[str, str] = {}
+    for name in instruments:
+        for label, sql in _term_columns(_term(name, source), source, eng, where, categorical, role="instrument"):
+            if label == y or name == y:
+                raise BigPanelError(f"column {name!r} is both the outcome and an instrument")
+            if label in endogenous:
+                raise BigPanelError(f"{label!r} is both endogenous and an instrument: an endogenous regressor "
+                                    "cannot instrument itself")
+            if label in regressors:
+                raise BigPanelError(f"{label!r} is both a regressor and an instrument: an exogenous regressor is "
+                                    "its own instrument already, so list it once, as a regressor")
+            if label in extra:
+                raise BigPanelError(f"instrument {label!r} is listed twice")
+            extra[label] = sql
+    return extra
 
 
 def canonical_where(where: str, columns: dict[str, str] | None = None) -> str:

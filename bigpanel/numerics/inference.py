@@ -114,15 +114,20 @@ def infer(
     cluster_terms: list[ClusterTerm] | None = None,
     cluster_names: tuple[str, ...] = (),
     mean_weight: float = 1.0,
+    k: int | None = None,
 ) -> Inference:
     """Standard errors, t and p values, intervals and the F test; see the module docstring.
+
+    ``k`` is the number of regressors that the degrees of freedom count (default
+    ``len(beta)``; fewer when ``beta`` stacks the coefficients of several equations on the
+    same k regressors, with a block-diagonal ``bread`` and their joint meat).
 
     ``sigma`` is the residual standard error of a row of mean weight,
     sqrt(sum_i w_i u_i^2 / (wbar df)) with wbar = ``mean_weight`` (1 unweighted), so
     that it does not change when every weight is multiplied by the same number
     (the variances do not either: s^2 and (X'WX)^-1 scale oppositely).
     """
-    k = len(beta)
+    k = len(beta) if k is None else k
     df_resid = n - k - absorbed.total
     if df_resid <= 0:
         raise BigPanelError(

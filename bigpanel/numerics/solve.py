@@ -40,37 +40,59 @@ class Slopes:
     condition: float
 
 
-def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slopes:
-    """Slopes of column 0 of ``q`` on the others; see the module docstring for the rules."""
+def total_variation(q: np.ndarray, n: float, st: np.ndarray, tt: np.ndarray) -> np.ndarray:
+    """Each column's weighted sum of squares around its mean (``st`` its sums, ``tt`` its squares),
+    after refusing sums that overflowed and an outcome (column 0) that does not vary within the levels."""
     if not all(np.all(np.isfinite(a)) for a in (q, st, tt)):
         bad = "the outcome" if not np.all(np.isfinite(q[0])) else "a regressor"
         raise BigPanelError(
             f"the sums of squares of {bad} overflowed a double (values beyond about 1e150 in magnitude): "
             "rescale it and fit again"
         )
-    m = q.shape[0]
     total = np.maximum(tt - st**2 / n, 0.0)
     if total[0] <= 0 or q[0, 0] <= ABSORBED_SHARE * total[0]:
         raise BigPanelError(
             "the outcome does not vary " + ("at all" if total[0] <= 0 else "within the fixed-effect levels")
             + ": every slope would be 0 with no information; check the outcome column or the effects"
         )
-    dropped: list[tuple[int, str]] = []
+    return total
+
+
+def screen(q: np.ndarray, total: np.ndarray, columns: list[int], kept: list[int] | None = None,
+           ) -> tuple[list[int], list[tuple[int, str]]]:
+    """Of ``columns`` in order, those neither absorbed nor collinear with ``kept`` and the columns
+    kept before them (see the module docstring), and the dropped ones with the reason."""
+    base = list(kept or [])
     keep: list[int] = []
-    for j in range(1, m):
+    dropped: list[tuple[int, str]] = []
+    for j in columns:
         within = q[j, j]
         if total[j] <= 0 or within <= ABSORBED_SHARE * total[j]:
             dropped.append((j, "absorbed: no variation within the fixed-effect levels"))
             continue
-        if keep:
-            s = np.sqrt(np.diag(q)[keep])
-            qss = q[np.ix_(keep, keep)] / np.outer(s, s)
-            qsj = q[keep, j] / (s * np.sqrt(within))
+        before = base + keep
+        if before:
+            s = np.sqrt(np.diag(q)[before])
+            qss = q[np.ix_(before, before)] / np.outer(s, s)
+            qsj = q[before, j] / (s * np.sqrt(within))
             coef = linalg.lstsq(qss, qsj, cond=None)[0]
             if 1.0 - qsj @ coef < COLLINEAR_SHARE:
                 dropped.append((j, "collinear with the other regressors"))
                 continue
         keep.append(j)
+    return keep, dropped
+
+
+def condition_number(scaled: np.ndarray) -> float:
+    """sqrt of the ratio of the extreme eigenvalues of a unit-diagonal cross-product matrix."""
+    eig = np.linalg.eigvalsh(scaled)
+    return float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else float("inf")
+
+
+def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slopes:
+    """Slopes of column 0 of ``q`` on the others; see the module docstring for the rules."""
+    total = total_variation(q, n, st, tt)
+    keep, dropped = screen(q, total, list(range(1, q.shape[0])))
     if not keep:
         return Slopes(keep, dropped, np.zeros(0), np.zeros((0, 0)), float(q[0, 0]), float("nan"))
     s = np.sqrt(np.diag(q)[keep])
@@ -79,9 +101,7 @@ def solve_slopes(q: np.ndarray, n: int, st: np.ndarray, tt: np.ndarray) -> Slope
     bread = linalg.pinvh(scaled) / np.outer(s, s)
     qk = q[np.ix_(keep, keep)]
     rss = float(q[0, 0] - 2.0 * beta @ q[keep, 0] + beta @ qk @ beta)
-    eig = np.linalg.eigvalsh(scaled)
-    condition = float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else float("inf")
-    return Slopes(keep, dropped, beta, bread, max(rss, 0.0), condition)
+    return Slopes(keep, dropped, beta, bread, max(rss, 0.0), condition_number(scaled))
 
 
 def exact_rss(slopes: Slopes, yy: float, residual: Callable[[list[int], np.ndarray], float]) -> tuple[Slopes, str]:

@@ -49,8 +49,9 @@ class ModelTable:
     ``body`` alternates an estimate row (label: the regressor) and a standard
     error row (label: empty), followed by a row of wild bootstrap p-values in
     brackets when some fit has them; ``footer`` holds N, the effects, the clusters per
-    cluster column, the variance type, the full-model and within R-squared and,
-    when they differ, the outcome, estimator and weights. ``records`` has one
+    cluster column, the variance type, each endogenous regressor's first-stage
+    partial F (IV fits), the full-model and within R-squared and, when they
+    differ, the outcome, estimator (2SLS or LIML for IV fits) and weights. ``records`` has one
     dict per model and term with the unrounded numbers (the CSV output).
     """
 
@@ -139,12 +140,16 @@ def _footer_rows(fits: list[dict[str, Any]]) -> list[Row]:
     rows += [[f"clusters: {name}", *(f"{c[name]:,}" if name in c else "" for c in clusters)]
              for name in _first_seen([list(c) for c in clusters])]
     rows.append(["variance", *map(_variance, fits)])
+    stages = [f.get("first_stage") or {} for f in fits]
+    rows += [[f"first-stage F: {name}", *(f"{fs[name]['partial_f']:.1f}" if name in fs else "" for fs in stages)]
+             for name in _first_seen([list(fs) for fs in stages])]
     for label, key in (("R-squared, full model", "r2_full_model"), ("within R-squared", "r2_within")):
         values = [(f.get("fit") or {}).get(key) for f in fits]
         if any(v is not None for v in values):
             rows.append([label, *(format_number(v, R2_DECIMALS) if v is not None else "" for v in values)])
     for key, usual in (("outcome", fits[0].get("outcome")), ("estimator", "within"), ("weights", None)):
-        values = [f.get(key) for f in fits]
+        values = [(f.get("instrumental_variables") or {}).get("method") or f.get(key) if key == "estimator"
+                  else f.get(key) for f in fits]
         if any(value != usual for value in values):
             rows.append([key, *(str(value or "") for value in values)])
     return rows

@@ -141,24 +141,107 @@ def _cluster_totals(eng: Engine, names: list[str], m: int) -> Moments:
     return _moments(row, m)
 
 
-def _resid_parts(keep: list[int], weighted: bool) -> tuple[str, str]:
-    """The residual u (times the weight, when weighted) and the columns the meat needs."""
-    fit = " + ".join(f"b.b{j} * e{j}" for j in keep)
-    resid = f"(e0 - ({fit}))" + (" * w" if weighted else "")
-    return resid, ", ".join(f"e{j}" for j in keep)
+@dataclass(frozen=True)
+class Residuals:
+    """Residuals of a linear estimator as combinations of the value columns, and where its scores live.
+
+    Column a of ``coef`` (m x p) gives the residual u_a = sum_j coef[j, a] e_j over the m
+    demeaned value columns e_j; the scores of every linear estimator are s_i = M' e_i w_i u_i
+    for a map M from value columns to score columns, so the meats need only the columns
+    ``support`` where some map is not zero. The raw meat over the support stacks, for every
+    pair of residuals (a, b), T_ab = sum_i w_i^2 u_ia u_ib e_i e_i' (HC) or
+    sum_c v_ca v_cb' with v_ca = Q_c coef[:, a] from the per-cluster cross-products Q_c
+    (CR1), laid out as a (p s) x (p s) matrix with residual a's block at rows a s ... a s + s - 1;
+    :func:`mapped` applies the maps. OLS: one residual, coef = (1, -b) over (y, kept
+    regressors), support = the kept regressors, M = identity. ``blocks`` lists the pairs of
+    residuals (a <= b) whose T_ab is wanted (None: every pair); the others are left zero.
+    """
+
+    coef: np.ndarray
+    support: list[int]
+    blocks: tuple[tuple[int, int], ...] | None = None
+
+    @property
+    def count(self) -> int:
+        return self.coef.shape[1]
+
+    def wanted(self, raw: np.ndarray) -> np.ndarray:
+        """``raw`` with the blocks of unwanted pairs of residuals set to zero."""
+        if self.blocks is None:
+            return raw
+        s, out = len(self.support), np.zeros_like(raw)
+        for a, b in self.blocks:
+            out[a * s:(a + 1) * s, b * s:(b + 1) * s] = raw[a * s:(a + 1) * s, b * s:(b + 1) * s]
+            out[b * s:(b + 1) * s, a * s:(a + 1) * s] = raw[b * s:(b + 1) * s, a * s:(a + 1) * s]
+        return out
+
+    def pairs(self, symmetric: bool) -> list[tuple[int, int, int, int]]:
+        """Index pairs (a, j), (b, k) of the raw meat that are summed: the wanted blocks a <= b
+        and, where a block is symmetric (every HC block, the diagonal ones of CR1), j <= k."""
+        s, out = len(self.support), []
+        for a in range(self.count):
+            for b in range(a, self.count):
+                if self.blocks is not None and (a, b) not in self.blocks:
+                    continue
+                out += [(a, j, b, k) for j in range(s) for k in range(s) if j <= k or not (symmetric or a == b)]
+        return out
 
 
-def _store_coef(eng: Engine, keep: list[int], beta: np.ndarray) -> None:
-    put_one_row(eng, "bp_coef", {f"b{j}": float(b) for j, b in zip(keep, beta)})
+def ols_residuals(m: int, keep: list[int], beta: np.ndarray) -> Residuals:
+    """The OLS residual y~ - X~b of value column 0 on the kept columns, scores on those columns."""
+    coef = np.zeros((m, 1))
+    coef[0, 0] = 1.0
+    coef[keep, 0] = -np.asarray(beta, dtype=float)
+    return Residuals(coef, list(keep))
 
 
-def meat_hc(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> np.ndarray:
-    """Pass 4 (HC1): sum_i (w_i u_i)^2 x~_i x~_i' over the kept regressors (w = 1 unweighted)."""
-    _store_coef(eng, keep, beta)
-    resid, carry = _resid_parts(keep, bool(spec.weights))
-    sums = [f"fsum(u * u * e{i} * e{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
+def mapped(raw: np.ndarray, maps: list[np.ndarray]) -> np.ndarray:
+    """The meat of the stacked score columns: B' raw B with B block-diagonal of the maps
+    (maps[a]: support x k_a, zero columns for a residual whose scores are not wanted)."""
+    s = maps[0].shape[0]
+    big = np.zeros((s * len(maps), sum(m.shape[1] for m in maps)))
+    col = 0
+    for a, m in enumerate(maps):
+        big[a * s:(a + 1) * s, col:col + m.shape[1]] = m
+        col += m.shape[1]
+    return big.T @ raw @ big
+
+
+def _store_residuals(eng: Engine, res: Residuals) -> list[list[int]]:
+    """Store the residuals' coefficients as the one-row table ``bp_coef`` (``r{a}_{j}``);
+    returns the value columns each residual uses."""
+    used = [[j for j in range(res.coef.shape[0]) if res.coef[j, a] != 0.0] for a in range(res.count)]
+    put_one_row(eng, "bp_coef", {f"r{a}_{j}": float(res.coef[j, a]) for a in range(res.count) for j in used[a]})
+    return used
+
+
+def _residual_sql(used: list[int], a: int, column: str) -> str:
+    """Residual a as SQL over ``column`` j (``e{j}`` rows, or a cluster's ``q_{j}_{l}``)."""
+    return " + ".join(f"b.r{a}_{j} * {column.format(j=j)}" for j in used)
+
+
+def _raw(row: dict, res: Residuals, symmetric: bool) -> np.ndarray:
+    s = len(res.support)
+    out = np.zeros((res.count * s, res.count * s))
+    for a, j, b, k in res.pairs(symmetric):
+        v = row[f"h_{a}_{j}_{b}_{k}"]
+        out[a * s + j, b * s + k] = out[b * s + k, a * s + j] = v
+        if symmetric or a == b:
+            out[a * s + k, b * s + j] = out[b * s + j, a * s + k] = v
+    return out
+
+
+def meat_hc(eng: Engine, spec: Spec, res: Residuals) -> np.ndarray:
+    """Pass 4 (HC1): the raw meat sum_i w_i^2 u_ia u_ib e_ij e_il over the support (see
+    :class:`Residuals`; w = 1 unweighted), every residual formed row by row in one pass."""
+    used = _store_residuals(eng, res)
+    weight = " * w" if spec.weights else ""
+    resid = join([f"({_residual_sql(used[a], a, 'e{j}')}){weight} AS u{a}" for a in range(res.count)])
+    sums = [f"fsum(u{a} * u{b} * e{res.support[j]} * e{res.support[k]}) AS h_{a}_{j}_{b}_{k}"
+            for a, j, b, k in res.pairs(symmetric=True)]
+    carry = ", ".join(f"e{j}" for j in res.support)
     row = eng.one("robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
-    return _square(row, keep)
+    return _raw(row, res, symmetric=True)
 
 
 def cluster_sets(n: int) -> list[tuple[int, ...]]:
@@ -166,39 +249,32 @@ def cluster_sets(n: int) -> list[tuple[int, ...]]:
     return [c for r in range(1, n + 1) for c in combinations(range(n), r)]
 
 
-def meat_cluster(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> list[ClusterTerm]:
-    """Cluster meat for every combination S of cluster columns: sum over its clusters of g_c g_c'
-    with g_c = sum_{i in c} w_i u_i x~_i = q_c[0, j] - sum_k b_k q_c[k, j] from the per-cluster
-    cross-products q_c of :func:`cross_products` (no pass over the rows)."""
-    _store_coef(eng, keep, beta)
-
-    def q(i: int, j: int) -> str:
-        return f"q_{min(i, j)}_{max(i, j)}"
-
-    scores = join([f"{q(0, j)} - (" + " + ".join(f"b.b{k} * {q(k, j)}" for k in keep) + f") AS g{j}" for j in keep])
-    sums = [f"fsum(g{i} * g{j}) AS h_{i}_{j}" for a, i in enumerate(keep) for j in keep[a:]]
+def meat_cluster(eng: Engine, spec: Spec, res: Residuals) -> list[ClusterTerm]:
+    """The raw cluster meat for every combination S of cluster columns: sum over its clusters of
+    v_ca v_cb' with v_ca[j] = sum_l q_c[j, l] coef[l, a] = sum_{i in c} w_i u_ia e_ij read from the
+    per-cluster cross-products q_c of :func:`cross_products` (no pass over the rows)."""
+    used = _store_residuals(eng, res)
+    s = len(res.support)
+    scores = join([
+        " + ".join(f"b.r{a}_{j} * q_{min(j, res.support[x])}_{max(j, res.support[x])}" for j in used[a])
+        + f" AS g{a}_{x}"
+        for a in range(res.count) for x in range(s)
+    ])
+    sums = [f"fsum(g{a}_{j} * g{b}_{k}) AS h_{a}_{j}_{b}_{k}" for a, j, b, k in res.pairs(symmetric=False)]
     tab = eng.arrow("cluster scores", render("meat_cluster", sums=join(sums), scores=scores))
     width = len(spec.cluster_aliases)
     terms = []
     for row in tab.to_pylist():
         cols = tuple(j for j in range(width) if not (row["gid"] >> (width - 1 - j)) & 1)
-        terms.append(ClusterTerm(cols, int(row["n_clusters"]), _square(row, keep)))
+        terms.append(ClusterTerm(cols, int(row["n_clusters"]), _raw(row, res, symmetric=False)))
     return sorted(terms, key=lambda t: (len(t.columns), t.columns))
 
 
-def _square(row: dict, keep: list[int]) -> np.ndarray:
-    k = len(keep)
-    out = np.zeros((k, k))
-    for a in range(k):
-        for c in range(a, k):
-            out[a, c] = out[c, a] = row[f"h_{keep[a]}_{keep[c]}"]
-    return out
-
-
-def residual_ss(eng: Engine, spec: Spec, keep: list[int], beta: np.ndarray) -> float:
-    """A pass over the rows: RSS = sum_i w_i (y~_i - x~_i'b)^2 (w = 1 unweighted), each residual
-    formed before it is squared, so a nearly perfect fit keeps its digits (see :func:`bigpanel.solve.exact_rss`)."""
-    _store_coef(eng, keep, beta)
-    resid, _ = _resid_parts(keep, weighted=False)  # the weight multiplies the square in the template
-    sql = render("residual_ss", weight=spec.w, resid=resid, carry=", w" if spec.weights else "")
+def residual_ss(eng: Engine, spec: Spec, res: Residuals) -> float:
+    """A pass over the rows: RSS = sum_i w_i u_i^2 of the first residual (w = 1 unweighted), each
+    residual formed before it is squared, so a nearly perfect fit keeps its digits (see
+    :func:`bigpanel.numerics.solve.exact_rss`)."""
+    used = _store_residuals(eng, res)
+    sql = render("residual_ss", weight=spec.w, resid=f"({_residual_sql(used[0], 0, 'e{j}')})",
+                 carry=", w" if spec.weights else "")
     return float(eng.one("residual sum of squares, row by row", sql, raw=True)["rss"])

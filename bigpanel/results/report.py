@@ -35,11 +35,17 @@ def _g(v: float, digits: int = 6) -> str:
     return f"{v:.{digits}g}"
 
 
+def _absorbs(res: FitResult) -> bool:
+    """Whether the fit absorbed fixed effects (the within fit and those built on it), not a panel unit."""
+    return all(d.role is None for d in res.fe)
+
+
 def _header(res: FitResult) -> Text:
     head = Text()
-    head.append(f"{res.estimator} estimate  ", style="bold")
+    iv = res.extras.get("instrumental_variables")
+    head.append(f"{iv['method'] if iv else res.estimator} estimate  ", style="bold")
     head.append(res.formula, style="bold magenta")
-    if res.estimator == "within":
+    if _absorbs(res):
         effects = ", ".join(f"{d.name} with {_n(d.levels)} levels" for d in res.fe)
         head.append(f"\nfixed effects removed: {effects}", style="dim")
     else:
@@ -125,7 +131,7 @@ def _variance(res: FitResult, lines: Text) -> None:
     lines.append(f"; t on {_n(inf.df)} df")
     _line(lines, "fit")
     r2 = (f"R-squared {res.fit.r2_full_model:.4f} with the effects, {res.fit.r2_within:.4f} after removing them"
-          if res.estimator == "within" else f"R-squared {res.fit.r2_transformed:.4f} of the transformed regression")
+          if _absorbs(res) else f"R-squared {res.fit.r2_transformed:.4f} of the transformed regression")
     lines.append(
         f"{r2}; residual s.e. {_g(inf.sigma, 4)} on {_n(res.fit.df_resid)} df; "
         f"F({_n(inf.f_df[0])}, {_n(inf.f_df[1])}) = {inf.f_stat:.4g}, p {_p(inf.f_p)}"
@@ -134,7 +140,7 @@ def _variance(res: FitResult, lines: Text) -> None:
 
 def _solver(res: FitResult, lines: Text) -> None:
     s = res.solver
-    if res.estimator == "within":
+    if _absorbs(res):
         _line(lines, "effects")
         plural = "" if res.components == 1 else "s"
         comp = f" in {res.components} connected component{plural}" if res.components else ""
@@ -182,14 +188,46 @@ def _panel_tests(res: FitResult, lines: Text) -> None:
         )
 
 
+def _instruments(res: FitResult, lines: Text) -> None:
+    """The IV diagnostics: first stages, instrument strength, identification and the tests."""
+    iv = res.extras.get("instrumental_variables")
+    if not iv:
+        return
+    _line(lines, "iv")
+    lines.append(f"{iv['method']}" + (f" (kappa {iv['kappa']:.6g})" if iv["method"] == "LIML" else "")
+                 + f"; {', '.join(iv['endogenous'])} instrumented by {', '.join(iv['instruments'])}")
+    for name, fs in res.extras["first_stage"].items():
+        _line(lines, "1st stage")
+        coefs = ", ".join(f"{z} {_g(c['estimate'], 4)} ({_g(c['std_error'], 3)})" for z, c in fs["coefficients"].items())
+        lines.append(f"{name} on {coefs}; partial F({fs['df'][0]:g}, {_n(fs['df'][1])}) = {fs['partial_f']:.4g} "
+                     f"({fs['variance']}), p {_p(fs['p_value'])}; partial R-squared {fs['partial_r2']:.4f}")
+    weak = res.extras["weak_identification"]
+    _line(lines, "strength")
+    values = "; ".join(f"{k} {v:g}" for k, v in weak["stock_yogo"].items())
+    lines.append(f"{weak['statistic']} {weak['value']:.4g}"
+                 + (f"; Stock-Yogo critical values (from memory): {values}" if values else ""))
+    for label, key, null in (("rank test", "underidentification", "not identified"),
+                             ("validity", "overidentification", "every instrument is valid")):
+        test = res.extras.get(key)
+        if test:
+            _line(lines, label)
+            lines.append(f"{test['test']} chi2({test['df']}) = {test['statistic']:.4g}, p {_p(test['p_value'])} "
+                         f"(null: {null})")
+    ar = res.extras["anderson_rubin"]
+    _line(lines, "AR test")
+    lines.append(f"F({ar['df'][0]:g}, {_n(ar['df'][1])}) = {ar['statistic']:.4g}, p {_p(ar['p_value'])} "
+                 "(Anderson-Rubin; null: every endogenous coefficient is 0; valid with weak instruments)")
+
+
 def fit_renderable(res: FitResult) -> Group:
     """The report: a coefficient table framed by lines on sample, effects, variance and solver."""
     lines = Text()
-    for section in (_rows, _variance, _bootstrap, _solver, _panel_tests):
+    for section in (_rows, _variance, _bootstrap, _solver, _panel_tests, _instruments):
         section(res, lines)
     if res.dropped:
         _line(lines, "dropped", style="bold yellow")
-        lines.append("; ".join(f"{d['name']} ({d['reason']})" for d in res.dropped), style="yellow")
+        lines.append("; ".join(f"{d.get('role', '')} {d['name']} ({d['reason']})".lstrip() for d in res.dropped),
+                     style="yellow")
     for w in res.warnings:
         _line(lines, "warning", style="bold red")
         lines.append(w, style="red")

@@ -177,8 +177,11 @@ class FitResult:
 
     @property
     def formula(self) -> str:
-        regs = self.names + [d["name"] for d in self.dropped]
-        return f"{self.outcome} ~ {' + '.join(regs)}"
+        """The model as fitted, in the formula language (with its instruments' clause for IV)."""
+        regs = self.names + [d["name"] for d in self.dropped if d.get("role") != "instrument"]
+        iv = self.extras.get("instrumental_variables")
+        clause = f", {' + '.join(iv['endogenous'])} instrumented by {' + '.join(iv['instruments'])}" if iv else ""
+        return f"{self.outcome} ~ {' + '.join(regs)}{clause}"
 
     def effects_summary(self) -> dict[str, dict[str, float | int | None]]:
         """Mean (unweighted over levels), sd, min and max of each dimension's effects (for a loaded

@@ -5,7 +5,10 @@
 --   about 1,000 levels drawn at random for every row (an effect that cuts across
 --   stores and weeks);
 -- * store-week-region: store-week plus the store's region, 50 regions (stores
---   nested in regions: few clusters for the wild cluster bootstrap).
+--   nested in regions: few clusters for the wild cluster bootstrap);
+-- * store-week-iv: store-week with two cost shifters, cost_index and rival_price,
+--   that move log_price, and a price that also answers the demand noise (so
+--   log_price is endogenous and the shifters are valid instruments).
 -- log_sales = 1.0 log_price - 0.5 promo_share + 0.25 staff_hours + store + week
 --             (+ supplier) effects + noise; the regressors move with the store and
 -- week effects, so pooled OLS is biased. Rows are written store by store.
@@ -28,12 +31,12 @@ COPY (
   )
   SELECT CAST(s + 1 AS INTEGER) AS store,
          CAST(w + 1 AS SMALLINT) AS week,
-         {{supplier_column}}
+         {{supplier_column}}{{instrument_columns}}
          {{region_column}}
-         z1 + 0.5 * z_store AS log_price,
+         z1 + 0.5 * z_store {{price_shift}} AS log_price,
          z2 + 0.3 * z_week AS promo_share,
          z3 AS staff_hours,
-         1.0 * (z1 + 0.5 * z_store) - 0.5 * (z2 + 0.3 * z_week) + 0.25 * z3
+         1.0 * (z1 + 0.5 * z_store {{price_shift}}) - 0.5 * (z2 + 0.3 * z_week) + 0.25 * z3
              + z_store + z_week {{supplier_effect}} + z_noise AS log_sales
   FROM draws
   WHERE u_keep >= 0.03

@@ -316,21 +316,22 @@ SELECT sum(n) AS n,
 FROM bp_cluster_moments
 WHERE gid = $gid
 ;
--- params: {"b1": 0.441666}
+-- params: {"r0_0": 1.0, "r0_1": -0.441666}
 -- A one-row helper table of numbers bound as parameters (shifts, coefficients).
 CREATE OR REPLACE TEMP TABLE bp_coef AS
-SELECT CAST($b1 AS DOUBLE) AS b1
+SELECT CAST($r0_0 AS DOUBLE) AS r0_0,
+       CAST($r0_1 AS DOUBLE) AS r0_1
 ;
 -- params: {}
 -- Cluster-robust meat from the per-cluster cross-products of bp_cluster_moments:
--- the score of cluster c is g_c = X~_c'W y~_c - X~_c'W X~_c b (b from the one-row
--- table bp_coef), then the sum over the clusters of g_c g_c', for every
--- combination of cluster columns. Reads no raw row.
+-- the score of cluster c for residual a is v_ca = Q_c r_a (r_a from the one-row
+-- table bp_coef), then the sum over the clusters of the products of those
+-- scores, for every combination of cluster columns. Reads no raw row.
 SELECT gid,
        count(*) AS n_clusters,
-       fsum(g1 * g1) AS h_1_1
+       fsum(g0_0 * g0_0) AS h_0_0_0_0
 FROM (SELECT gid,
-             q_0_1 - (b.b1 * q_1_1) AS g1
+             b.r0_0 * q_0_1 + b.r0_1 * q_1_1 AS g0_0
       FROM bp_cluster_moments CROSS JOIN bp_coef AS b) AS g
 GROUP BY gid
 ORDER BY gid

@@ -178,15 +178,15 @@ CREATE TEMPORARY TABLE bp_cluster_moments AS SELECT GROUPING(cl1, cl2) AS gid, c
 ;
 SELECT SUM(n) AS n, SUM(q_0_0) AS q_0_0, SUM(q_0_1) AS q_0_1, SUM(q_1_1) AS q_1_1 FROM bp_cluster_moments WHERE gid = %(gid)s
 ;
--- params: {"b1": 0.441666}
+-- params: {"r0_0": 1.0, "r0_1": -0.441666}
 ;
 DROP TABLE IF EXISTS bp_coef
 ;
-CREATE TEMPORARY TABLE bp_coef AS SELECT CAST(%(b1)s AS DOUBLE PRECISION) AS b1
+CREATE TEMPORARY TABLE bp_coef AS SELECT CAST(%(r0_0)s AS DOUBLE PRECISION) AS r0_0, CAST(%(r0_1)s AS DOUBLE PRECISION) AS r0_1
 ;
 -- params: {}
 ;
-SELECT gid, COUNT(*) AS n_clusters, SUM(g1 * g1) AS h_1_1 FROM (SELECT gid, q_0_1 - (b.b1 * q_1_1) AS g1 FROM bp_cluster_moments CROSS JOIN bp_coef AS b) AS g GROUP BY gid ORDER BY gid
+SELECT gid, COUNT(*) AS n_clusters, SUM(g0_0 * g0_0) AS h_0_0_0_0 FROM (SELECT gid, b.r0_0 * q_0_1 + b.r0_1 * q_1_1 AS g0_0 FROM bp_cluster_moments CROSS JOIN bp_coef AS b) AS g GROUP BY gid ORDER BY gid
 ;
 -- params: {}
 ;
