@@ -57,13 +57,13 @@ class Session:
 
 
 @contextlib.contextmanager
-def opened(request: Request, *, time: str | None = None) -> Iterator[Session]:
+def opened(request: Request, *, time: str | None = None, regressors_required: bool = True) -> Iterator[Session]:
     """Open the engine on the source, check the spec (and the filter); close the engine after."""
     eng, src = open_session(request.source, request.table, engine=request.engine, on_step=request.on_step,
                             **request.engine_options)
     try:
         spec = build_spec(src, request.y, request.x, request.fe, request.cluster, request.variance, request.where,
-                          time=time, weights=request.weights, eng=eng)
+                          time=time, weights=request.weights, eng=eng, regressors_required=regressors_required)
         if spec.where:
             check_where(eng, spec.where)
         yield Session(eng, src, spec)

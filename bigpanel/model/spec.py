@@ -86,6 +86,10 @@ class Spec:
     y_sql: str = ""
     x_sql: tuple[str, ...] = ()
     categorical: tuple[tuple[str, int, str], ...] = ()
+    # columns an estimator's own passes read besides the model's: (internal name, SQL over quoted source columns)
+    carry: tuple[tuple[str, str], ...] = ()
+    # a condition over internal names that restricts the fitted sample (bp_sample) within the complete rows
+    sample_where: str | None = None
 
     @property
     def volatile_where(self) -> bool:
@@ -251,15 +255,17 @@ def build_spec(
     weights: str | None = None,
     *,
     eng: Engine | None = None,
+    regressors_required: bool = True,
 ) -> Spec:
     """Check names, types and options; return the spec or raise a one-line error.
 
     Each regressor in ``x`` is a column name or a term's label (``log(price)``,
     ``levels(region):promo``; see :mod:`bigpanel.model.formula`); it becomes one SQL
     expression over quoted source columns, or one per level for ``levels()``.
-    ``eng`` binds expressions and reads the levels of categorical terms.
+    ``eng`` binds expressions and reads the levels of categorical terms. An estimator whose
+    regressors are optional (the event study's controls) passes ``regressors_required=False``.
     """
-    if not x:
+    if not x and regressors_required:
         raise BigPanelError("no regressors: give at least one --x (or a formula 'y ~ x1 + ...')")
     if not fe:
         raise BigPanelError("no fixed effect: give at least one --fe column")
