@@ -29,8 +29,8 @@ from ..numerics.imputation import (Cells, Columns, Imputed, cell_averages, choos
 from ..numerics.inference import infer
 from ..numerics.project import Projection
 from ..numerics.solve import Slopes, solve_slopes
-from ..passes.event import (PanelCounts, ScoreTerms, Targets, cell_sums, check_panel, cluster_scores, lead_products,
-                            meat, put_components, rows_view, targets)
+from ..passes.event import (PanelCounts, ScoreTerms, Targets, cell_sums, check_panel, cluster_scores, meat,
+                            put_components, rows_view, targets)
 from ..passes.moments import ClusterTerm, store_effects
 from ..passes.reduce import Reduction, Start, put_one_row
 from ..results.event import EventEstimate, EventResult
@@ -148,8 +148,7 @@ class EventStudy(Estimator):
             raise RuntimeError(f"imputed rows' weights {imp.totals} differ from the right-hand sides' {expected}")
         gammas = imp.control_means @ slopes.bread if controls else np.zeros((len(cols.estimands), 0))
         q_idx = [0, *slopes.keep]
-        products = lead_products(eng, slopes.keep, len(cols.leads)) if cols.leads else {}
-        q = pretrend_moments(cells, products, ab.mom.q[np.ix_(q_idx, q_idx)], controls, cols.leads)
+        q = pretrend_moments(cells, ab.mom.q[np.ix_(q_idx, q_idx)], controls, cols.leads)
         pt = _pretrend_slopes(ab, q, q_idx, lead_rows(cells, cols.leads), len(controls))
         eng.put_table("bp_event_tbar", cell_averages(cells))
         coef = {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}}

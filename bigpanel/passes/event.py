@@ -12,8 +12,11 @@ target weight. In order:
    each lead and the target weights of the imputable treated rows of each estimand, and
    the treated rows that cannot be imputed, by reason;
 3. the sums by cell (:func:`cell_sums`) over :func:`rows_view`, the usable rows with the
-   untreated fit's effects joined back;
-4. the scores per cluster (:func:`cluster_scores`) and their products (:func:`meat`).
+   untreated fit's effects and the extra columns' solutions joined back;
+4. the scores per cluster (:func:`cluster_scores`); their products over the clusters
+   (:func:`meat`) read that small table, not the rows.
+
+Sums are plain (not compensated): their summands are demeaned values and imputed effects.
 """
 
 from __future__ import annotations
@@ -187,14 +190,6 @@ def cell_sums(eng: Engine, controls: list[int], leads: int, lo: int) -> pa.Table
                      raw=True)
 
 
-def lead_products(eng: Engine, controls: list[int], leads: int) -> dict[str, float]:
-    """Pass 4 (with leads only): sum z_a e_0 and sum z_a e_j over the untreated rows."""
-    sums = [f"sum(z{a} * {e}) AS pz{a}_{e}" for a in range(leads) for e in ["e0", *(f"e{j}" for j in controls)]]
-    row = eng.one("event study: products of the leads' effects", render("event_lead_products", sums=join(sums)),
-                  raw=True)
-    return {k: float(v or 0.0) for k, v in row.items()}
-
-
 @dataclass(frozen=True)
 class ScoreTerms:
     """What the per-cluster scores need: the kept controls, the leads solved (event times;
@@ -213,7 +208,7 @@ def _one(condition: str) -> str:
 
 
 def cluster_scores(eng: Engine, t: ScoreTerms) -> None:
-    """Pass 5: per cluster, the sums that make each estimand's and the pre-trend fit's scores,
+    """Pass 4: per cluster, the sums that make each estimand's and the pre-trend fit's scores,
     into ``bp_event_scores``: sa_h = sum a [k = h] (or sum a over every treated row), sb_h =
     sum z_h u and sc_j = sum e_j u over the untreated rows, sp_j = sum e_j u2 and sq_a =
     sum (L_a - z_a) u2 (see
