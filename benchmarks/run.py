@@ -33,6 +33,7 @@ import numpy as np
 from rich.console import Console
 from rich.table import Table
 
+import event_study
 import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
@@ -56,6 +57,9 @@ CONFIGS = {
     "one-way": [  # one effect on a panel without missing values: the one-pass fit
         ("store-week", ["store"], None),
         ("store-week", ["store"], "store"),
+    ],
+    "event": [  # the event study by imputation against the within fit on the same rows (issue 18)
+        ("store-week-adoption", ["store", "week"], None),
     ],
     "row-codes": [  # the row-codes configurations of the main group but staff (a rerun after a fix)
         ("store-week", ["store", "week"], None),
@@ -91,6 +95,7 @@ def formula(name: str) -> str:
 def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     name, fe, cluster = config
     rec = {"rows": rows, "panel": name, "effects": fe, "cluster": cluster, "what": what, "ok": out["ok"]}
+    rec["load_before"] = round(os.getloadavg()[0], 2)
     if not out["ok"]:
         rec["error"] = out["error"]
         return rec
@@ -100,7 +105,7 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     if what != "scan":
         rec["coefficients"] = {n: c["estimate"] for n, c in res["coefficients"].items()}
         rec["iterations"] = res["solver"]["iterations"]
-    if what == "fit":
+    if what in ("fit", "event"):
         s = res["solver"]
         rec.update(strategy=s["strategy"]["name"], reason=s["strategy"]["reason"], converged=s["converged"],
                    cross_products_from=s.get("cross_products_from"),
@@ -108,8 +113,10 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     return rec
 
 
-def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], group: str = "main") -> dict:
-    """Every configuration of ``group`` at every size, then its store-week ones at the ``large`` sizes."""
+def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], group: str = "main",
+        repeat: int = 1) -> dict:
+    """Every configuration of ``group`` at every size, then its store-week ones at the ``large`` sizes;
+    each measurement ``repeat`` times in a row (the tables take the fastest)."""
     spill = data_dir / "spill"
     total_memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
     records = []
@@ -122,21 +129,27 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
         steps = [("scan", model, None),
                  ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
         fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
-        if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
+        if group == "event":  # the event study right after the within fit of the same model
+            steps.append(("event", steps[1][1], event_study.fit))
+        elif cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
             if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
                 steps.append(("numpy", model, plain_numpy.fit))
-        for what, m, runner in steps:
-            out = measure("scan" if what == "scan" else "duckdb", m, runner)
-            rec = _record(rows, config, what, out)
-            records.append(rec)
-            print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}), file=sys.stderr)
+        for _ in range(repeat):
+            for what, m, runner in steps:
+                out = measure("scan" if what == "scan" else "duckdb", m, runner)
+                rec = _record(rows, config, what, out)
+                records.append(rec)
+                print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}),
+                      file=sys.stderr)
     return {"bigpanel_version": __version__, "machine": machine(), "memory_limit": memory_limit,
             "records": records, "summary": summarise(records)}
 
 
 def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
-    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}"
+    what = ", event study" if rec["what"] == "event" else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{what}"
+
 
 
 def warm_scan(records: list[dict], rec: dict) -> dict | None:
@@ -153,19 +166,26 @@ def summarise(records: list[dict]) -> dict:
     ok = [r for r in records if r["ok"]]
 
     def find(rows: int, key: str, what: str) -> dict | None:
-        found = next((r for r in ok if r["rows"] == rows and _key(r) == key and r["what"] == what), None)
-        return warm_scan(ok, found) if found is not None and what == "scan" else found
+        found = [r for r in ok if r["rows"] == rows and _key(r) == key and r["what"] == what]
+        best = min(found, key=lambda r: r["seconds"]) if found else None
+        return warm_scan(ok, best) if best is not None and what == "scan" else best
 
     def numpy_of(rows: int, rec: dict) -> dict | None:
         return next((r for r in ok if r["rows"] == rows and r["what"] == "numpy" and r["panel"] == rec["panel"]
                      and r["effects"] == rec["effects"]), None)
 
-    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {}}
-    keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] == "fit"))
+    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {},
+                 "event_over_within": {}}
+    keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] in ("fit", "event")))
     sizes = sorted({r["rows"] for r in ok})
     for key in keys:
         for rows in sizes:
-            scan, fit = find(rows, key, "scan"), find(rows, key, "fit")
+            what = "event" if key.endswith("event study") else "fit"
+            scan, fit = find(rows, key.removesuffix(", event study"), "scan"), find(rows, key, what)
+            if what == "event" and fit:
+                within = find(rows, key.removesuffix(", event study"), "fit")
+                if within:
+                    out["event_over_within"][f"{key} @ {rows:,}"] = round(fit["seconds"] / within["seconds"], 2)
             label = f"{key} @ {rows:,}"
             if scan and fit:
                 out["ratio_to_scan"][label] = round(fit["seconds"] / scan["seconds"], 2)
@@ -174,7 +194,8 @@ def summarise(records: list[dict]) -> dict:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
                 diffs = [abs(fit["coefficients"][n] - b) / abs(b) for n, b in ref["coefficients"].items()]
                 out["max_rel_slope_diff_vs_numpy"][label] = float(max(diffs))
-        pts = [(rows, find(rows, key, "fit")) for rows in sizes if rows >= 10_000_000]
+        pts = [(rows, find(rows, key, "event" if key.endswith("event study") else "fit")) for rows in sizes
+               if rows >= 10_000_000]
         pts = [(r, f["seconds"]) for r, f in pts if f]
         if len(pts) >= 2:
             x, y = np.log([p[0] for p in pts]), np.log([p[1] for p in pts])
@@ -189,9 +210,9 @@ def table(result: dict) -> Table:
         t.add_column(col, justify="left" if col in ("model", "strategy") else "right")
     recs = result["records"]
     for rows in sorted({r["rows"] for r in recs}):
-        for key in dict.fromkeys(_key(r) for r in recs if r["what"] == "fit"):
-            got = {r["what"]: r for r in recs if r["rows"] == rows and _key(r) == key}
-            fit = got.get("fit")
+        for key in dict.fromkeys(_key(r) for r in recs if r["what"] in ("fit", "event")):
+            got = [r for r in recs if r["rows"] == rows and _key(r) == key and r["what"] in ("fit", "event")]
+            fit = min([r for r in got if r["ok"]], key=lambda r: r["seconds"], default=got[0] if got else None)
             scan = warm_scan(recs, fit) if fit is not None else None
             ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit
                         and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]), None)
@@ -220,7 +241,7 @@ def markdown(result: dict) -> str:
 
 
 def plot(result: dict, path: Path) -> None:
-    from bigpanel.plots import pyplot, save_figure
+    from bigpanel.output.plots import pyplot, save_figure
 
     plt = pyplot()
     fig, (ax_t, ax_m) = plt.subplots(1, 2, figsize=(12, 4.6))
@@ -260,6 +281,7 @@ def main() -> None:
     parser.add_argument("--out", default=str(HERE / "results.json"))
     parser.add_argument("--png", default=str(HERE / "results.png"))
     parser.add_argument("--again", metavar="JSON", help="redo the summary, table and plot of an earlier run")
+    parser.add_argument("--repeat", type=int, default=1, help="run every measurement this many times in a row")
     args = parser.parse_args()
     if args.again:
         result = json.loads(Path(args.again).read_text())
@@ -269,7 +291,7 @@ def main() -> None:
         data_dir = Path(args.data_dir)
         data_dir.mkdir(parents=True, exist_ok=True)
         large = [int(float(s)) for s in args.large.split(",") if s]
-        result = run(sizes, data_dir, args.memory_limit, large, args.configs)
+        result = run(sizes, data_dir, args.memory_limit, large, args.configs, args.repeat)
     from bigpanel.output.files import write_text
 
     write_text(args.out, json.dumps(result, indent=2))

@@ -3,6 +3,9 @@
 * ``store-week``: one row per store and week, 150 weeks, about 3% of cells missing;
 * ``store-week-supplier``: the same plus a supplier effect of about 1,000 levels that
   cuts across stores and weeks;
+* ``store-week-adoption``: store-week plus a staggered adoption: ``first_week``, each store's
+  first treated week (missing for the 30% never treated), and an effect on sales from then on
+  (the event-study benchmark);
 * ``staff``: employee x store x year with job spells (employee x store pairs compress,
   employee x year pairs do not).
 
@@ -23,6 +26,9 @@ WEEKS = 150
 SUPPLIERS = 1_000
 YEARS = 10
 STAFF_PER_STORE = 25
+# the adoption's effect on log sales, invented: 0.05 at the first treated week, 0.002 more per week since
+ADOPTION_EFFECT = ("\n             + CASE WHEN first IS NOT NULL AND w + 1 >= first"
+                   " THEN 0.05 + 0.002 * (w + 1 - first) ELSE 0 END")
 
 
 @dataclass(frozen=True)
@@ -41,6 +47,9 @@ SHAPES = {
                         {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "store-week-supplier": Shape("store-week-supplier", "log_sales ~ log_price + promo_share + staff_hours",
                                  ("store", "week", "supplier"), "store",
+                                 {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
+    "store-week-adoption": Shape("store-week-adoption", "log_sales ~ log_price + promo_share + staff_hours",
+                                 ("store", "week"), "store",
                                  {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "staff": Shape("staff", "log_wage ~ log_hours + training + overtime", ("employee", "store", "year"), "employee",
                    {"log_hours": 0.6, "training": 0.3, "overtime": -0.2}),
@@ -62,12 +71,14 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                           "stores": max(2, employees // STAFF_PER_STORE)}
                 con.execute(render("shape_staff", path=literal(str(tmp))), params).fetchall()
             else:
-                supplier = name == "store-week-supplier"
+                supplier, adoption = name == "store-week-supplier", name == "store-week-adoption"
                 cells = int(rows / 0.97) // WEEKS * WEEKS
                 params = {"cells": cells, "weeks": WEEKS, "seed": seed, "suppliers": SUPPLIERS}
                 sql = render("shape_store_week", path=literal(str(tmp)),
                              supplier_column="CAST(supplier + 1 AS SMALLINT) AS supplier," if supplier else "",
-                             supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "")
+                             supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "",
+                             adoption_column="CAST(first AS SMALLINT) AS first_week," if adoption else "",
+                             adoption_effect=ADOPTION_EFFECT if adoption else "")
                 con.execute(sql, params).fetchall()
     finally:
         con.close()

@@ -224,3 +224,25 @@ def test_command_writes_json_and_plot(to_parquet, tmp_path):
     res = bigpanel.event(path, y="y", unit="store", time="year", first_treated="adopt", x="x", horizon="-2:3")
     assert abs(doc["overall"]["estimate"] - res.overall.estimate) < 1e-12 * abs(res.overall.estimate)
     assert "imputation" in res.summary()
+
+
+def test_benchmark_adoption_panel(tmp_path):
+    # The invented benchmark panel (bigpanel/shapes.py): 30% of the stores never adopt, the
+    # others from a week in 20..140, one value per store; imputation recovers the invented
+    # effect 0.05 + 0.002 k within sampling error.
+    from bigpanel.shapes import write_shape
+
+    path = str(tmp_path / "adoption.parquet")
+    write_shape(path, "store-week-adoption", 150 * 400)
+    df = pd.read_parquet(path)
+    per_store = df.groupby("store").first_week.agg(["min", "max", "count", "size"])
+    one_value = (per_store["min"] == per_store["max"]) & (per_store["count"] == per_store["size"])
+    assert ((per_store["count"] == 0) | one_value).all()
+    assert 0.2 < (per_store["count"] == 0).mean() < 0.4
+    assert df.first_week.min() >= 20 and df.first_week.max() <= 140
+    res = bigpanel.event(path, y="log_sales", unit="store", time="week", first_treated="first_week",
+                         x=["log_price", "promo_share", "staff_hours"], horizon="-2:10")
+    post = [e for e in res.event_time if e.estimated_by == "imputation"]
+    assert [e.k for e in post] == list(range(11))
+    for e in post:
+        assert abs(e.estimate - (0.05 + 0.002 * e.k)) < 4.5 * e.std_error
