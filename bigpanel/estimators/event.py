@@ -21,13 +21,16 @@ import numpy as np
 import pyarrow as pa
 from scipy import linalg, stats
 
+from ..engines.base import Engine
 from ..errors import BigPanelError
+from ..model.spec import Spec
 from ..model.event import DEFAULT_HORIZON, Design, event_design, event_spec
 from ..numerics.given_rhs import solve_given
 from ..numerics.imputation import (Cells, Columns, Imputed, cell_averages, choose_columns, given_rhs, imputed,
                                    interval, lead_rows, pretrend_moments)
 from ..numerics.inference import infer
 from ..numerics.project import Projection
+from ..numerics.rowcodes import Links
 from ..numerics.solve import Slopes, solve_slopes
 from ..passes.event import (PanelCounts, ScoreTerms, Targets, cell_sums, check_panel, cluster_scores, meat,
                             put_components, rows_view, targets)
@@ -45,9 +48,9 @@ class EventBackend(SqlBackend):
     row codes' link tables (for the implied weights' solve), and the count of complete rows,
     so that the per-column count of incomplete rows runs only when some row is incomplete."""
 
-    def __init__(self, eng: Any, spec: Any, source_kind: str) -> None:
+    def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
         super().__init__(eng, spec, source_kind)
-        self.kept_links: Any = None
+        self.kept_links: Links | None = None
         self.complete_rows: int | None = None
         self.filtered_rows: int | None = None
 
@@ -70,12 +73,24 @@ class EventBackend(SqlBackend):
 
 @dataclass(frozen=True)
 class Pretrend:
-    """The pre-trend fit: its slopes (controls then leads, dropped ones 0), the test, and the
-    lead estimates (estimate, s.e.) by event time."""
+    """The pre-trend test (None without leads) and each lead's (estimate, s.e.) by event time."""
 
-    theta: np.ndarray
     test: dict[str, Any] | None
     leads: dict[int, tuple[float | None, float | None]]
+
+
+@dataclass(frozen=True)
+class Fitted:
+    """What the steps after the untreated fit share: the session, the design, the panel check,
+    the fit's absorption and slopes, the right-hand sides and the columns solved."""
+
+    session: Session
+    design: Design
+    panel: PanelCounts
+    ab: Absorption
+    slopes: Slopes
+    targets: Targets
+    cols: Columns
 
 
 class EventStudy(Estimator):
@@ -105,10 +120,13 @@ class EventStudy(Estimator):
             panel = _checked_panel(session, design)
             back.complete_rows = panel.rows
             ab = absorb(session, how, in_memory=False, back=back)
-            return self._after_fit(session, design, panel, ab, back)
+            fitted, weights = self._implied_weights(session, design, panel, ab, back)
+            return self._estimate(fitted, weights)
 
-    def _after_fit(self, session: Session, design: Design, panel: PanelCounts, ab: Absorption,
-                   back: EventBackend) -> EventResult:
+    def _implied_weights(self, session: Session, design: Design, panel: PanelCounts, ab: Absorption,
+                         back: EventBackend) -> tuple[Fitted, Projection]:
+        """The right-hand sides and the exclusions, the extra columns' solve (the leads' effects
+        and the implied weights), and the view of the usable rows with both joined back."""
         eng, spec, red = session.eng, session.spec, ab.red
         slopes = solve_slopes(ab.mom.q, float(red.counts[0].sum()), red.rhs[0].sum(axis=0), red.sumsq)
         linked = ab.labels is not None and (ab.n_comp or 1) > 1
@@ -129,29 +147,31 @@ class EventStudy(Estimator):
         eng.timings["implied weights (numpy)"] = perf_counter() - start
         back.kept_links = None
         if linked:
-            keys[:2] = [k.append_column("comp", pa.array(ab.labels[a:b].astype(np.int64))) for k, (a, b) in
-                        zip(keys[:2], ((0, len(red.counts[0])), (len(red.counts[0]), len(ab.labels))))]
+            n_unit = len(red.counts[0])
+            keys[0] = keys[0].append_column("comp", pa.array(ab.labels[:n_unit].astype(np.int64)))
+            keys[1] = keys[1].append_column("comp", pa.array(ab.labels[n_unit:].astype(np.int64)))
         store_effects(eng, keys, [np.hstack([a, w]) for a, w in zip(ab.proj.alpha, weights.alpha)],
                       prefix="bp_event_fx")
         rows_view(eng, spec, len(cols.source), linked)
-        return self._estimate(session, design, panel, ab, slopes, tg, cols, weights)
+        return Fitted(session, design, panel, ab, slopes, tg, cols), weights
 
-    def _estimate(self, session: Session, design: Design, panel: PanelCounts, ab: Absorption, slopes: Slopes,
-                  tg: Targets, cols: Columns, weights: Projection) -> EventResult:
-        eng = session.eng
+    def _estimate(self, f: Fitted, weights: Projection) -> EventResult:
+        """The sums by cell (estimates, cell averages, the pre-trend fit), then the scores per
+        cluster and their products (the variance and the pre-trend test)."""
+        eng, slopes, cols = f.session.eng, f.slopes, f.cols
         controls = [f"e{j}" for j in slopes.keep]
-        put_one_row(eng, "bp_event_coef", {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}})
-        cells = Cells.split(cell_sums(eng, slopes.keep, len(cols.leads), design.lo))
+        coef = {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}}
+        put_one_row(eng, "bp_event_coef", coef)
+        cells = Cells.split(cell_sums(eng, slopes.keep, len(cols.leads), f.design.lo))
         imp = imputed(cells, cols.estimands, controls)
-        expected = tg.total[cols.source[cols.first_weight_column:]]
+        expected = f.targets.total[cols.source[cols.first_weight_column:]]
         if not np.allclose(imp.totals, expected, rtol=1e-9, atol=0.0):
             raise RuntimeError(f"imputed rows' weights {imp.totals} differ from the right-hand sides' {expected}")
         gammas = imp.control_means @ slopes.bread if controls else np.zeros((len(cols.estimands), 0))
         q_idx = [0, *slopes.keep]
-        q = pretrend_moments(cells, ab.mom.q[np.ix_(q_idx, q_idx)], controls, cols.leads)
-        pt = _pretrend_slopes(ab, q, q_idx, lead_rows(cells, cols.leads), len(controls))
+        q = pretrend_moments(cells, f.ab.mom.q[np.ix_(q_idx, q_idx)], controls, cols.leads)
+        pt = _pretrend_slopes(f.ab, q, q_idx, lead_rows(cells, cols.leads), len(controls))
         eng.put_table("bp_event_tbar", cell_averages(cells))
-        coef = {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}}
         coef.update({f"g{h}_{i}": float(g) for h, row in enumerate(gammas) for i, g in enumerate(row)})
         coef.update({f"w{h}": float(1.0 / t) for h, t in enumerate(imp.totals)})
         coef.update({f"t{i}": float(pt.beta_full[i]) for i in range(len(controls))})
@@ -160,49 +180,50 @@ class EventStudy(Estimator):
         terms = ScoreTerms(slopes.keep, cols.leads, cols.estimands, cols.first_weight_column)
         cluster_scores(eng, terms)
         vcov, pt_meat, clusters, clusters_untreated = meat(eng, terms)
-        pre = _pretrend(ab, pt, pt_meat, clusters_untreated, design, cols.leads)
-        return self._result(session, design, panel, ab, slopes, tg, cols, weights, cells, imp, vcov, clusters, pre)
+        pre = _pretrend(f.ab, pt, pt_meat, clusters_untreated, f.design, cols.leads)
+        return self._result(f, weights, cells, imp, vcov, clusters, pre)
 
-    def _result(self, session: Session, design: Design, panel: PanelCounts, ab: Absorption, slopes: Slopes,
-                tg: Targets, cols: Columns, weights: Projection, cells: Cells, imp: Imputed, vcov: np.ndarray,
-                clusters: int, pre: Pretrend) -> EventResult:
-        spec, red = session.spec, ab.red
+    def _result(self, f: Fitted, weights: Projection, cells: Cells, imp: Imputed, vcov: np.ndarray, clusters: int,
+                pre: Pretrend) -> EventResult:
+        spec, red, eng, ab, slopes = f.session.spec, f.ab.red, f.session.eng, f.ab, f.slopes
         se = np.sqrt(np.maximum(np.diag(vcov), 0.0))
         low, high = interval(imp.estimate, se)
         post = [EventEstimate(k, float(imp.estimate[h]), float(se[h]), float(low[h]), float(high[h]),
-                              int(imp.rows[h]), "imputation") for h, k in enumerate(cols.estimands)]
-        counts = lead_rows(cells, cols.leads)
-        leads = []
-        for a, n in zip(cols.leads, counts):
-            est, err = pre.leads[a]
-            lo_hi = interval(np.array([est]), np.array([err])) if est is not None and err is not None else None
-            leads.append(EventEstimate(a, est, err, *(float(v[0]) for v in lo_hi) if lo_hi else (None, None), n,
-                                       "pre-trend fit"))
+                              int(imp.rows[h]), "imputation") for h, k in enumerate(f.cols.estimands)]
+        leads = [_lead(a, pre.leads[a], n) for a, n in zip(f.cols.leads, lead_rows(cells, f.cols.leads))]
         imputed_rows = int(cells.treated["n"].sum())
-        in_horizon = sum(e.rows for e in post if e.k is not None)
         rows = {"source": ab.first.n_source, "after_filter": ab.first.n_filtered, "incomplete": ab.lost,
-                "dropped_incomplete": ab.first.n_filtered - panel.rows, "untreated": ab.mom.n,
-                "treated": panel.treated, "imputed": imputed_rows, "excluded": tg.excluded,
-                "beyond_horizon": imputed_rows - in_horizon}
+                "dropped_incomplete": ab.first.n_filtered - f.panel.rows, "untreated": ab.mom.n,
+                "treated": f.panel.treated, "imputed": imputed_rows, "excluded": f.targets.excluded,
+                "beyond_horizon": imputed_rows - sum(e.rows for e in post if e.k is not None)}
         names = [spec.x[j - 1] for j in slopes.keep]
         fit = {"controls": names, "coefficients": {n: float(b) for n, b in zip(names, slopes.beta)},
                "dropped_controls": [{"name": spec.x[j - 1], "reason": why} for j, why in slopes.dropped],
                "strategy": red.strategy, "path": PATHS[red.strategy], "iterations": ab.proj.iterations,
                "change": ab.proj.change, "converged": ab.proj.converged}
-        labels = ["overall" if k is None else str(k) for k in cols.estimands]
-        solver = {"engine": session.eng.name, "raw_passes": session.eng.raw_passes, "seconds": self.seconds(),
-                  "bytes_to_client": session.eng.bytes_to_client,
+        solver = {"engine": eng.name, "raw_passes": eng.raw_passes, "seconds": self.seconds(),
+                  "bytes_to_client": eng.bytes_to_client,
                   "implied_weights": {"iterations": weights.iterations, "change": weights.change,
                                       "converged": weights.converged}}
         return EventResult(
-            outcome=spec.y, design=_design_dict(design, spec), event_time=leads + post[:-1], overall=post[-1],
-            covariance=vcov, covariance_labels=labels, pretrend=pre.test, rows=rows,
-            panel={"units": panel.units, "never_treated": panel.never_treated, "cohorts": panel.cohorts},
-            untreated_fit=fit, variance={"estimator": "conservative (Borusyak, Jaravel and Spiess 2024, Theorem 3)",
-                                         "cluster": design.cluster, "clusters": clusters,
-                                         "residuals_of_treated_rows": "around the cohort x event time average"},
-            solver=solver, source=session.src.location, where=spec.where,
-            warnings=_warnings(ab, weights, clusters, cells), timings=dict(session.eng.timings))
+            outcome=spec.y, design=_design_dict(f.design, spec), event_time=leads + post[:-1], overall=post[-1],
+            covariance=vcov, covariance_labels=["overall" if k is None else str(k) for k in f.cols.estimands],
+            pretrend=pre.test, rows=rows, untreated_fit=fit, solver=solver,
+            panel={"units": f.panel.units, "never_treated": f.panel.never_treated, "cohorts": f.panel.cohorts},
+            variance={"estimator": "conservative (Borusyak, Jaravel and Spiess 2024, Theorem 3)",
+                      "cluster": f.design.cluster, "clusters": clusters,
+                      "residuals_of_treated_rows": "around the cohort x event time average"},
+            source=f.session.src.location, where=spec.where, warnings=_warnings(ab, weights, clusters, cells),
+            timings=dict(eng.timings))
+
+
+def _lead(k: int, fitted: tuple[float | None, float | None], rows: int) -> EventEstimate:
+    """A lead of the pre-trend fit (estimate and s.e. None when its indicator was dropped)."""
+    est, err = fitted
+    if est is None or err is None:
+        return EventEstimate(k, None, None, None, None, rows, "pre-trend fit")
+    low, high = interval(np.array([est]), np.array([err]))
+    return EventEstimate(k, est, err, float(low[0]), float(high[0]), rows, "pre-trend fit")
 
 
 def _checked_panel(session: Session, design: Design) -> PanelCounts:
@@ -243,7 +264,7 @@ def _pretrend(ab: Absorption, pt: _PretrendSlopes, pt_meat: np.ndarray, clusters
               leads: list[int]) -> Pretrend:
     """CR1 errors of the pre-trend fit and the Wald test that its leads are zero."""
     if not leads:
-        return Pretrend(pt.beta_full, None, {})
+        return Pretrend(None, {})
     keep = [j - 1 for j in pt.fit.keep]
     terms = [ClusterTerm((0,), clusters, pt_meat[np.ix_(keep, keep)])]
     inf = infer(pt.fit.beta, pt.fit.bread, pt.fit.rss, ab.mom.n, ab.absorbed, "cr1", cluster_terms=terms,
@@ -255,7 +276,7 @@ def _pretrend(ab: Absorption, pt: _PretrendSlopes, pt_meat: np.ndarray, clusters
             out[leads[j - pt.n_controls]] = (float(pt.fit.beta[pos]), float(inf.std_error[pos]))
             tested.append(pos)
     if not tested:
-        return Pretrend(pt.beta_full, None, out)
+        return Pretrend(None, out)
     b = pt.fit.beta[tested]
     v = inf.vcov[np.ix_(tested, tested)]
     wald = float(b @ linalg.pinvh(v) @ b)
@@ -263,10 +284,10 @@ def _pretrend(ab: Absorption, pt: _PretrendSlopes, pt_meat: np.ndarray, clusters
     test = {"statistic": wald, "df": df, "p_value": float(stats.chi2.sf(wald, df)),
             "leads": [leads[keep[p] - pt.n_controls] for p in tested],
             "variance": f"CR1 clustered by {design.cluster} ({clusters:,} clusters)"}
-    return Pretrend(pt.beta_full, test, out)
+    return Pretrend(test, out)
 
 
-def _design_dict(design: Design, spec: Any) -> dict[str, Any]:
+def _design_dict(design: Design, spec: Spec) -> dict[str, Any]:
     return {"unit": design.unit, "time": design.time, "first_treated": design.first_treated,
             "fixed_effects": spec.fe_names[2:], "cluster": design.cluster, "weights": design.weights,
             "horizon": [design.lo, design.hi],
