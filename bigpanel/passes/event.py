@@ -50,7 +50,7 @@ def check_panel(eng: Engine, design: Design) -> PanelCounts:
     """Pass 1 (see the module docstring); makes the view ``bp_event_all`` of the complete rows
     with their event time ``k``, ``treated`` flag and target weight ``wt``."""
     keys = PANEL_KEYS if design.dates else PANEL_KEYS[:1]
-    sets = [["f1_1"], []] + ([["f2_1"], ["ft"]] if design.dates else [])
+    sets = [["f1_1"]] + ([["f2_1"], ["ft"]] if design.dates else [])
     eng.execute("event study: units and cohorts", render("event_panel", keys=", ".join(keys),
                                                          sets=grouping_sets(sets)), raw=True)
     units = eng.one("units", render("event_units"), {"gid": grouping_id(keys, ["f1_1"])})
@@ -61,7 +61,6 @@ def check_panel(eng: Engine, design: Design) -> PanelCounts:
             f"part of the rows of {bad:,} value(s) of {design.unit!r}, e.g. {design.unit} {units['example']}; give "
             "every row of a unit "
             "its first treated period, or leave it missing on every row of a unit never treated")
-    totals = eng.one("totals", render("event_totals"), {"gid": grouping_id(keys, [])})
     joins, event_time = "", "CAST(r.f2_1 AS BIGINT) - CAST(r.ft AS BIGINT)"
     if design.dates:
         eng.execute("period ranks", render("event_periods"), {"gid": grouping_id(PANEL_KEYS, ["f2_1"])})
@@ -71,7 +70,7 @@ def check_panel(eng: Engine, design: Design) -> PanelCounts:
         event_time = "p.r - c.re"
     weight = "CASE WHEN isfinite(r.uw) AND r.uw > 0 THEN r.uw END" if design.weights else "CAST(1 AS DOUBLE)"
     eng.execute("event rows", render("event_all", event_time=event_time, weight=weight, joins=joins))
-    return PanelCounts(int(totals["n"] or 0), int(totals["n_treated"] or 0), int(units["units"] or 0),
+    return PanelCounts(int(units["n"] or 0), int(units["n_treated"] or 0), int(units["units"] or 0),
                        int(units["never_treated"] or 0), int(units["cohorts"] or 0))
 
 

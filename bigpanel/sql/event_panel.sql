@@ -1,6 +1,6 @@
--- Event study, first pass over the complete rows: per unit the count and range of
--- its first-treated values (one value for every row of a unit, or none at all), the
--- totals, and for date periods the periods and the cohorts (to rank them).
+-- Event study, first pass over the complete rows: per unit its rows, treated rows and
+-- the count and range of its first-treated values (one value for every row of a unit,
+-- or none at all), and for date periods the periods and the cohorts (to rank them).
 CREATE OR REPLACE TEMP TABLE bp_event_panel AS
 SELECT {{keys}},
        GROUPING({{keys}}) AS gid,
