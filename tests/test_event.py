@@ -246,3 +246,15 @@ def test_benchmark_adoption_panel(tmp_path):
     assert [e.k for e in post] == list(range(11))
     for e in post:
         assert abs(e.estimate - (0.05 + 0.002 * e.k)) < 4.5 * e.std_error
+
+
+def test_event_help_loads_nothing_heavy():
+    # as tests/test_cli.py checks for the other commands: `bigpanel event --help` answers at once
+    import subprocess
+    import sys
+
+    from test_cli import HEAVY, PROBE
+
+    out = subprocess.run([sys.executable, "-c", PROBE.format(args=["event", "--help"], heavy=HEAVY)],
+                         capture_output=True, text=True, check=True).stdout.strip().splitlines()[-1]
+    assert out == "0 []"
