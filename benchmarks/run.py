@@ -37,6 +37,7 @@ import numpy as np
 from rich.console import Console
 from rich.table import Table
 
+import event_study
 import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
@@ -80,6 +81,9 @@ CONFIGS = {
         ("store-week-iv", ["store", "week"], "store"),
         ("store-week-iv", ["store", "week"], "store", IV),
     ],
+    "event": [  # the event study by imputation against the within fit on the same rows (issue 18)
+        ("store-week-adoption", ["store", "week"], None),
+    ],
     "row-codes": [  # the row-codes configurations of the main group but staff (a rerun after a fix)
         ("store-week", ["store", "week"], None),
         ("store-week", ["store", "week"], "store"),
@@ -122,6 +126,7 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     rec = {"rows": rows, "panel": name, "effects": fe, "cluster": cluster, "what": what, "ok": out["ok"]}
     if more:
         rec["options"] = more[0]
+    rec["load_before"] = round(os.getloadavg()[0], 2)
     if not out["ok"]:
         rec["error"] = out["error"]
         return rec
@@ -133,7 +138,7 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
         rec["iterations"] = res["solver"]["iterations"]
     if what == "fit" and "bootstrap" in res:
         rec["bootstrap_seconds"] = res["bootstrap"]["seconds"]
-    if what == "fit":
+    if what in ("fit", "event"):
         s = res["solver"]
         rec.update(strategy=s["strategy"]["name"], reason=s["strategy"]["reason"], converged=s["converged"],
                    cross_products_from=s.get("cross_products_from"),
@@ -141,8 +146,10 @@ def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
     return rec
 
 
-def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], group: str = "main") -> dict:
-    """Every configuration of ``group`` at every size, then its store-week ones at the ``large`` sizes."""
+def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], group: str = "main",
+        repeat: int = 1) -> dict:
+    """Every configuration of ``group`` at every size, then its store-week ones at the ``large`` sizes;
+    each measurement ``repeat`` times in a row (the tables take the fastest)."""
     spill = data_dir / "spill"
     total_memory = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
     records = []
@@ -155,14 +162,18 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
         steps = [("scan", model, None),
                  ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
         fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
-        if (cluster is None or name == "staff") and not more:  # slopes only: one numpy fit per panel and effects
+        if group == "event":  # the event study right after the within fit of the same model
+            steps.append(("event", steps[1][1], event_study.fit))
+        elif (cluster is None or name == "staff") and not more:  # slopes only: one numpy fit per panel and effects
             if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
                 steps.append(("numpy", model, plain_numpy.fit))
-        for what, m, runner in steps:
-            out = measure("scan" if what == "scan" else "duckdb", m, runner)
-            rec = _record(rows, config, what, out)
-            records.append(rec)
-            print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}), file=sys.stderr)
+        for _ in range(repeat):
+            for what, m, runner in steps:
+                out = measure("scan" if what == "scan" else "duckdb", m, runner)
+                rec = _record(rows, config, what, out)
+                records.append(rec)
+                print(json.dumps({k: v for k, v in rec.items() if k not in ("coefficients", "timings")}),
+                      file=sys.stderr)
     return {"bigpanel_version": __version__, "machine": machine(), "memory_limit": memory_limit,
             "records": records, "summary": summarise(records)}
 
@@ -171,7 +182,8 @@ def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
     options = rec.get("options", {})
     extra = f", wild bootstrap {options['draws']:,}" if "wild_bootstrap" in options else ", IV" if "endogenous" in options else ""
-    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{extra}"
+    what = ", event study" if rec["what"] == "event" else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{extra}{what}"
 
 
 def reads_instruments(rec: dict) -> bool:
@@ -193,20 +205,26 @@ def summarise(records: list[dict]) -> dict:
     ok = [r for r in records if r["ok"]]
 
     def find(rows: int, key: str, what: str) -> dict | None:
-        found = next((r for r in ok if r["rows"] == rows and _key(r) == key and r["what"] == what), None)
-        return warm_scan(ok, found) if found is not None and what == "scan" else found
+        found = [r for r in ok if r["rows"] == rows and _key(r) == key and r["what"] == what]
+        best = min(found, key=lambda r: r["seconds"]) if found else None
+        return warm_scan(ok, best) if best is not None and what == "scan" else best
 
     def numpy_of(rows: int, rec: dict) -> dict | None:
         return next((r for r in ok if r["rows"] == rows and r["what"] == "numpy" and r["panel"] == rec["panel"]
                      and r["effects"] == rec["effects"] and not rec.get("options")), None)
 
     out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {},
-                 "iv_over_within": {}}
-    keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] == "fit"))
+                 "iv_over_within": {}, "event_over_within": {}}
+    keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] in ("fit", "event")))
     sizes = sorted({r["rows"] for r in ok})
     for key in keys:
         for rows in sizes:
-            scan, fit = find(rows, key, "scan"), find(rows, key, "fit")
+            what = "event" if key.endswith("event study") else "fit"
+            scan, fit = find(rows, key.removesuffix(", event study"), "scan"), find(rows, key, what)
+            if what == "event" and fit:
+                within = find(rows, key.removesuffix(", event study"), "fit")
+                if within:
+                    out["event_over_within"][f"{key} @ {rows:,}"] = round(fit["seconds"] / within["seconds"], 2)
             label = f"{key} @ {rows:,}"
             if scan and fit:
                 out["ratio_to_scan"][label] = round(fit["seconds"] / scan["seconds"], 2)
@@ -218,7 +236,8 @@ def summarise(records: list[dict]) -> dict:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
                 diffs = [abs(fit["coefficients"][n] - b) / abs(b) for n, b in ref["coefficients"].items()]
                 out["max_rel_slope_diff_vs_numpy"][label] = float(max(diffs))
-        pts = [(rows, find(rows, key, "fit")) for rows in sizes if rows >= 10_000_000]
+        pts = [(rows, find(rows, key, "event" if key.endswith("event study") else "fit")) for rows in sizes
+               if rows >= 10_000_000]
         pts = [(r, f["seconds"]) for r, f in pts if f]
         if len(pts) >= 2:
             x, y = np.log([p[0] for p in pts]), np.log([p[1] for p in pts])
@@ -251,9 +270,9 @@ def table(result: dict) -> Table:
         t.add_column(col, justify="left" if col in ("model", "strategy") else "right")
     recs = result["records"]
     for rows in sorted({r["rows"] for r in recs}):
-        for key in dict.fromkeys(_key(r) for r in recs if r["what"] == "fit"):
-            got = {r["what"]: r for r in recs if r["rows"] == rows and _key(r) == key}
-            fit = got.get("fit")
+        for key in dict.fromkeys(_key(r) for r in recs if r["what"] in ("fit", "event")):
+            got = [r for r in recs if r["rows"] == rows and _key(r) == key and r["what"] in ("fit", "event")]
+            fit = min([r for r in got if r["ok"]], key=lambda r: r["seconds"], default=got[0] if got else None)
             scan = warm_scan(recs, fit) if fit is not None else None
             ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit and not fit.get("options")
                         and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]), None)
@@ -322,6 +341,7 @@ def main() -> None:
     parser.add_argument("--out", default=str(HERE / "results.json"))
     parser.add_argument("--png", default=str(HERE / "results.png"))
     parser.add_argument("--again", metavar="JSON", help="redo the summary, table and plot of an earlier run")
+    parser.add_argument("--repeat", type=int, default=1, help="run every measurement this many times in a row")
     args = parser.parse_args()
     if args.again:
         result = json.loads(Path(args.again).read_text())
@@ -331,7 +351,7 @@ def main() -> None:
         data_dir = Path(args.data_dir)
         data_dir.mkdir(parents=True, exist_ok=True)
         large = [int(float(s)) for s in args.large.split(",") if s]
-        result = run(sizes, data_dir, args.memory_limit, large, args.configs)
+        result = run(sizes, data_dir, args.memory_limit, large, args.configs, args.repeat)
     from bigpanel.output.files import write_text
 
     write_text(args.out, json.dumps(result, indent=2))

@@ -2,16 +2,16 @@
 
 from typing import Any
 
-__all__ = ["fit", "load", "FitResult", "BigPanelError", "__version__"]
+__all__ = ["fit", "event", "load", "FitResult", "EventResult", "BigPanelError", "__version__"]
 
 # Every name is imported on first use: ``bigpanel --help`` loads no numerics, and the entry
 # point (bigpanel.command) installs its interrupt handler after as little import work as can be.
-_HOMES = {"fit": "api", "load": "results.saved", "FitResult": "results.result", "BigPanelError": "errors",
-          "__version__": "version"}
+_HOMES = {"fit": "api", "event": "api", "load": "results.saved", "FitResult": "results.result",
+          "EventResult": "results.event", "BigPanelError": "errors", "__version__": "version"}
 
 
 def __getattr__(name: str) -> Any:
-    """``fit``, ``load``, ``FitResult``, ``BigPanelError`` and ``__version__``, imported when first asked for."""
+    """The names of ``__all__``, each imported when first asked for."""
     if name not in _HOMES:
         raise AttributeError(f"module 'bigpanel' has no attribute {name!r}")
     from importlib import import_module

@@ -16,6 +16,7 @@ from .model.iv_formula import split_instrumented
 from .model.spec import parse_formula
 from .options import as_list
 from .results.call import call_record
+from .results.event import EventResult
 from .results.result import FitResult
 
 ESTIMATOR_CLASSES: dict[str, type[Estimator]] = {
@@ -120,3 +121,53 @@ def fit(
     res = ESTIMATOR_CLASSES[estimator](request, **options).fit()
     res.call = call_record(given)
     return res
+
+
+def event(
+    source: str,
+    *,
+    y: str,
+    unit: str,
+    time: str,
+    first_treated: str,
+    x: str | Sequence[str] | None = None,
+    fe: str | Sequence[str] = (),
+    cluster: str | None = None,
+    horizon: str | tuple[int, int] = "-5:10",
+    weights: str | None = None,
+    where: str | None = None,
+    table: str | None = None,
+    engine: str | None = None,
+    memory_limit: str | None = None,
+    temp_dir: str | None = None,
+    threads: int | None = None,
+    delimiter: str | None = None,
+    spark_master: str | None = None,
+    on_step: Callable[[str], None] | None = None,
+    **options: object,
+) -> EventResult:
+    """An event study for staggered adoption by imputation (Borusyak, Jaravel and Spiess 2024).
+
+    ``first_treated`` holds each unit's first treated period (missing for units never treated);
+    the untreated outcome ``y`` is fitted on the untreated rows with effects of ``unit`` and
+    ``time`` (and the further effects ``fe``) and the controls ``x``, and imputed for the treated
+    rows; the result averages the imputed effects by event time over the ``horizon`` ``"LO:HI"``
+    (leads LO..-1 from the pre-trend fit on the untreated rows, event times 0..HI by imputation)
+    and over every imputed row. ``weights`` makes each treated row's share in the averages
+    proportional to it (the untreated fit stays unweighted). Standard errors are the paper's
+    conservative ones, clustered by ``cluster`` (default the unit). ``options``: ``tol``,
+    ``max_iter``, ``cell_budget`` and ``strategy`` as for :func:`fit`. The other arguments are
+    those of :func:`fit`.
+    """
+    from .estimators.event import EventStudy
+
+    request = Request(
+        source=source, y=y, x=as_list(x), fe=as_list(fe), cluster=as_list(cluster), variance=None, where=where,
+        table=table, weights=weights, engine=engine, on_step=on_step,
+        engine_options=dict(memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, delimiter=delimiter,
+                            spark_master=spark_master),
+    )
+    if engine == "memory":
+        raise BigPanelError("the event study runs in the SQL engines only, not with --engine memory")
+    return EventStudy(request, unit=unit, time=time, first_treated=first_treated, horizon=horizon,
+                      **options).fit()

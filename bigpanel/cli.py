@@ -390,6 +390,102 @@ def fit_command(
         raise typer.Exit(3)
 
 
+@app.command("event")
+def event_command(
+    source: str = typer.Argument(..., help=SOURCE_HELP, metavar="SOURCE"),
+    y: str = typer.Option(..., "--y", help="Outcome column.", metavar="COL"),
+    unit: str = typer.Option(
+        ..., "--unit", help="Unit column (store, firm...): its effect is fitted, and the errors are clustered by it "
+        "unless --cluster says otherwise.", metavar="COL"),
+    time: str = typer.Option(..., "--time", help="Period column: integers, dates or timestamps.", metavar="COL"),
+    first_treated: str = typer.Option(
+        ..., "--first-treated", help="Each unit's first treated period, of the period column's kind; missing for "
+        "units never treated.", metavar="COL"),
+    x: Optional[List[str]] = typer.Option(None, "--x", help="Control column; repeat for more.", metavar="COL"),
+    fe: Optional[List[str]] = typer.Option(
+        None, "--fe", help="A further fixed effect of the untreated fit; repeat for more; 'a:b' is one per pair.",
+        metavar="COL"),
+    cluster: Optional[str] = typer.Option(
+        None, "--cluster", help="Cluster column of the standard errors (default: the unit).", metavar="COL"),
+    horizon: str = typer.Option(
+        "-5:10", "--horizon", help="Event times to report, LO:HI: leads LO..-1 from the pre-trend fit on the untreated "
+        "rows, 0..HI by imputation (the overall average covers every treated row).", metavar="LO:HI"),
+    weights: Optional[str] = typer.Option(
+        None, "--weights", help="Target weights: each treated row's share in the averages is proportional to this "
+        "column (the untreated fit stays unweighted).", metavar="COL"),
+    where: Optional[str] = typer.Option(
+        None, "--where", help="Row filter: one SQL boolean expression over the source's columns.", metavar="EXPR"),
+    table: Optional[str] = typer.Option(None, "--table", help=TABLE_HELP, metavar="NAME"),
+    engine: Optional[EngineName] = typer.Option(None, "--engine", help="Where the passes run: duckdb (default for "
+                                                "files), postgresql (default for a postgresql:// URL) or spark."),
+    spark_master: Optional[str] = typer.Option(None, "--spark-master", help=SPARK_MASTER_HELP, metavar="URL"),
+    tol: Optional[float] = typer.Option(
+        None, "--tol", help="Tolerance of the projections (default 1e-8), for the fit and the implied weights.",
+        metavar="X"),
+    max_iter: Optional[int] = typer.Option(None, "--max-iter", help="Limit on projection iterations (default 10000).",
+                                           metavar="N"),
+    memory_limit: Optional[str] = typer.Option(None, "--memory-limit", help="DuckDB memory limit, e.g. 2GB.",
+                                               metavar="SIZE"),
+    cell_budget: Optional[str] = typer.Option(
+        None, "--python-memory", help="Budget for the pair tables or row codes held in numpy (default a quarter of "
+        "RAM).", metavar="SIZE"),
+    temp_dir: Optional[str] = typer.Option(None, "--temp-dir", help="Folder where DuckDB spills.", metavar="DIR"),
+    threads: Optional[int] = typer.Option(None, "--threads", help="DuckDB worker threads.", metavar="N"),
+    delimiter: Optional[str] = typer.Option(None, "--delimiter", help=DELIMITER_HELP, metavar="CHAR"),
+    plot: Optional[Path] = typer.Option(
+        None, "--plot", help="Also draw the estimates and their 95% intervals against event time to this PNG "
+        "(needs matplotlib).", metavar="FILE.png"),
+    json_out: bool = typer.Option(False, "--json", help="Print the full result as one JSON object.", metavar=""),
+    save: Optional[Path] = typer.Option(None, "--save", help="Also store the full result as JSON in this file.",
+                                        metavar="FILE.json"),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback of an error.", metavar=""),
+) -> None:
+    """Event study for staggered adoption by imputation (Borusyak, Jaravel and Spiess 2024).
+
+    Fits the untreated outcome on never- and not-yet-treated rows, imputes it for treated rows and
+    averages the differences by periods since treatment, with conservative clustered errors and a
+    pre-trend test. Example: bigpanel event panel.parquet --y log_sales --unit store --time week
+    --first-treated remodel_week --horizon -4:8 --plot event.png
+    """
+    from .output.files import check_output, input_files, text_writer, write_all
+
+    with guarded(debug):
+        inputs = input_files(source)
+        for role, path in (("--save", save), ("--plot", plot)):
+            if path is not None and str(path) != "-":
+                check_output(path, role, inputs)
+        if temp_dir:
+            check_output(temp_dir, "--temp-dir", inputs, folder=True)
+        from .api import event as run_event
+        from .results.event_report import event_renderable
+
+        with progress(quiet or json_out) as on_step:
+            res = run_event(
+                source, y=y, unit=unit, time=time, first_treated=first_treated, x=x or None, fe=fe or [],
+                cluster=cluster, horizon=horizon, weights=weights, where=where, table=table,
+                engine=engine.value if engine else None, spark_master=spark_master, memory_limit=memory_limit,
+                temp_dir=temp_dir, threads=threads, delimiter=delimiter, on_step=on_step, tol=tol, max_iter=max_iter,
+                cell_budget=cell_budget,
+            )
+        writers = []
+        if save is not None and str(save) != "-":
+            writers.append((Path(save), text_writer(res.to_json())))
+        if plot is not None:
+            from .output.event_plot import plot_event
+
+            writers.append((Path(plot), functools.partial(plot_event, res)))
+        write_all(writers)
+        if json_out or (save is not None and str(save) == "-"):
+            sys.stdout.write(res.to_json() + "\n")
+        if not json_out:
+            out.print(event_renderable(res))
+            if plot is not None:
+                out.print(f"event-time plot: {plot}", highlight=False, markup=False, emoji=False)
+        if not (res.untreated_fit["converged"] and res.solver["implied_weights"]["converged"]):
+            raise typer.Exit(3)
+
+
 @app.command("effects")
 @model_command()
 def effects_command(

@@ -7,6 +7,9 @@
   them), the clusters of the wild bootstrap's benchmark;
 * ``store-week-iv``: store-week with log_price endogenous (it answers the demand noise)
   and two cost shifters that move it, ``cost_index`` and ``rival_price`` (instruments);
+* ``store-week-adoption``: store-week plus a staggered adoption: ``first_week``, each store's
+  first treated week (missing for the 30% never treated), and an effect on sales from then on
+  (the event-study benchmark);
 * ``staff``: employee x store x year with job spells (employee x store pairs compress,
   employee x year pairs do not).
 
@@ -32,6 +35,9 @@ STAFF_PER_STORE = 25
 IV_COLUMNS = "bp_normal(i, 17, $seed) AS cost_index, bp_normal(i, 19, $seed) AS rival_price,"
 IV_PRICE = "+ 0.8 * bp_normal(i, 17, $seed) + 0.5 * bp_normal(i, 19, $seed) + 0.5 * z_noise"
 IV_INSTRUMENTS = ("cost_index", "rival_price")
+# the adoption's effect on log sales, invented: 0.05 at the first treated week, 0.002 more per week since
+ADOPTION_EFFECT = ("\n             + CASE WHEN first IS NOT NULL AND w + 1 >= first"
+                   " THEN 0.05 + 0.002 * (w + 1 - first) ELSE 0 END")
 
 
 @dataclass(frozen=True)
@@ -56,6 +62,9 @@ SHAPES = {
                                {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "store-week-iv": Shape("store-week-iv", "log_sales ~ log_price + promo_share + staff_hours", ("store", "week"),
                            "store", {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
+    "store-week-adoption": Shape("store-week-adoption", "log_sales ~ log_price + promo_share + staff_hours",
+                                 ("store", "week"), "store",
+                                 {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "staff": Shape("staff", "log_wage ~ log_hours + training + overtime", ("employee", "store", "year"), "employee",
                    {"log_hours": 0.6, "training": 0.3, "overtime": -0.2}),
 }
@@ -77,6 +86,7 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                 con.execute(render("shape_staff", path=literal(str(tmp))), params).fetchall()
             else:
                 supplier, iv = name == "store-week-supplier", name == "store-week-iv"
+                adoption = name == "store-week-adoption"
                 cells = int(rows / 0.97) // WEEKS * WEEKS
                 params = {"cells": cells, "weeks": WEEKS, "seed": seed, "suppliers": SUPPLIERS}
                 region = name == "store-week-region"
@@ -86,7 +96,9 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                              region_column="CAST(s % $regions + 1 AS SMALLINT) AS region," if region else "",
                              supplier_column="CAST(supplier + 1 AS SMALLINT) AS supplier," if supplier else "",
                              supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "",
-                             instrument_columns=IV_COLUMNS if iv else "", price_shift=IV_PRICE if iv else "")
+                             instrument_columns=IV_COLUMNS if iv else "", price_shift=IV_PRICE if iv else "",
+                             adoption_column="CAST(first AS SMALLINT) AS first_week," if adoption else "",
+                             adoption_effect=ADOPTION_EFFECT if adoption else "")
                 con.execute(sql, params).fetchall()
     finally:
         con.close()

@@ -85,10 +85,12 @@ def budget_bytes(cell_budget: int | str | None) -> int:
     return int(cell_budget)
 
 
-def absorb(session: Session, how: Projections, in_memory: bool) -> Absorption:
-    """Run the steps of the module docstring on the SQL engine, or in numpy when ``in_memory``."""
+def absorb(session: Session, how: Projections, in_memory: bool, back: Backend | None = None) -> Absorption:
+    """Run the steps of the module docstring on the SQL engine, or in numpy when ``in_memory``;
+    ``back`` is a backend the caller has already opened on the session (its views made)."""
     eng = session.eng
-    back = (MemoryBackend if in_memory else SqlBackend)(eng, session.spec, session.src.kind)
+    if back is None:
+        back = (MemoryBackend if in_memory else SqlBackend)(eng, session.spec, session.src.kind)
     first = back.start()
     red = back.reduce(how.singletons == "drop", how.budget, how.strategy)
     lost = back.incomplete() if red.n_complete < first.n_filtered else {}

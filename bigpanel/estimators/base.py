@@ -58,14 +58,14 @@ class Session:
 
 @contextlib.contextmanager
 def opened(request: Request, *, time: str | None = None, endogenous: list[str] | None = None,
-           instruments: list[str] | None = None) -> Iterator[Session]:
+           instruments: list[str] | None = None, regressors_required: bool = True) -> Iterator[Session]:
     """Open the engine on the source, check the spec (and the filter); close the engine after."""
     eng, src = open_session(request.source, request.table, engine=request.engine, on_step=request.on_step,
                             **request.engine_options)
     try:
         spec = build_spec(src, request.y, request.x, request.fe, request.cluster, request.variance, request.where,
                           time=time, weights=request.weights, eng=eng, endogenous=endogenous,
-                          instruments=instruments)
+                          instruments=instruments, regressors_required=regressors_required)
         if spec.where:
             check_where(eng, spec.where)
         yield Session(eng, src, spec)

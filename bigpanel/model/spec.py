@@ -88,6 +88,10 @@ class Spec:
     categorical: tuple[tuple[str, int, str], ...] = ()
     endogenous: tuple[str, ...] = ()  # regressors (labels in x) that instruments stand in for
     instruments: tuple[str, ...] = ()  # excluded instruments: the last labels of x, value columns but not regressors
+    # columns an estimator's own passes read besides the model's: (internal name, SQL over quoted source columns)
+    carry: tuple[tuple[str, str], ...] = ()
+    # a condition over internal names that restricts the fitted sample (bp_sample) within the complete rows
+    sample_where: str | None = None
 
     @property
     def regressors(self) -> tuple[str, ...]:
@@ -260,6 +264,7 @@ def build_spec(
     eng: Engine | None = None,
     endogenous: list[str] | None = None,
     instruments: list[str] | None = None,
+    regressors_required: bool = True,
 ) -> Spec:
     """Check names, types and options; return the spec or raise a one-line error.
 
@@ -268,10 +273,12 @@ def build_spec(
     expression over quoted source columns, or one per level for ``levels()``.
     ``eng`` binds expressions and reads the levels of categorical terms. ``endogenous``
     terms are regressors too (added after ``x`` unless listed there); ``instruments``
-    become value columns after the regressors (see :func:`_instrument_columns`).
+    become value columns after the regressors (see :func:`_instrument_columns`). An
+    estimator whose regressors are optional (the event study's controls) passes
+    ``regressors_required=False``.
     """
     x = list(x) + [e for e in endogenous or [] if e not in x]
-    if not x:
+    if not x and regressors_required:
         raise BigPanelError("no regressors: give at least one --x (or a formula 'y ~ x1 + ...')")
     if not fe:
         raise BigPanelError("no fixed effect: give at least one --fe column")

@@ -34,13 +34,13 @@ class ClusterTerm:
     meat: np.ndarray
 
 
-def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) -> None:
-    """Write each dimension's solved effects as ``bp_alpha_d`` (level keys in code order + a0..aK)."""
+def store_effects(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray], prefix: str = "bp_alpha") -> None:
+    """Write each dimension's solved effects as ``<prefix>_d`` (level keys in code order + a0..aK)."""
     for d, a in enumerate(alpha):
         table = keys[d]
         for j in range(a.shape[1]):
             table = table.append_column(f"a{j}", pa.array(a[:, j], type=pa.float64()))
-        eng.put_table(f"bp_alpha_{d + 1}", table)
+        eng.put_table(f"{prefix}_{d + 1}", table)
 
 
 def create_tilde(eng: Engine, spec: Spec) -> None:

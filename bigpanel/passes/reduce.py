@@ -163,7 +163,8 @@ def check_scale(spec: Spec, shift: np.ndarray) -> None:
 
 
 def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
-    """``bp_filtered`` (used columns, internal names) and the view ``bp_sample``.
+    """``bp_filtered`` (used columns, internal names) and the view ``bp_sample``; with
+    ``spec.sample_where`` also ``bp_complete``, every complete row, of which bp_sample is a part.
 
     ``materialize`` makes ``bp_filtered`` a table, read once from the source: for
     CSV, whose every scan would otherwise parse the text again. A volatile filter
@@ -180,12 +181,17 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
         columns.append(f"{ident(spec.time)} AS tm")
     if spec.weights:
         columns.append(f"CAST({ident(spec.weights)} AS DOUBLE) AS w")
+    columns += [f"{sql} AS {alias}" for alias, sql in spec.carry]
     where = f"({spec.where})" if spec.where else "TRUE"
     materialize = materialize or spec.volatile_where
     kind = "TABLE" if materialize else "VIEW"
     eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where,
                                        offsets=" CROSS JOIN bp_offset AS o" if offsets else ""), raw=materialize)
-    eng.execute("sample view", render("sample", complete=_complete(spec)))
+    complete = _complete(spec)
+    if spec.sample_where:  # the fit uses a subset of the complete rows; bp_complete keeps them all
+        eng.execute("complete rows", render("complete_rows", complete=complete))
+        complete += f" AND ({spec.sample_where})"
+    eng.execute("sample view", render("sample", complete=complete))
 
 
 def source_rows(eng: Engine, spec: Spec, n_filtered: int) -> int:

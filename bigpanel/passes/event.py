@@ -1,0 +1,256 @@
+"""The event study's passes over the rows (the imputation estimator of Borusyak, Jaravel and
+Spiess 2024, Review of Economic Studies).
+
+The untreated fit runs on ``bp_sample`` (the complete rows that are not treated); these
+passes read ``bp_complete`` (every complete row) under internal names: ``f1_1`` the unit,
+``f2_1`` the period, ``ft`` the first treated period, ``cl1`` the cluster, ``uw`` the
+target weight. In order:
+
+1. the panel check (:func:`check_panel`): the first-treated value must be one value per
+   unit (or missing for all its rows); periods and cohorts are ranked for date periods;
+2. the right-hand sides (:func:`targets`): per level of every effect, the untreated rows at
+   each lead and the target weights of the imputable treated rows of each estimand, and
+   the treated rows that cannot be imputed, by reason;
+3. the sums by cell (:func:`cell_sums`) over :func:`rows_view`, the usable rows with the
+   untreated fit's effects and the extra columns' solutions joined back;
+4. the scores per cluster (:func:`cluster_scores`); their products over the clusters
+   (:func:`meat`) read that small table, not the rows.
+
+Sums are plain (not compensated): their summands are demeaned values and imputed effects.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pyarrow as pa
+
+from ..engines.base import Engine
+from ..errors import BigPanelError
+from ..model.event import Design
+from ..model.spec import Spec
+from ..sql.text import grouping_id, grouping_sets, join, render
+
+PANEL_KEYS = ["f1_1", "f2_1", "ft"]
+
+
+@dataclass(frozen=True)
+class PanelCounts:
+    """What the panel check found among the complete rows."""
+
+    rows: int
+    treated: int
+    units: int
+    never_treated: int
+    cohorts: int
+
+
+def check_panel(eng: Engine, design: Design) -> PanelCounts:
+    """Pass 1 (see the module docstring); makes the view ``bp_event_all`` of the complete rows
+    with their event time ``k``, ``treated`` flag and target weight ``wt``."""
+    keys = PANEL_KEYS if design.dates else PANEL_KEYS[:1]
+    sets = [["f1_1"]] + ([["f2_1"], ["ft"]] if design.dates else [])
+    eng.execute("event study: units and cohorts", render("event_panel", keys=", ".join(keys),
+                                                         sets=grouping_sets(sets)), raw=True)
+    units = eng.one("units", render("event_units"), {"gid": grouping_id(keys, ["f1_1"])})
+    bad = int(units["inconsistent"] or 0)
+    if bad:
+        raise BigPanelError(
+            f"first-treated column {design.first_treated!r} is not one value per unit: it varies or is missing in "
+            f"part of the rows of {bad:,} value(s) of {design.unit!r}, e.g. {design.unit} {units['example']}; give "
+            "every row of a unit "
+            "its first treated period, or leave it missing on every row of a unit never treated")
+    joins, event_time = "", "CAST(r.f2_1 AS BIGINT) - CAST(r.ft AS BIGINT)"
+    if design.dates:
+        eng.execute("period ranks", render("event_periods"), {"gid": grouping_id(PANEL_KEYS, ["f2_1"])})
+        eng.execute("cohort ranks", render("event_cohorts"), {"gid": grouping_id(PANEL_KEYS, ["ft"])})
+        joins = ("\nLEFT JOIN bp_event_periods AS p ON p.f2_1 = r.f2_1"
+                 "\nLEFT JOIN bp_event_cohorts AS c ON c.ft = r.ft")
+        event_time = "p.r - c.re"
+    weight = "CASE WHEN isfinite(r.uw) AND r.uw > 0 THEN r.uw END" if design.weights else "CAST(1 AS DOUBLE)"
+    eng.execute("event rows", render("event_all", event_time=event_time, weight=weight, joins=joins))
+    return PanelCounts(int(units["n"] or 0), int(units["n_treated"] or 0), int(units["units"] or 0),
+                       int(units["never_treated"] or 0), int(units["cohorts"] or 0))
+
+
+@dataclass(frozen=True)
+class Targets:
+    """The right-hand sides of the extra normal equations and what the pass counted.
+
+    Columns, in order: one per lead (untreated rows at that event time), one per event time
+    0..HI (the target weights of its imputable treated rows), one for all imputable treated
+    rows. ``rhs[d]`` holds effect d's levels (code order) x columns, ``total`` each column's sum
+    over the rows, ``excluded`` the treated rows that cannot be imputed by reason.
+    """
+
+    rhs: list[np.ndarray]
+    total: np.ndarray
+    excluded: dict[str, int]
+
+
+def _key_match(spec: Spec, d: int, alias: str) -> str:
+    return " AND ".join(f"{alias}.{a} = r.{a}" for a in spec.key_aliases(d))
+
+
+def exclusion_reasons(spec: Spec, design: Design, linked: bool) -> list[tuple[str, str]]:
+    """(reason, SQL condition) in the order a treated row is tested; the first that holds counts."""
+    names = spec.fe_names
+    out = [("l1.code IS NULL", f"{design.unit} has no untreated row"),
+           ("l2.code IS NULL", f"{design.time} has no untreated row (no comparison in that period)")]
+    out += [(f"l{d + 1}.code IS NULL", f"level of {names[d]} without untreated rows") for d in range(2, len(names))]
+    if linked:
+        out.append(("g1.comp <> g2.comp", f"{design.unit} and {design.time} not linked by untreated rows"))
+    if design.weights:
+        out.append(("NOT coalesce(isfinite(r.uw), FALSE)", f"{design.weights} missing"))
+        out.append(("r.uw <= 0", f"{design.weights} zero or negative"))
+    return [(reason, cond) for cond, reason in out]
+
+
+def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: bool) -> Targets:
+    """Pass 2 (see the module docstring). ``linked``: the tables ``bp_event_comp_1`` and
+    ``bp_event_comp_2`` hold the connected component of each unit and period level."""
+    k = len(spec.fe)
+    codes = [f"c{d + 1}" for d in range(k)]
+    joins = [f"LEFT JOIN bp_lev_{d + 1} AS l{d + 1} ON {_key_match(spec, d, f'l{d + 1}')}" for d in range(k)]
+    if linked:
+        joins += [f"LEFT JOIN bp_event_comp_{d} AS g{d} ON g{d}.code = l{d}.code" for d in (1, 2)]
+    reasons = exclusion_reasons(spec, design, linked)
+    why = "CASE " + " ".join(f"WHEN {cond} THEN {i + 1}" for i, (_, cond) in enumerate(reasons)) + " ELSE 0 END"
+    order = ["kk", "why", *codes]  # GROUPING's arguments in the order the sets name them (Spark wants that)
+    sets = grouping_sets([["kk", "why", c] for c in codes] + [["kk", "why"]])
+    columns = join([f"l{d + 1}.code AS c{d + 1}" for d in range(k)])
+    eng.execute("event study: right-hand sides and exclusions",
+                render("event_rhs", keys=", ".join(order), columns=columns, why=why, joins="\n      ".join(joins),
+                       sets=sets), {"lo": design.lo, "beyond": design.hi + 1}, raw=True)
+    params = {f"lead{i}": a for i, a in enumerate(design.leads)}
+    params.update({f"post{h}": p for h, p in enumerate(design.post)})
+    sums = [f"sum(CASE WHEN kk = $lead{i} THEN sw ELSE 0 END) AS r{i}" for i in range(len(design.leads))]
+    sums += [f"sum(CASE WHEN kk = $post{h} THEN sw ELSE 0 END) AS r{len(design.leads) + h}"
+             for h in range(len(design.post))]
+    n_cols = len(design.leads) + len(design.post) + 1
+    sums.append(f"sum(CASE WHEN kk >= 0 THEN sw ELSE 0 END) AS r{n_cols - 1}")
+    values = [f"r{j}" for j in range(n_cols)]
+    rhs = []
+    for d in range(k):
+        sql = render("event_rhs_rows", columns=join([codes[d], *sums]), filter=f" AND {codes[d]} IS NOT NULL",
+                     group=f"GROUP BY {codes[d]}")
+        tab = eng.arrow("right-hand sides", sql, {**params, "gid": grouping_id(order, ["kk", "why", codes[d]])})
+        out = np.zeros((levels[d], n_cols))
+        at = tab.column(codes[d]).to_numpy().astype(np.int64)
+        for j, v in enumerate(values):
+            out[at, j] = tab.column(v).to_numpy(zero_copy_only=False).astype(float)
+        rhs.append(out)
+    gid = {"gid": grouping_id(order, ["kk", "why"])}
+    row = eng.one("right-hand side totals", render("event_rhs_rows", columns=join(sums), filter="", group=""),
+                  {**params, **gid})
+    why_rows = eng.arrow("exclusions", render("event_exclusions"), gid).to_pylist()
+    excluded = {reasons[int(r["why"]) - 1][0]: int(r["n"]) for r in why_rows}
+    return Targets(rhs, np.array([float(row[v] or 0.0) for v in values]), excluded)
+
+
+def put_components(eng: Engine, labels: np.ndarray, n_unit: int) -> None:
+    """The connected component of each unit level and each period level (``bp_event_comp_1/2``)."""
+    for d, lab in ((1, labels[:n_unit]), (2, labels[n_unit:])):
+        eng.put_table(f"bp_event_comp_{d}", pa.table({"code": pa.array(np.arange(len(lab), dtype=np.int32)),
+                                                      "comp": pa.array(lab.astype(np.int64))}))
+
+
+def rows_view(eng: Engine, spec: Spec, extra: int, linked: bool) -> None:
+    """The view ``bp_event_rows``: the usable rows with e_j (j over the outcome and controls) and
+    z_i (i over the ``extra`` solved columns), from the tables ``bp_event_fx_d`` (each effect's
+    level keys, ``comp`` for effects 1 and 2 when ``linked``, then a0..a{m-1} for the value
+    columns and a{m}.. for the extra ones)."""
+    k, m = len(spec.fe), len(spec.value_aliases)
+    cols = [f"r.v{j} - s.m{j} - " + " - ".join(f"f{d + 1}.a{j}" for d in range(k)) + f" AS e{j}" for j in range(m)]
+    cols += [" + ".join(f"f{d + 1}.a{m + i}" for d in range(k)) + f" AS z{i}" for i in range(extra)]
+    joins = "\n".join(f"JOIN bp_event_fx_{d + 1} AS f{d + 1} ON {_key_match(spec, d, f'f{d + 1}')}" for d in range(k))
+    usable = "NOT r.treated OR (r.wt IS NOT NULL" + (" AND f1.comp = f2.comp)" if linked else ")")
+    eng.execute("usable rows", render("event_rows", columns=join(cols), joins=joins, usable=usable))
+
+
+def _fit(coef: str, names: list[str]) -> str:
+    """``b.coef0 * name0 + ...`` over the one-row table ``b`` (0 when there is nothing to add)."""
+    return " + ".join(f"b.{coef}{i} * {n}" for i, n in enumerate(names)) or "0"
+
+
+def cell_sums(eng: Engine, controls: list[int], leads: int, lo: int) -> pa.Table:
+    """Pass 3: per treated cell (cohort ``fc``, event time ``kk``) the row count and the sums of
+    the weight, weight x tau, weight^2 x tau, weight^2 and weight x e_j; per lead (the untreated
+    rows at event time ``kk``) the sums of e_0, e_j and z_a. ``controls`` are the kept controls
+    (value columns 1..K); the one-row table ``bp_event_coef`` holds their slopes as b0, b1, ...
+    Plain sums: the summands are demeaned."""
+    es = [f"e{j}" for j in controls]
+    tau = f"r.e0 - ({_fit('b', [f'r.{e}' for e in es])})"
+    sums = ["sum(wt) AS sw", "sum(wt * tau) AS swt", "sum(wt * wt * tau) AS sw2t", "sum(wt * wt) AS sw2"]
+    sums += [f"sum(wt * {e}) AS sw{e}" for e in es]
+    sums += [f"sum({e}) AS s{e}" for e in ["e0", *es]] + [f"sum(z{a}) AS sz{a}" for a in range(leads)]
+    return eng.arrow("event study: sums by cell", render("event_cells", sums=join(sums), tau=tau), {"lo": lo},
+                     raw=True)
+
+
+@dataclass(frozen=True)
+class ScoreTerms:
+    """What the per-cluster scores need: the kept controls, the leads solved (event times;
+    z_0.. in their order), and for each estimand its event time (None: every treated row) and
+    its extra column, ``first_weight_column`` + its index."""
+
+    controls: list[int]
+    leads: list[int]
+    estimands: list[int | None]
+    first_weight_column: int
+
+
+def _one(condition: str) -> str:
+    """1.0 where ``condition`` holds, else 0 (a boolean times a double, in every dialect)."""
+    return f"CAST(CAST({condition} AS INTEGER) AS DOUBLE)"
+
+
+def cluster_scores(eng: Engine, t: ScoreTerms) -> None:
+    """Pass 4: per cluster, the sums that make each estimand's and the pre-trend fit's scores,
+    into ``bp_event_scores``: sa_h = sum a [k = h] (or sum a over every treated row), sb_h =
+    sum z_h u and sc_j = sum e_j u over the untreated rows, sp_j = sum e_j u2 and sq_a =
+    sum (L_a - z_a) u2 (see
+    sql/event_scores.sql). The one-row table ``bp_event_coef`` holds the untreated fit's slopes
+    (b*) and the pre-trend fit's on the controls (t*) and the leads (l*); ``bp_event_tbar`` each
+    treated cell's weighted average imputed effect."""
+    es = [f"e{j}" for j in t.controls]
+    resid = f"r.e0 - ({_fit('b', [f'r.{e}' for e in es])})"
+    lead_cols = [f"({_one(f'coalesce(r.k, 0) = $lead{a}')} - r.z{a})" for a in range(len(t.leads))]
+    coefs = [f"b.t{i}" for i in range(len(es))] + [f"b.l{a}" for a in range(len(t.leads))]
+    pretrend = f"r.e0 - ({' + '.join(f'{c} * {x}' for c, x in zip(coefs, [f'r.{e}' for e in es] + lead_cols)) or '0'})"
+    sums = [f"sum(a * {_one(f'kt = $est{h}')}) AS sa{h}" if k is not None else f"sum(a) AS sa{h}"
+            for h, k in enumerate(t.estimands)]
+    sums += [f"sum(z{t.first_weight_column + h} * bu) AS sb{h}" for h in range(len(t.estimands))]
+    sums += [f"sum({e} * bu) AS sc{i}" for i, e in enumerate(es)]
+    sums += [f"sum({e} * u2) AS sp{i}" for i, e in enumerate(es)]
+    sums += [f"sum(({_one(f'coalesce(k, 0) = $lead{a}')} - z{a}) * u2) AS sq{a}" for a in range(len(t.leads))]
+    params = {f"lead{a}": k for a, k in enumerate(t.leads)}
+    params.update({f"est{h}": k for h, k in enumerate(t.estimands) if k is not None})
+    sql = render("event_scores", sums=join(sums), resid=resid, pretrend=pretrend)
+    eng.execute("event study: scores per cluster", sql, params, raw=True)
+
+
+def meat(eng: Engine, t: ScoreTerms) -> tuple[np.ndarray, np.ndarray, int, int]:
+    """The scores per cluster from the sums of :func:`cluster_scores`: for estimand h,
+    s_h = sa_h / W_h - sb_h - sum_j g_hj sc_j (``bp_event_coef`` holds 1 / W_h as w{h} and the
+    weights' slopes on the controls as g{h}_{j}); for the pre-trend fit sp_j and sq_a. Returns
+    the sums over clusters of their products (estimands x estimands, and the pre-trend fit's
+    controls then leads), the number of clusters and of clusters with untreated rows."""
+    n_est, n_reg = len(t.estimands), len(t.controls) + len(t.leads)
+    scores = [f"b.w{h} * sa{h} - sb{h} - ({_fit(f'g{h}_', [f'sc{i}' for i in range(len(t.controls))])}) AS s{h}"
+              for h in range(n_est)]
+    scores += [f"sp{i} AS r{i}" for i in range(len(t.controls))]
+    scores += [f"sq{a} AS r{len(t.controls) + a}" for a in range(len(t.leads))]
+    sums = [f"fsum(s{h} * s{j}) AS v{h}_{j}" for h in range(n_est) for j in range(h, n_est)]
+    sums += [f"fsum(r{a} * r{b}) AS m{a}_{b}" for a in range(n_reg) for b in range(a, n_reg)]
+    row = eng.one("event study: products of the scores", render("event_meat", scores=join(scores), sums=join(sums)))
+
+    def square(size: int, key: str) -> np.ndarray:
+        out = np.zeros((size, size))
+        for a in range(size):
+            for b in range(a, size):
+                out[a, b] = out[b, a] = float(row[f"{key}{a}_{b}"] or 0.0)
+        return out
+
+    return square(n_est, "v"), square(n_reg, "m"), int(row["clusters"]), int(row["clusters_untreated"] or 0)
