@@ -37,11 +37,12 @@ import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
 from bigpanel.demo import write_demo
-from bigpanel.shapes import SHAPES, write_shape
+from bigpanel.shapes import COUNT_FORMULA, SHAPES, write_shape
 
 HERE = Path(__file__).resolve().parent
 DEMO_FORMULA = "log_units ~ log_price + promo"
-# (panel, effects, cluster column or None): the configurations measured at every size, by group.
+# (panel, effects, cluster column or None[, model]): the configurations measured at every size, by
+# group; the model is "linear" unless a fourth element says "poisson" (store-week-counts: units).
 CONFIGS = {
     "main": [
         ("demo", ["store"], None),
@@ -63,7 +64,15 @@ CONFIGS = {
         ("store-week-supplier", ["store", "week", "supplier"], None),
         ("store-week-supplier", ["store", "week", "supplier"], "store"),
     ],
+    "poisson": [  # the Poisson fit against the linear fit with the same effects on the same panel
+        ("store-week-counts", ["store", "week"], None),
+        ("store-week-counts", ["store", "week"], None, "poisson"),
+        ("store-week-counts", ["store", "week"], "store", "poisson"),
+        ("demo", ["store", "product", "week"], "store"),
+        ("demo", ["store", "product", "week"], "store", "poisson"),
+    ],
 }
+POISSON_FORMULAS = {"store-week-counts": COUNT_FORMULA, "demo": "{round(exp(log_units))} ~ log_price + promo"}
 NUMPY_BYTES_PER_ROW = 200  # peak of the plain numpy fit, measured about 150 B/row at 10M rows
 NUMPY_MAX_ROWS = {"staff": 10_000_000}  # slow to converge by plain alternating projections
 
@@ -84,13 +93,17 @@ def panel_file(name: str, rows: int, data_dir: Path) -> str:
     return str(path)
 
 
-def formula(name: str) -> str:
+def formula(name: str, model: str = "linear") -> str:
+    if model == "poisson":
+        return POISSON_FORMULAS[name]
     return DEMO_FORMULA if name == "demo" else SHAPES[name].formula
 
 
 def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
-    name, fe, cluster = config
+    name, fe, cluster = config[:3]
     rec = {"rows": rows, "panel": name, "effects": fe, "cluster": cluster, "what": what, "ok": out["ok"]}
+    if len(config) > 3:
+        rec["model"] = config[3]
     if not out["ok"]:
         rec["error"] = out["error"]
         return rec
@@ -116,13 +129,15 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
     plan = [(rows, config) for rows in sizes for config in CONFIGS[group]]
     plan += [(rows, config) for rows in large for config in CONFIGS[group] if config[0] == "store-week"]
     for rows, config in plan:
-        name, fe, cluster = config
+        name, fe, cluster = config[:3]
         path = panel_file(name, rows, data_dir)
-        model = {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster}
+        model = {"source": path, "formula": formula(name, *config[3:]), "fe": fe, "cluster": cluster}
+        if len(config) > 3:
+            model["model"] = config[3]
         steps = [("scan", model, None),
                  ("fit", {**model, "memory_limit": memory_limit, "temp_dir": str(spill)}, None)]
         fits_memory = rows * NUMPY_BYTES_PER_ROW < 0.7 * total_memory
-        if cluster is None or name == "staff":  # slopes only: one numpy fit per panel and effects
+        if (cluster is None or name == "staff") and len(config) == 3:  # slopes only: one numpy fit per panel and effects
             if fits_memory and rows <= NUMPY_MAX_ROWS.get(name, rows):
                 steps.append(("numpy", model, plain_numpy.fit))
         for what, m, runner in steps:
@@ -136,7 +151,8 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
 
 def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
-    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}"
+    model = f", {rec['model']}" if rec.get("model") else ""
+    return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{model}"
 
 
 def warm_scan(records: list[dict], rec: dict) -> dict | None:

@@ -9,10 +9,11 @@ from .errors import BigPanelError
 from .estimators.base import Estimator, Request
 from .estimators.between import Between
 from .estimators.first_difference import FirstDifference
+from .estimators.poisson import Poisson
 from .estimators.random_effects import RandomEffects
 from .estimators.within import Within
 from .model.spec import parse_formula
-from .options import as_list
+from .options import MODELS, as_list
 from .results.result import FitResult
 
 ESTIMATOR_CLASSES: dict[str, type[Estimator]] = {
@@ -33,6 +34,7 @@ def fit(
     table: str | None = None,
     weights: str | None = None,
     estimator: str = "within",
+    model: str = "linear",
     engine: str | None = None,
     memory_limit: str | None = None,
     temp_dir: str | None = None,
@@ -66,6 +68,11 @@ def fit(
     * random-effects: ``hausman=True`` adds the Hausman and Mundlak tests; ``tol`` and
       ``max_iter`` go to the within fit it runs first.
 
+    ``model`` is ``linear`` (default) or ``poisson``: Poisson pseudo-maximum likelihood with the
+    effects absorbed (y >= 0; the within estimator only), with the within fit's options and
+    ``irls_tol`` (1e-8), ``irls_max_iter`` (100) and ``exponentiate`` (effects also as exp);
+    its default variance is ``hc1``.
+
     ``engine`` is ``duckdb`` (default for files; ``memory_limit``, ``temp_dir`` and ``threads``
     are its settings), ``postgresql`` (default for a ``postgresql://`` URL), ``spark``
     (``spark_master``, default local mode) or ``memory`` (load the used columns into numpy:
@@ -82,10 +89,15 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if estimator not in ESTIMATOR_CLASSES:
         raise BigPanelError(f"unknown estimator {estimator!r}: choose one of {', '.join(ESTIMATOR_CLASSES)}")
+    if model not in MODELS:
+        raise BigPanelError(f"unknown model {model!r}: choose one of {', '.join(MODELS)}")
+    if model == "poisson" and estimator != "within":
+        raise BigPanelError(f"--model poisson is fitted with the within estimator only, not {estimator}")
     request = Request(
         source=source, y=y, x=xs, fe=as_list(fe), cluster=as_list(cluster), variance=variance, where=where,
         table=table, weights=weights, engine=engine, on_step=on_step,
         engine_options=dict(memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, delimiter=delimiter,
                             spark_master=spark_master),
     )
-    return ESTIMATOR_CLASSES[estimator](request, **options).fit()
+    cls = Poisson if model == "poisson" else ESTIMATOR_CLASSES[estimator]
+    return cls(request, **options).fit()

@@ -23,7 +23,7 @@ from rich.text import Text
 from .command import interrupted
 from .engines.registry import ENGINES
 from .errors import BigPanelError
-from .options import ESTIMATORS, SINGLETONS, VARIANCE_TYPES
+from .options import ESTIMATORS, MODELS, SINGLETONS, VARIANCE_TYPES
 from .output.tables import RENDERERS
 
 # Only typer, rich and the light modules above load at start: the commands import the
@@ -51,6 +51,10 @@ def _choices(name: str, values: object) -> type[enum.Enum]:
 Variance = _choices("Variance", VARIANCE_TYPES)
 Singletons = _choices("Singletons", SINGLETONS)
 Estimator = _choices("Estimator", ESTIMATORS)
+Model = _choices("Model", MODELS)
+MODEL_HELP = ("linear (default) or poisson: Poisson pseudo-maximum likelihood, E[y] = exp(x'b + effects), for an "
+              "outcome that is never negative (counts, trade flows, sales with zeros); robust (hc1) errors by default.")
+EXPONENTIATE_HELP = "With --model poisson: add exp(effect), the factor by which each level multiplies the mean."
 EngineName = _choices("EngineName", ENGINES)
 TableFormat = _choices("TableFormat", RENDERERS)
 
@@ -261,10 +265,20 @@ def fit_command(
     ),
     weights: Optional[str] = typer.Option(
         None, "--weights",
-        help="Column of analytic weights (any estimator); rows with a missing weight and with a zero or negative "
-        "one are dropped and counted apart.",
+        help="Column of analytic weights (any estimator; prior weights with --model poisson); rows with a missing "
+        "weight and with a zero or negative one are dropped and counted apart.",
         metavar="COL",
     ),
+    model_kind: Model = typer.Option("linear", "--model", help=MODEL_HELP),
+    irls_tol: Optional[float] = typer.Option(
+        None, "--irls-tol", metavar="X",
+        help="With --model poisson: stop when the deviance changes by less than X relative and no coefficient "
+        "moves by more than X (default 1e-8).",
+    ),
+    irls_max_iter: Optional[int] = typer.Option(
+        None, "--irls-max-iter", metavar="N", help="With --model poisson: at most N weighted fits (default 100).",
+    ),
+    exponentiate: bool = typer.Option(False, "--exponentiate", help=EXPONENTIATE_HELP, metavar=""),
     json_out: bool = typer.Option(
         False, "--json", help="Print the full result as one JSON object instead of the table.", metavar=""
     ),
@@ -289,7 +303,8 @@ def fit_command(
     with progress(quiet or json_out) as on_step:
         res = run_fit(
             **model, engine=engine, spark_master=spark_master, estimator=estimator, time=time, hausman=hausman,
-            weights=weights, on_step=on_step,
+            weights=weights, on_step=on_step, model=model_kind, irls_tol=irls_tol, irls_max_iter=irls_max_iter,
+            exponentiate=exponentiate,
         )
     files = _effect_files(Path(effects_out), list(res.effects)) if effects_out is not None else {}
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items() if name in files]
@@ -323,6 +338,8 @@ def effects_command(
     period: Optional[str] = typer.Option(
         None, "--time", metavar="COL", help="The period column among the effects: its effect is drawn against time."
     ),
+    model_kind: Model = typer.Option("linear", "--model", help=MODEL_HELP),
+    exponentiate: bool = typer.Option(False, "--exponentiate", help=EXPONENTIATE_HELP, metavar=""),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
     """Fit the model and export the estimated fixed effects of every dimension, with a summary.
@@ -337,7 +354,7 @@ def effects_command(
 
     _check_outputs(model, {"--plot": plot}, out_dir)
     with progress(quiet) as on_step:
-        res = run_fit(**model, on_step=on_step)
+        res = run_fit(**model, on_step=on_step, model=model_kind, exponentiate=exponentiate)
     files = _effect_files(Path(out_dir), list(res.effects))
     writers = [(files[name], parquet_writer(tab)) for name, tab in res.effects.items()]
     if plot is not None:

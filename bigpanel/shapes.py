@@ -3,6 +3,8 @@
 * ``store-week``: one row per store and week, 150 weeks, about 3% of cells missing;
 * ``store-week-supplier``: the same plus a supplier effect of about 1,000 levels that
   cuts across stores and weeks;
+* ``store-week-counts``: store-week plus ``units``, a count with zeros for the Poisson fit
+  (its mean is exp of the linear predictor; ``COUNT_COEFFICIENTS``);
 * ``staff``: employee x store x year with job spells (employee x store pairs compress,
   employee x year pairs do not).
 
@@ -42,9 +44,17 @@ SHAPES = {
     "store-week-supplier": Shape("store-week-supplier", "log_sales ~ log_price + promo_share + staff_hours",
                                  ("store", "week", "supplier"), "store",
                                  {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
+    "store-week-counts": Shape("store-week-counts", "log_sales ~ log_price + promo_share + staff_hours",
+                               ("store", "week"), "store",
+                               {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "staff": Shape("staff", "log_wage ~ log_hours + training + overtime", ("employee", "store", "year"), "employee",
                    {"log_hours": 0.6, "training": 0.3, "overtime": -0.2}),
 }
+COUNT_FORMULA = "units ~ log_price + promo_share + staff_hours"  # the Poisson model of store-week-counts
+COUNT_COEFFICIENTS = {"log_price": 0.3, "promo_share": -0.5, "staff_hours": 0.25}
+COUNT_COLUMN = ("CAST(floor(exp(0.5 + 0.3 * (z1 + 0.5 * z_store) - 0.5 * (z2 + 0.3 * z_week) + 0.25 * z3 "
+                "+ 0.5 * z_store + 0.3 * z_week + 0.5 * z_noise - 0.125) + bp_unif(i, 17, $seed)) AS INTEGER) "
+                "AS units,")
 
 
 def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
@@ -67,7 +77,8 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                 params = {"cells": cells, "weeks": WEEKS, "seed": seed, "suppliers": SUPPLIERS}
                 sql = render("shape_store_week", path=literal(str(tmp)),
                              supplier_column="CAST(supplier + 1 AS SMALLINT) AS supplier," if supplier else "",
-                             supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "")
+                             supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "",
+                             count_column=COUNT_COLUMN if name == "store-week-counts" else "")
                 con.execute(sql, params).fetchall()
     finally:
         con.close()

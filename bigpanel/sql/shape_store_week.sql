@@ -3,7 +3,11 @@
 --   missing at random), log sales on three regressors with store and week effects;
 -- * store-week-supplier: the same plus the supplier of the week's main delivery,
 --   about 1,000 levels drawn at random for every row (an effect that cuts across
---   stores and weeks).
+--   stores and weeks);
+-- * store-week-counts: store-week plus units, a count with zeros whose mean is
+--   exp(0.5 + 0.3 log_price - 0.5 promo_share + 0.25 staff_hours + 0.5 store + 0.3 week)
+--   (a log-normal factor of mean 1, then rounded down after adding a uniform draw,
+--   which keeps the mean), for the Poisson fit.
 -- log_sales = 1.0 log_price - 0.5 promo_share + 0.25 staff_hours + store + week
 --             (+ supplier) effects + noise; the regressors move with the store and
 -- week effects, so pooled OLS is biased. Rows are written store by store.
@@ -26,7 +30,7 @@ COPY (
   )
   SELECT CAST(s + 1 AS INTEGER) AS store,
          CAST(w + 1 AS SMALLINT) AS week,
-         {{supplier_column}}
+         {{supplier_column}}{{count_column}}
          z1 + 0.5 * z_store AS log_price,
          z2 + 0.3 * z_week AS promo_share,
          z3 AS staff_hours,
