@@ -29,7 +29,7 @@ from ..numerics.project import components
 from ..numerics.rowcodes import Links, build_links, reweighted
 from ..numerics.rowcodes import components as code_components
 from ..numerics.solve import Slopes, solve_slopes
-from ..passes.irls import StepSums, check_nonnegative, create_rows, fetch_weights, step_pass, store_state
+from ..passes.irls import StepSums, check_nonnegative, fetch_weights, step_pass, store_state
 from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, RowCodes, Start,
                              choose_strategy, code_bytes, create_views, incomplete, reduce_cells, start,
                              value_offsets)
@@ -145,9 +145,8 @@ def _rounds(eng: Engine, spec: Spec, sample: Sample, how: Projections) -> None:
         sample.plan = _plan(spec, sizes, rows, how)
         store_state(eng, spec, sample.keys, [np.zeros(g) for g in sizes], [np.zeros((g, m)) for g in sizes],
                     sample.coef)
-        create_rows(eng, spec, start=True)
         pairs = _pairs(len(sizes)) if sample.plan.strategy == PAIR_TABLES else []
-        sums = step_pass(eng, spec, pairs, first=True)
+        sums = step_pass(eng, spec, pairs, first=True, start=True)
         now = int(sums.levels[0].rows.sum())
         if pending == ZERO_LEVELS:
             sample.dropped[ZERO_LEVELS] += rows - now
@@ -194,11 +193,11 @@ def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> None:
         codes = {d: np.empty(n, dtype=np.int16 if code_bytes(g) == 2 else np.int32)
                  for d, g in enumerate(sizes) if d != big}
         sample.weights = np.empty(n)
-        fetch_weights(eng, spec, big, sample.weights, codes)
+        fetch_weights(eng, spec, big, sample.weights, codes, start=True)
         sample.links = build_links(RowCodes(big, codes, sample.weights), rows)
         sample.n_comp, sample.labels = code_components(sample.links, sizes)
         return
-    fetch_weights(eng, spec, sample.links.big, sample.weights, {})
+    fetch_weights(eng, spec, sample.links.big, sample.weights, {}, start=False)
     sample.links = reweighted(sample.links, sizes, sample.weights)
 
 
@@ -228,7 +227,7 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
         run.steps += 1
         passes = eng.raw_passes
         if run.steps > 1:
-            run.sums = step_pass(eng, spec, pairs, first=False)
+            run.sums = step_pass(eng, spec, pairs, first=False, start=False)
         if strategy == ROW_CODES:
             _row_weights(eng, spec, sample)
         if run.steps > 1:
@@ -252,5 +251,4 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
         run.seconds_in_numpy += perf_counter() - t0
         coef = {**sample.coef, **{f"b{j}": float(b) for j, b in zip(run.keep, run.beta)}}
         store_state(eng, spec, sample.keys, run.f, run.a, coef)
-        create_rows(eng, spec, start=False)
         run.at_start = False

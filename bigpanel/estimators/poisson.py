@@ -36,7 +36,7 @@ from ..numerics.inference import Inference, infer
 from ..numerics.irls import fit_summary
 from ..numerics.project import Projection
 from ..numerics.solve import ILL_CONDITIONED, Slopes
-from ..passes.irls import FinalSums, create_demeaned, create_rows, final_pass, store_state
+from ..passes.irls import FinalSums, create_demeaned, final_pass, store_state
 from ..passes.moments import meat_cluster
 from ..results.result import EffectInfo, FitResult, FitStatistics, SolverReport
 from .absorb import Projections
@@ -92,8 +92,7 @@ class Poisson(Estimator):
         eng, spec = session.eng, session.spec
         coef = {**sample.coef, **{f"b{j}": float(b) for j, b in zip(run.keep, run.beta)}}
         store_state(eng, spec, sample.keys, run.f, run.a, coef)
-        create_rows(eng, spec, start=run.at_start)
-        create_demeaned(eng, spec)
+        create_demeaned(eng, spec, start=run.at_start)
         sums = final_pass(eng, spec)
         slopes, keep = irls_slopes(sums.q, run.sums, run.keep or None)
         meat, terms = None, []

@@ -93,8 +93,6 @@ def store_state(eng: Engine, spec: Spec, keys: list[pa.Table], f: list[np.ndarra
     """Upload the current fit: per effect its level keys, code, effect ``f`` and the effects ``a``
     taken out of each working column (``bp_irls_fx_d``), and the one-row table ``bp_irls_coef``
     (``coef``: ``yo`` the outcome's integer offset, ``ybar``, ``low`` and the slopes ``bj``)."""
-    for view in ("bp_tilde", "bp_irls"):
-        eng.execute("drop the working view", render("drop_view", view=view))
     for d, table in enumerate(keys):
         table = table.append_column("code", pa.array(np.arange(len(f[d]), dtype=np.int32)))
         table = table.append_column("f", pa.array(f[d], type=pa.float64()))
@@ -104,9 +102,10 @@ def store_state(eng: Engine, spec: Spec, keys: list[pa.Table], f: list[np.ndarra
     put_one_row(eng, "bp_irls_coef", coef)
 
 
-def create_rows(eng: Engine, spec: Spec, start: bool) -> None:
-    """The view ``bp_irls`` (see the module docstring). At the ``start`` the fit is
-    mu = (y + ybar) / 2 row by row (eta its logarithm), as common practice for IRLS."""
+def rows_sql(spec: Spec, start: bool) -> str:
+    """The working rows of a step (template ``poisson_rows``), a subquery of the passes. At the
+    ``start`` the fit is mu = (y + ybar) / 2 row by row (eta its logarithm), as common practice
+    for IRLS; after it, eta comes from the slopes and the effects of :func:`store_state`."""
     k, m = len(spec.fe), len(spec.value_aliases)
     effects = [f"e{d + 1}" for d in range(k)]
     t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
@@ -119,9 +118,8 @@ def create_rows(eng: Engine, spec: Spec, start: bool) -> None:
     inner += spec.cluster_aliases
     joins = "\n".join(f"JOIN bp_irls_fx_{d + 1} AS e{d + 1} USING ({', '.join(spec.key_aliases(d))})"
                       for d in range(k))
-    sql = render("poisson_rows", codes=_codes(k), inner=join(inner), joins=joins,
-                 columns=join([f"r{j}" for j in range(1, m)] + spec.cluster_aliases))
-    eng.execute("IRLS working rows", sql)
+    return render("poisson_rows", codes=_codes(k), inner=join(inner), joins=joins,
+                  columns=join([f"r{j}" for j in range(1, m)] + spec.cluster_aliases))
 
 
 def _codes(k: int) -> str:
@@ -144,41 +142,33 @@ def _sums(spec: Spec, first: bool) -> list[str]:
     return sums
 
 
-def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool) -> StepSums:
-    """One grouped IRLS pass over the rows (``first``: also the columns that decide the sample).
-    The sample's products and deviance are read from the effect with the fewest levels."""
+def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool, start: bool) -> StepSums:
+    """One grouped IRLS pass over the rows (``first``: also the columns that decide the sample;
+    ``start``: at the starting fit), then one fetch of all its grouping sets. The sample's
+    products and deviance are read from the effect with the fewest levels."""
     k, m = len(spec.fe), len(spec.value_aliases)
     codes = [f"c{d + 1}" for d in range(k)]
     sets = [[c] for c in codes] + [[codes[d], codes[e]] for d, e in pairs]
     eng.execute("IRLS step: per-level sums of the working columns",
-                render("poisson_cells", codes=_codes(k), sums=join(_sums(spec, first)), sets=grouping_sets(sets)),
-                raw=True)
-    tables = [_cells(eng, codes, [codes[d]], _level_columns(spec, first)) for d in range(k)]
-    small = int(np.argmin([t.num_rows for t in tables]))
-    extra = _cells(eng, codes, [codes[small]], [f"q{i}_{j}" for i, j in _pairs_of(m)] + ["dev"])
+                render("poisson_cells", codes=_codes(k), sums=join(_sums(spec, first)), sets=grouping_sets(sets),
+                       rows=rows_sql(spec, start)), raw=True)
+    cells = eng.arrow("IRLS step: fetch sums", render("poisson_cell_table", codes=_codes(k)))
+    gid = cells.column("gid").to_numpy()
+
+    def part(grouped: list[str]) -> pa.Table:
+        return cells.filter(pa.array(gid == grouping_id(codes, grouped)))
+
+    tables = [part([c]) for c in codes]
+    smallest = tables[int(np.argmin([t.num_rows for t in tables]))]
     products = np.zeros((m, m))
     for i, j in _pairs_of(m):
-        products[i, j] = products[j, i] = float(np.sum(extra.column(f"q{i}_{j}").to_numpy()))
+        products[i, j] = products[j, i] = float(np.sum(smallest.column(f"q{i}_{j}").to_numpy()))
     fetched = {}
     for d, e in pairs:
-        tab = _cells(eng, codes, [codes[d], codes[e]], [codes[d], codes[e], "nw"])
+        tab = part([codes[d], codes[e]])
         fetched[(d, e)] = tuple(tab.column(c).to_numpy() for c in (codes[d], codes[e], "nw"))
     return StepSums([_level_sums(spec, t, first) for t in tables], products,
-                    2.0 * float(np.sum(extra.column("dev").to_numpy())), fetched)
-
-
-def _level_columns(spec: Spec, first: bool) -> list[str]:
-    m = len(spec.value_aliases)
-    columns = ["n", "nw"] + [f"s{j}" for j in range(m)]
-    if first:
-        columns += ["top", *CONSTANTS] + [f"{c}_{fn}" for c in spec.cluster_aliases for fn in ("min", "max")]
-    return columns
-
-
-def _cells(eng: Engine, codes: list[str], grouped: list[str], columns: list[str]) -> pa.Table:
-    """One grouping set of ``bp_irls_cells`` in code order."""
-    sql = render("poisson_cell_table", columns=join(columns, ", "), order=", ".join(grouped))
-    return eng.arrow("IRLS step: fetch sums", sql, {"gid": grouping_id(codes, grouped)})
+                    2.0 * float(np.sum(smallest.column("dev").to_numpy())), fetched)
 
 
 def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
@@ -202,12 +192,14 @@ def _row_order(spec: Spec, big: int) -> str:
     return ", ".join(f"c{d + 1}" for d in [big] + [d for d in range(len(spec.fe)) if d != big])
 
 
-def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes: dict[int, np.ndarray]) -> None:
+def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes: dict[int, np.ndarray],
+                  start: bool) -> None:
     """The row-codes path's second pass of a step: every row's working weight written into
     ``weights`` (the array the link tables share), in the order of the codes (:func:`_row_order`);
     ``codes`` (effect -> preallocated array; empty after the first step) are filled too."""
     columns = ["w"] + [f"c{d + 1}" for d in codes]
-    sql = render("poisson_row_weights", columns=join(columns, ", "), order=_row_order(spec, big))
+    sql = render("poisson_row_weights", columns=join(columns, ", "), order=_row_order(spec, big),
+                 rows=rows_sql(spec, start))
     targets = [weights, *codes.values()]
     at = 0
     for batch in eng.stream("IRLS step: working weight of every row", sql, raw=True):
@@ -221,12 +213,13 @@ def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes:
         raise RuntimeError(f"the IRLS weights pass returned {at:,} rows, the levels hold {len(weights):,}")
 
 
-def create_demeaned(eng: Engine, spec: Spec) -> None:
+def create_demeaned(eng: Engine, spec: Spec, start: bool) -> None:
     """The view ``bp_tilde`` of the fully demeaned working columns e_j, what the scores and fit
     statistics need, and the cluster columns."""
     m = len(spec.value_aliases)
     columns = [f"r{j} AS e{j}" for j in range(m)] + ["w", "p", "y", "mu", "small"] + spec.cluster_aliases
-    eng.execute("demeaned working columns", render("poisson_tilde", columns=join(columns)))
+    eng.execute("demeaned working columns",
+                render("poisson_tilde", columns=join(columns), rows=rows_sql(spec, start)))
 
 
 def final_pass(eng: Engine, spec: Spec) -> FinalSums:

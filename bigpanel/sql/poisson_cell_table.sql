@@ -1,5 +1,4 @@
--- One grouping set of the IRLS step's cells, in code order, for numpy.
-SELECT {{columns}}
+-- Every grouping set of the IRLS step's cells, each in code order, for numpy.
+SELECT *
 FROM bp_irls_cells
-WHERE gid = $gid
-ORDER BY {{order}}
+ORDER BY gid, {{codes}}

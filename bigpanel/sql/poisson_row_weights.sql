@@ -3,5 +3,5 @@
 -- that every step returns the rows in the order of the codes kept in numpy (rows with the
 -- same codes of every effect may trade places: they enter the sparse tables alike).
 SELECT {{columns}}
-FROM bp_irls
+FROM ({{rows}}) AS r
 ORDER BY {{order}}
