@@ -47,8 +47,8 @@ class Sample:
     """The fit's sample: the first step's counts and shifts, the reduction, the incomplete rows,
     each effect's level keys (code order), the sums of the first IRLS pass, the strategy, the
     nesting flags, the one-row table's values, the rows dropped by reason, the sums of p, p y,
-    p y^2 and p y log y (``constants``), the components of effects 1-2 and, on the row-codes
-    path, the link tables."""
+    p y^2 and p y log y (``constants``), the starting effects ``f0``, the components of effects
+    1-2 and, on the row-codes path, the link tables and the row weights they share."""
 
     first: Start
     red: Reduction
@@ -63,6 +63,7 @@ class Sample:
     singletons: int = 0
     rounds: int = 0
     constants: dict[str, float] = field(default_factory=dict)
+    f0: list[np.ndarray] = field(default_factory=list)
     n_comp: int | None = None
     labels: np.ndarray | None = None
     links: Links | None = None
@@ -79,7 +80,6 @@ class Run:
     beta: np.ndarray
     keep: list[int]
     sums: StepSums
-    at_start: bool
     steps: int = 0
     converged: bool = False
     last: Change | None = None
@@ -116,13 +116,23 @@ def prepare(session: Session, how: Projections) -> Sample:
     ybar = float(first.shift[0] + red.rhs[0][:, 0].sum() / weight)
     if not ybar > 0:
         raise BigPanelError(f"the outcome {spec.y!r} is zero in every row: there is nothing to fit")
-    coef = {"yo": offset, "ybar": ybar, "low": float(np.log(SEPARATION_SHARE * ybar))}
+    coef = {"yo": offset, "low": float(np.log(SEPARATION_SHARE * ybar))}
     coef.update({f"b{j}": 0.0 for j in range(1, len(spec.value_aliases))})
     keys = [level_keys(eng, spec, d) for d in range(k)]
     sample = Sample(first, red, lost, keys, None, None, [], coef, {ZERO_LEVELS: 0}, {n: 0 for n in spec.fe_names})
+    sample.f0 = _level_start(red, float(first.shift[0]), ybar)
     _rounds(eng, spec, sample, how)
     _structure(eng, spec, sample)
     return sample
+
+
+def _level_start(red: Reduction, shift: float, ybar: float) -> list[np.ndarray]:
+    """The starting fit: b = 0 and the effects of the model of independent effects,
+    mu = ybar prod_d (ybar_d[level] / ybar), from the level means of y (``shift`` turns the
+    reduction's shifted sums into means); a level whose mean is 0 (dropped later) starts at ybar."""
+    means = [r[:, 0] / c + shift for r, c in zip(red.rhs, red.counts)]
+    f = [np.log(np.where(mean > 0, mean, ybar)) for mean in means]
+    return [f[0]] + [fd - np.log(ybar) for fd in f[1:]]
 
 
 def _plan(spec: Spec, sizes: list[int], rows: int, how: Projections) -> Plan:
@@ -143,10 +153,10 @@ def _rounds(eng: Engine, spec: Spec, sample: Sample, how: Projections) -> None:
         sample.rounds += 1
         sizes = [t.num_rows for t in sample.keys]
         sample.plan = _plan(spec, sizes, rows, how)
-        store_state(eng, spec, sample.keys, [np.zeros(g) for g in sizes], [np.zeros((g, m)) for g in sizes],
+        store_state(eng, spec, sample.keys, sample.f0, [np.zeros((g, m)) for g in sizes],
                     sample.coef)
         pairs = _pairs(len(sizes)) if sample.plan.strategy == PAIR_TABLES else []
-        sums = step_pass(eng, spec, pairs, first=True, start=True)
+        sums = step_pass(eng, spec, pairs, first=True)
         now = int(sums.levels[0].rows.sum())
         if pending == ZERO_LEVELS:
             sample.dropped[ZERO_LEVELS] += rows - now
@@ -167,6 +177,7 @@ def _rounds(eng: Engine, spec: Spec, sample: Sample, how: Projections) -> None:
             sample.constants = {name: float(v.sum()) for name, v in sums.levels[0].constants.items()}
             return
         sample.keys = [t.filter(pa.array(~gone)) for t, gone in zip(sample.keys, drop)]
+        sample.f0 = [f[~gone] for f, gone in zip(sample.f0, drop)]
         if any(t.num_rows == 0 for t in sample.keys):
             raise BigPanelError("no rows left: every level has an outcome of zero in every row or a single row")
 
@@ -193,11 +204,11 @@ def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> None:
         codes = {d: np.empty(n, dtype=np.int16 if code_bytes(g) == 2 else np.int32)
                  for d, g in enumerate(sizes) if d != big}
         sample.weights = np.empty(n)
-        fetch_weights(eng, spec, big, sample.weights, codes, start=True)
+        fetch_weights(eng, spec, big, sample.weights, codes)
         sample.links = build_links(RowCodes(big, codes, sample.weights), rows)
         sample.n_comp, sample.labels = code_components(sample.links, sizes)
         return
-    fetch_weights(eng, spec, sample.links.big, sample.weights, {}, start=False)
+    fetch_weights(eng, spec, sample.links.big, sample.weights, {})
     sample.links = reweighted(sample.links, sizes, sample.weights)
 
 
@@ -220,14 +231,14 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
     runs the compensated pass at that step's weights)."""
     sizes = [t.num_rows for t in sample.keys]
     m, strategy = len(spec.value_aliases), sample.plan.strategy
-    run = Run([np.zeros(g) for g in sizes], [np.zeros((g, m)) for g in sizes], np.zeros(0), [], sample.sums, True)
+    run = Run(list(sample.f0), [np.zeros((g, m)) for g in sizes], np.zeros(0), [], sample.sums)
     pairs = _pairs(len(sizes)) if strategy == PAIR_TABLES else []
     final, dev_before, beta_before = max_steps <= 1, None, None
     while True:
         run.steps += 1
         passes = eng.raw_passes
         if run.steps > 1:
-            run.sums = step_pass(eng, spec, pairs, first=False, start=False)
+            run.sums = step_pass(eng, spec, pairs, first=False)
         if strategy == ROW_CODES:
             _row_weights(eng, spec, sample)
         if run.steps > 1:
@@ -251,4 +262,3 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
         run.seconds_in_numpy += perf_counter() - t0
         coef = {**sample.coef, **{f"b{j}": float(b) for j, b in zip(run.keep, run.beta)}}
         store_state(eng, spec, sample.keys, run.f, run.a, coef)
-        run.at_start = False

@@ -92,7 +92,7 @@ class Poisson(Estimator):
         eng, spec = session.eng, session.spec
         coef = {**sample.coef, **{f"b{j}": float(b) for j, b in zip(run.keep, run.beta)}}
         store_state(eng, spec, sample.keys, run.f, run.a, coef)
-        create_demeaned(eng, spec, start=run.at_start)
+        create_demeaned(eng, spec)
         sums = final_pass(eng, spec)
         slopes, keep = irls_slopes(sums.q, run.sums, run.keep or None)
         meat, terms = None, []

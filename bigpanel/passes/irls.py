@@ -92,7 +92,8 @@ def store_state(eng: Engine, spec: Spec, keys: list[pa.Table], f: list[np.ndarra
                 coef: dict[str, float]) -> None:
     """Upload the current fit: per effect its level keys, code, effect ``f`` and the effects ``a``
     taken out of each working column (``bp_irls_fx_d``), and the one-row table ``bp_irls_coef``
-    (``coef``: ``yo`` the outcome's integer offset, ``ybar``, ``low`` and the slopes ``bj``)."""
+    (``coef``: ``yo`` the outcome's integer offset, ``low`` the separation bound of log mu and the
+    slopes ``bj``)."""
     for d, table in enumerate(keys):
         table = table.append_column("code", pa.array(np.arange(len(f[d]), dtype=np.int32)))
         table = table.append_column("f", pa.array(f[d], type=pa.float64()))
@@ -102,15 +103,13 @@ def store_state(eng: Engine, spec: Spec, keys: list[pa.Table], f: list[np.ndarra
     put_one_row(eng, "bp_irls_coef", coef)
 
 
-def rows_sql(spec: Spec, start: bool) -> str:
-    """The working rows of a step (template ``poisson_rows``), a subquery of the passes. At the
-    ``start`` the fit is mu = (y + ybar) / 2 row by row (eta its logarithm), as common practice
-    for IRLS; after it, eta comes from the slopes and the effects of :func:`store_state`."""
+def rows_sql(spec: Spec) -> str:
+    """The working rows of a step (template ``poisson_rows``), a subquery of the passes; eta comes
+    from the slopes and the effects of :func:`store_state`."""
     k, m = len(spec.fe), len(spec.value_aliases)
     effects = [f"e{d + 1}" for d in range(k)]
     t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
-    eta = ("ln((v0 + b.yo + b.ybar) / 2)" if start
-           else " + ".join([f"b.b{j} * {t[j]}" for j in range(1, m)] + [f"{e}.f" for e in effects]))
+    eta = " + ".join([f"b.b{j} * {t[j]}" for j in range(1, m)] + [f"{e}.f" for e in effects])
     inner = [f"{e}.code AS c{d + 1}" for d, e in enumerate(effects)]
     inner += ["v0 + b.yo AS y", ("w" if spec.weights else "CAST(1 AS DOUBLE)") + " AS p", f"{eta} AS eta",
               "b.low AS low", " + ".join(f"{e}.a0" for e in effects) + " AS za"]
@@ -142,16 +141,16 @@ def _sums(spec: Spec, first: bool) -> list[str]:
     return sums
 
 
-def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool, start: bool) -> StepSums:
-    """One grouped IRLS pass over the rows (``first``: also the columns that decide the sample;
-    ``start``: at the starting fit), then one fetch of all its grouping sets. The sample's
+def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool) -> StepSums:
+    """One grouped IRLS pass over the rows (``first``: also the columns that decide the sample),
+    then one fetch of all its grouping sets. The sample's
     products and deviance are read from the effect with the fewest levels."""
     k, m = len(spec.fe), len(spec.value_aliases)
     codes = [f"c{d + 1}" for d in range(k)]
     sets = [[c] for c in codes] + [[codes[d], codes[e]] for d, e in pairs]
     eng.execute("IRLS step: per-level sums of the working columns",
                 render("poisson_cells", codes=_codes(k), sums=join(_sums(spec, first)), sets=grouping_sets(sets),
-                       rows=rows_sql(spec, start)), raw=True)
+                       rows=rows_sql(spec)), raw=True)
     cells = eng.arrow("IRLS step: fetch sums", render("poisson_cell_table", codes=_codes(k)))
     gid = cells.column("gid").to_numpy()
 
@@ -192,14 +191,13 @@ def _row_order(spec: Spec, big: int) -> str:
     return ", ".join(f"c{d + 1}" for d in [big] + [d for d in range(len(spec.fe)) if d != big])
 
 
-def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes: dict[int, np.ndarray],
-                  start: bool) -> None:
+def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes: dict[int, np.ndarray]) -> None:
     """The row-codes path's second pass of a step: every row's working weight written into
     ``weights`` (the array the link tables share), in the order of the codes (:func:`_row_order`);
     ``codes`` (effect -> preallocated array; empty after the first step) are filled too."""
     columns = ["w"] + [f"c{d + 1}" for d in codes]
     sql = render("poisson_row_weights", columns=join(columns, ", "), order=_row_order(spec, big),
-                 rows=rows_sql(spec, start))
+                 rows=rows_sql(spec))
     targets = [weights, *codes.values()]
     at = 0
     for batch in eng.stream("IRLS step: working weight of every row", sql, raw=True):
@@ -213,13 +211,13 @@ def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes:
         raise RuntimeError(f"the IRLS weights pass returned {at:,} rows, the levels hold {len(weights):,}")
 
 
-def create_demeaned(eng: Engine, spec: Spec, start: bool) -> None:
+def create_demeaned(eng: Engine, spec: Spec) -> None:
     """The view ``bp_tilde`` of the fully demeaned working columns e_j, what the scores and fit
     statistics need, and the cluster columns."""
     m = len(spec.value_aliases)
     columns = [f"r{j} AS e{j}" for j in range(m)] + ["w", "p", "y", "mu", "small"] + spec.cluster_aliases
     eng.execute("demeaned working columns",
-                render("poisson_tilde", columns=join(columns), rows=rows_sql(spec, start)))
+                render("poisson_tilde", columns=join(columns), rows=rows_sql(spec)))
 
 
 def final_pass(eng: Engine, spec: Spec) -> FinalSums:
