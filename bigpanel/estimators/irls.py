@@ -24,7 +24,7 @@ import pyarrow as pa
 from ..engines.base import Engine
 from ..errors import BigPanelError
 from ..model.spec import Spec
-from ..numerics.irls import Change, change, level_moments, project_step, step_reduction
+from ..numerics.irls import Change, change, deviance, level_moments, project_step, step_reduction
 from ..numerics.project import components
 from ..numerics.rowcodes import Links, build_links, reweighted
 from ..numerics.rowcodes import components as code_components
@@ -73,13 +73,15 @@ class Sample:
 @dataclass
 class Run:
     """The loop's outcome: effects f (linear predictor) and a (taken out of each working column),
-    the slopes of the last step, its sums, how the steps went and where the time went."""
+    the slopes of the last step, its sums and the deviance at its fit, how the steps went and
+    where the time went."""
 
     f: list[np.ndarray]
     a: list[np.ndarray]
     beta: np.ndarray
     keep: list[int]
     sums: StepSums
+    deviance: float = float("nan")
     steps: int = 0
     converged: bool = False
     last: Change | None = None
@@ -241,12 +243,15 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
             run.sums = step_pass(eng, spec, pairs, first=False)
         if strategy == ROW_CODES:
             _row_weights(eng, spec, sample)
+        level_py = [lv.constants["py"] for lv in sample.sums.levels]
+        run.deviance = deviance(sample.constants, level_py, run.f, run.beta, run.keep,
+                                float(run.sums.levels[0].weight.sum()))
         if run.steps > 1:
             if dev_before is not None:
-                run.last = change(run.sums.deviance, dev_before, run.beta, beta_before)
+                run.last = change(run.deviance, dev_before, run.beta, beta_before)
                 run.converged = run.last.below(tol)
             final = run.converged or run.steps >= max_steps
-            dev_before, beta_before = run.sums.deviance, run.beta
+            dev_before, beta_before = run.deviance, run.beta
         run.passes_per_step.append(eng.raw_passes - passes)
         t0 = perf_counter()
         proj = project_step(step_reduction(run.sums, sample.nested, strategy), sample.links, how.tol, how.max_iter)

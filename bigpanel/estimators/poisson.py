@@ -137,7 +137,7 @@ class Poisson(Estimator):
         """The JSON section ``poisson``: deviance, pseudo R-squared, the steps, the separation rows."""
         steps = run.passes_per_step
         return {
-            "deviance": run.sums.deviance, **fit_summary(run.sums.deviance, sample.constants, final.sums.stats),
+            "deviance": run.deviance, **fit_summary(run.deviance, sample.constants, final.sums.stats),
             "iterations": run.steps, "converged": run.converged, "irls_tol": self.settings["irls_tol"],
             "deviance_change": run.last.deviance if run.last else None,
             "coefficient_change": run.last.coefficients if run.last else None,

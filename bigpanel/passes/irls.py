@@ -33,8 +33,7 @@ from ..sql.text import grouping_id, grouping_sets, join, render
 from .moments import cluster_sets
 from .reduce import put_one_row
 
-DEVIANCE = "p * (CASE WHEN y > 0 THEN y * (ln(y) - lmu) ELSE 0 END - (y - mu))"  # one row's half deviance
-# sums that do not change between steps, taken in the first pass only
+# sums that do not change between steps, taken in the first pass only (and p y t_j: see constants)
 CONSTANTS = {"p": "p", "py": "p * y", "pyy": "p * y * y", "pyl": "p * CASE WHEN y > 0 THEN y * ln(y) ELSE 0 END"}
 
 
@@ -42,8 +41,9 @@ CONSTANTS = {"p": "p", "py": "p * y", "pyy": "p * y * y", "pyl": "p * CASE WHEN 
 class LevelSums:
     """One effect's per-level sums of an IRLS pass, in code order: ``rows``, the working
     ``weight`` sum w and ``sums`` (levels x m) of w r_j; on the first passes also the largest
-    outcome ``top``, the sums ``constants`` of p, p y, p y^2 and p y log y (prior weight p), and per
-    cluster column whether every level lies in one cluster (``nested``)."""
+    outcome ``top``, the sums ``constants`` of p, p y, p y^2, p y log y and p y t_j (prior weight
+    p, t_j the shifted regressors; :func:`constants`), and per cluster column whether every level
+    lies in one cluster (``nested``)."""
 
     rows: np.ndarray
     weight: np.ndarray
@@ -56,13 +56,11 @@ class LevelSums:
 @dataclass(frozen=True)
 class StepSums:
     """What one IRLS pass gives: per effect its :class:`LevelSums`; over the sample the products
-    (m x m) sum w r_i r_j and the deviance 2 sum p (y log(y / mu) - (y - mu)) at the current fit;
-    on the pair-table path the weighted pairs of levels of every pair of effects (codes of d,
-    codes of e, weight)."""
+    (m x m) sum w r_i r_j at the current fit; on the pair-table path the weighted pairs of levels
+    of every pair of effects (codes of d, codes of e, weight)."""
 
     levels: list[LevelSums]
     products: np.ndarray
-    deviance: float
     pairs: dict[tuple[int, int], tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=dict)
 
 
@@ -129,22 +127,28 @@ def _pairs_of(m: int) -> list[tuple[int, int]]:
     return [(i, j) for i in range(m) for j in range(i, m)]
 
 
+def constants(spec: Spec) -> dict[str, str]:
+    """The first pass's sums that do not change between steps: ``CONSTANTS`` and, per regressor j,
+    p y t_j (``pyr{j}``; at the first pass the working column r_j is still t_j). With the level
+    sums of p y they give every step's deviance without a per-row term (:mod:`bigpanel.numerics.irls`)."""
+    return {**CONSTANTS, **{f"pyr{j}": f"p * y * r{j}" for j in range(1, len(spec.value_aliases))}}
+
+
 def _sums(spec: Spec, first: bool) -> list[str]:
     """The aggregates of the grouped IRLS pass (every grouping set computes all of them)."""
     m = len(spec.value_aliases)
     sums = ["sum(w) AS nw"] + [f"sum(w * r{j}) AS s{j}" for j in range(m)]
     sums += [f"sum(w * r{i} * r{j}) AS q{i}_{j}" for i, j in _pairs_of(m)]
-    sums.append(f"sum({DEVIANCE}) AS dev")
     if first:
-        sums += ["max(y) AS top"] + [f"sum({expr}) AS {name}" for name, expr in CONSTANTS.items()]
+        sums += ["max(y) AS top"] + [f"sum({expr}) AS {name}" for name, expr in constants(spec).items()]
         sums += [f"{fn}({c}) AS {c}_{fn}" for c in spec.cluster_aliases for fn in ("min", "max")]
     return sums
 
 
 def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool) -> StepSums:
     """One grouped IRLS pass over the rows (``first``: also the columns that decide the sample),
-    then one fetch of all its grouping sets. The sample's
-    products and deviance are read from the effect with the fewest levels."""
+    then one fetch of all its grouping sets. The sample's products are read from the effect
+    with the fewest levels."""
     k, m = len(spec.fe), len(spec.value_aliases)
     codes = [f"c{d + 1}" for d in range(k)]
     sets = [[c] for c in codes] + [[codes[d], codes[e]] for d, e in pairs]
@@ -166,8 +170,7 @@ def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool
     for d, e in pairs:
         tab = part([codes[d], codes[e]])
         fetched[(d, e)] = tuple(tab.column(c).to_numpy() for c in (codes[d], codes[e], "nw"))
-    return StepSums([_level_sums(spec, t, first) for t in tables], products,
-                    2.0 * float(np.sum(smallest.column("dev").to_numpy())), fetched)
+    return StepSums([_level_sums(spec, t, first) for t in tables], products, fetched)
 
 
 def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
@@ -183,7 +186,7 @@ def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
     return LevelSums(rows=tab.column("n").to_numpy().astype(np.int64), weight=col("nw"),
                      sums=np.column_stack([col(f"s{j}") for j in range(m)]),
                      top=col("top") if first else None,
-                     constants={name: col(name) for name in CONSTANTS} if first else None, nested=nested)
+                     constants={name: col(name) for name in constants(spec)} if first else None, nested=nested)
 
 
 def _row_order(spec: Spec, big: int) -> str:
