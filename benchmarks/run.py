@@ -174,9 +174,10 @@ def summarise(records: list[dict]) -> dict:
 
     def numpy_of(rows: int, rec: dict) -> dict | None:
         return next((r for r in ok if r["rows"] == rows and r["what"] == "numpy" and r["panel"] == rec["panel"]
-                     and r["effects"] == rec["effects"]), None)
+                     and r["effects"] == rec["effects"] and r.get("model") == rec.get("model")), None)
 
-    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {}}
+    out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {},
+                 "poisson_over_linear": {}}
     keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] == "fit"))
     sizes = sorted({r["rows"] for r in ok})
     for key in keys:
@@ -190,6 +191,11 @@ def summarise(records: list[dict]) -> dict:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
                 diffs = [abs(fit["coefficients"][n] - b) / abs(b) for n, b in ref["coefficients"].items()]
                 out["max_rel_slope_diff_vs_numpy"][label] = float(max(diffs))
+            linear = next((r for r in ok if fit and fit.get("model") == "poisson" and r["what"] == "fit"
+                           and r["rows"] == rows and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]
+                           and not r.get("model")), None)
+            if linear:  # the Poisson fit over the linear fit with the same effects on the same panel
+                out["poisson_over_linear"][label] = round(fit["seconds"] / linear["seconds"], 2)
         pts = [(rows, find(rows, key, "fit")) for rows in sizes if rows >= 10_000_000]
         pts = [(r, f["seconds"]) for r, f in pts if f]
         if len(pts) >= 2:
@@ -210,7 +216,8 @@ def table(result: dict) -> Table:
             fit = got.get("fit")
             scan = warm_scan(recs, fit) if fit is not None else None
             ref = next((r for r in recs if r["rows"] == rows and r["what"] == "numpy" and fit
-                        and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]), None)
+                        and r["panel"] == fit["panel"] and r["effects"] == fit["effects"]
+                        and r.get("model") == fit.get("model")), None)
             if fit is None:
                 continue
 
@@ -236,7 +243,7 @@ def markdown(result: dict) -> str:
 
 
 def plot(result: dict, path: Path) -> None:
-    from bigpanel.plots import pyplot, save_figure
+    from bigpanel.output.plots import pyplot, save_figure
 
     plt = pyplot()
     fig, (ax_t, ax_m) = plt.subplots(1, 2, figsize=(12, 4.6))
