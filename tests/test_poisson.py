@@ -111,6 +111,21 @@ def test_model_variance_and_deviance_match_glm(to_parquet):
     assert ps["squared_correlation"] == pytest.approx(np.corrcoef(df["y"], fit.mu)[0, 1] ** 2, rel=1e-8)
 
 
+def test_absorbed_and_collinear_regressors_are_dropped(to_parquet):
+    # A unit trait (absorbed by the unit effect) and a copy of x1 scaled by 2 (collinear) are
+    # dropped with their reasons, as the linear fit drops them; the rest equals the GLM on x1, x2.
+    df = count_panel(4)
+    df["trait"] = (df["unit"] % 5).astype(float)
+    df["x1_twice"] = 2.0 * df["x1"]
+    fe = ["unit", "period"]
+    res = bigpanel.fit(to_parquet(df), "y ~ x1 + trait + x2 + x1_twice", fe=fe, model="poisson")
+    assert res.names == X
+    assert [(d["name"], d["reason"].split(":")[0]) for d in res.dropped] == [
+        ("trait", "absorbed"), ("x1_twice", "collinear with the other regressors")]
+    coef, se = sandwich(df, fe)
+    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-6
+
+
 def test_all_zero_level_is_dropped(to_parquet):
     # Unit 0's outcome is zero in every row: its effect is minus infinity. The fit equals the GLM
     # on the sample without that unit, and its rows are counted under their own reason.

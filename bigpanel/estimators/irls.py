@@ -24,12 +24,13 @@ import pyarrow as pa
 from ..engines.base import Engine
 from ..errors import BigPanelError
 from ..model.spec import Spec
-from ..numerics.irls import Change, change, deviance, level_moments, project_step, step_reduction
+from ..numerics.irls import Change, change, clear_cut, deviance, level_moments, project_step, step_reduction
 from ..numerics.project import components
 from ..numerics.rowcodes import Links, build_links, reweighted
 from ..numerics.rowcodes import components as code_components
 from ..numerics.solve import Slopes, solve_slopes
-from ..passes.irls import StepSums, check_nonnegative, fetch_weights, step_pass, store_state
+from ..passes.irls import (StepSums, check_nonnegative, create_demeaned, fetch_weights, final_pass, step_pass,
+                           store_state)
 from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, RowCodes, Start,
                              choose_strategy, code_bytes, create_views, incomplete, reduce_cells, start,
                              value_offsets)
@@ -73,8 +74,8 @@ class Sample:
 @dataclass
 class Run:
     """The loop's outcome: effects f (linear predictor) and a (taken out of each working column),
-    the slopes of the last step, its sums and the deviance at its fit, how the steps went and
-    where the time went."""
+    the slopes of the last step, its sums and the deviance at its fit, the regressors the first
+    step dropped, how the steps went and where the time went."""
 
     f: list[np.ndarray]
     a: list[np.ndarray]
@@ -82,6 +83,7 @@ class Run:
     keep: list[int]
     sums: StepSums
     deviance: float = float("nan")
+    dropped: list[tuple[int, str]] = field(default_factory=list)
     steps: int = 0
     converged: bool = False
     last: Change | None = None
@@ -219,13 +221,31 @@ def irls_slopes(q: np.ndarray, sums: StepSums, keep: list[int] | None) -> tuple[
     fit's rules then drop the absorbed and collinear ones) from the cross-products ``q``."""
     cols = [0] + (keep if keep is not None else list(range(1, q.shape[0])))
     sub = np.ix_(cols, cols)
-    st = sums.levels[0].sums.sum(axis=0)[cols]
-    tt = np.diag(sums.products)[cols]
-    slopes = solve_slopes(q[sub], float(sums.levels[0].weight.sum()), st, tt)
+    st, tt, n = _totals(sums)
+    slopes = solve_slopes(q[sub], n, st[cols], tt[cols])
     if not slopes.keep:
         raise BigPanelError("every regressor is absorbed by the fixed effects or collinear")
     mapped = replace(slopes, keep=[cols[j] for j in slopes.keep], dropped=[(cols[j], why) for j, why in slopes.dropped])
     return mapped, mapped.keep
+
+
+def _totals(sums: StepSums) -> tuple[np.ndarray, np.ndarray, float]:
+    """Each working column's weighted sum and sum of squares, and the weight total."""
+    return sums.levels[0].sums.sum(axis=0), np.diag(sums.products), float(sums.levels[0].weight.sum())
+
+
+def _first_slopes(eng: Engine, spec: Spec, sample: Sample, run: Run, q: np.ndarray) -> Slopes:
+    """The first step's slopes, and which regressors stay for every step: from the level-sum
+    cross-products ``q`` when the call is clear-cut (:func:`bigpanel.numerics.irls.clear_cut`),
+    else from a compensated pass over the demeaned rows, as the linear fit decides."""
+    st, tt, n = _totals(run.sums)
+    if not clear_cut(q, tt - st**2 / n):
+        store_state(eng, spec, sample.keys, run.f, run.a, sample.coef)
+        create_demeaned(eng, spec)
+        q = final_pass(eng, replace(spec, variance="classical")).q
+    slopes, _ = irls_slopes(q, run.sums, None)
+    run.dropped = slopes.dropped
+    return slopes
 
 
 def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: float, max_steps: int) -> Run:
@@ -261,8 +281,9 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
         if final:
             run.seconds_in_numpy += perf_counter() - t0
             return run
-        slopes, run.keep = irls_slopes(level_moments(run.sums, proj.alpha), run.sums, run.keep or None)
-        run.beta = slopes.beta
+        q = level_moments(run.sums, proj.alpha)
+        slopes = irls_slopes(q, run.sums, run.keep)[0] if run.keep else _first_slopes(eng, spec, sample, run, q)
+        run.keep, run.beta = slopes.keep, slopes.beta
         run.f = [a[:, 0] - a[:, run.keep] @ run.beta for a in run.a]
         run.seconds_in_numpy += perf_counter() - t0
         coef = {**sample.coef, **{f"b{j}": float(b) for j, b in zip(run.keep, run.beta)}}

@@ -94,7 +94,7 @@ class Poisson(Estimator):
         store_state(eng, spec, sample.keys, run.f, run.a, coef)
         create_demeaned(eng, spec)
         sums = final_pass(eng, spec)
-        slopes, keep = irls_slopes(sums.q, run.sums, run.keep or None)
+        slopes, keep = irls_slopes(sums.q, run.sums, run.keep or None)  # none yet: a single step
         meat, terms = None, []
         if spec.variance == "hc1":
             meat = sums.meat[np.ix_([j - 1 for j in keep], [j - 1 for j in keep])]
@@ -185,7 +185,7 @@ class Poisson(Estimator):
             inference=final.inf, fit=FitStatistics(rss=float("nan"), df_resid=df_resid),
             rows=row_counts(sample.first, sample.red.n_complete, sample.lost, singletons, final.sums.rows),
             fe=fe, absorbed=final.absorbed.total, components=sample.n_comp,
-            dropped=[{"name": names[j], "reason": why} for j, why in slopes.dropped],
+            dropped=[{"name": names[j], "reason": why} for j, why in sorted(run.dropped + slopes.dropped)],
             solver=replace(solver, seconds=self.seconds()), effects=effects, source=session.src.location,
             where=spec.where, weights=spec.weights, warnings=self._warnings(run, final, stats),
             timings=dict(session.eng.timings), extras={"categorical": spec.categorical_levels, "poisson": stats},

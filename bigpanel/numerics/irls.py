@@ -64,6 +64,22 @@ def level_moments(sums: StepSums, delta: list[np.ndarray]) -> np.ndarray:
     return (q + q.T) / 2.0
 
 
+CLEAR_SHARE = 1e-6  # level-sum cross-products decide which regressors stay only when no share is below this
+
+
+def clear_cut(q: np.ndarray, total: np.ndarray) -> bool:
+    """Whether the cross-products ``q`` formed from cancelling level sums settle which regressors
+    the within rules keep (all of them): every regressor keeps more than ``CLEAR_SHARE`` of its
+    variation ``total`` within the levels, and the scaled regressors' smallest eigenvalue (their
+    distance from collinearity) exceeds it too. Rounding moves these shares by about 1e-16 times
+    the cancelled sums, far below the margin; anything closer goes to a compensated pass."""
+    diag = np.diag(q)[1:]
+    if np.any(diag <= CLEAR_SHARE * np.maximum(total[1:], 0.0)) or np.any(diag <= 0):
+        return False
+    scale = np.sqrt(diag)
+    return bool(np.linalg.eigvalsh(q[1:, 1:] / np.outer(scale, scale))[0] > CLEAR_SHARE)
+
+
 @dataclass(frozen=True)
 class Change:
     """How far one IRLS step moved: the relative deviance change and the largest relative
