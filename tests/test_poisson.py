@@ -174,11 +174,13 @@ def test_clustered_one_and_two_way(to_parquet, strategy):
     assert rel(two.std_error, se) < 1e-6
 
 
-def test_cluster_nesting_an_effect(to_parquet):
+@pytest.mark.parametrize("strategy", ["pair tables", "row codes"])
+def test_cluster_nesting_an_effect(to_parquet, strategy):
     # Clustered by unit, in which the unit effect is nested: as for the linear fit, its
     # parameters leave the CR1 factor, k_c = K + 1 + (periods - 1).
     df = count_panel(12)
-    res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe=["unit", "period"], model="poisson", cluster="unit")
+    res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe=["unit", "period"], model="poisson", cluster="unit",
+                       strategy=strategy)
     coef, se = sandwich(df, ["unit", "period"], clusters=[["unit"]], nested_params=2 + df["period"].nunique())
     assert rel(res.std_error, se) < 1e-6
     assert res.fe[0].nested_in_cluster

@@ -147,30 +147,44 @@ def _sums(spec: Spec, first: bool) -> list[str]:
 
 def step_pass(eng: Engine, spec: Spec, pairs: list[tuple[int, int]], first: bool) -> StepSums:
     """One grouped IRLS pass over the rows (``first``: also the columns that decide the sample),
-    then one fetch of all its grouping sets. The sample's products are read from the effect
-    with the fewest levels."""
+    then one fetch of all its grouping sets. Without ``pairs`` there is a set per effect; on the
+    pair-table path only the sets of the ``pairs``, each effect's level sums being the sums of
+    its pair cells (half the sets for three effects, a third for two). The sample's products are
+    read from the set with the fewest cells."""
     k, m = len(spec.fe), len(spec.value_aliases)
     codes = [f"c{d + 1}" for d in range(k)]
-    sets = [[c] for c in codes] + [[codes[d], codes[e]] for d, e in pairs]
+    sets = [[codes[d], codes[e]] for d, e in pairs] or [[c] for c in codes]
     eng.execute("IRLS step: per-level sums of the working columns",
                 render("poisson_cells", codes=_codes(k), sums=join(_sums(spec, first)), sets=grouping_sets(sets),
                        rows=rows_sql(spec)), raw=True)
     cells = eng.arrow("IRLS step: fetch sums", render("poisson_cell_table", codes=_codes(k)))
     gid = cells.column("gid").to_numpy()
-
-    def part(grouped: list[str]) -> pa.Table:
-        return cells.filter(pa.array(gid == grouping_id(codes, grouped)))
-
-    tables = [part([c]) for c in codes]
-    smallest = tables[int(np.argmin([t.num_rows for t in tables]))]
+    parts = [cells.filter(pa.array(gid == grouping_id(codes, grouped))) for grouped in sets]
+    smallest = min(parts, key=lambda t: t.num_rows)
     products = np.zeros((m, m))
     for i, j in _pairs_of(m):
         products[i, j] = products[j, i] = float(np.sum(smallest.column(f"q{i}_{j}").to_numpy()))
-    fetched = {}
-    for d, e in pairs:
-        tab = part([codes[d], codes[e]])
-        fetched[(d, e)] = tuple(tab.column(c).to_numpy() for c in (codes[d], codes[e], "nw"))
-    return StepSums([_level_sums(spec, t, first) for t in tables], products, fetched)
+    fetched = {pair: tuple(tab.column(c).to_numpy() for c in (codes[pair[0]], codes[pair[1]], "nw"))
+               for pair, tab in zip(pairs, parts)}
+    levels = []
+    for d in range(k):
+        if not pairs:
+            levels.append(_level_sums(spec, parts[d], first))
+            continue
+        tab = parts[next(i for i, pair in enumerate(pairs) if d in pair)]
+        levels.append(_level_sums(spec, _by_level(tab, codes[d]), first))
+    return StepSums(levels, products, fetched)
+
+
+def _by_level(cells: pa.Table, code: str) -> pa.Table:
+    """Pair cells added up to the levels of one effect (code order): sums, and the largest outcome
+    and the cluster ranges as the largest and smallest of the cells'."""
+    how = {"top": "max"} | {c: ("min" if c.endswith("_min") else "max") for c in cells.column_names
+                            if c.endswith(("_min", "_max"))}
+    aggregates = [(c, how.get(c, "sum")) for c in cells.column_names if c not in ("gid", code) and not
+                  (c.startswith("c") and c[1:].isdigit())]
+    out = cells.group_by(code).aggregate(aggregates).sort_by(code)
+    return out.rename_columns([name.rsplit("_", 1)[0] if name != code else name for name in out.column_names])
 
 
 def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
