@@ -286,5 +286,10 @@ def test_command_line_and_json(to_parquet, tmp_path):
     assert set(doc["poisson"]) >= {"deviance", "null_deviance", "deviance_r2", "squared_correlation", "iterations",
                                    "converged", "dropped_rows", "raw_passes"}
     assert (tmp_path / "fx" / "effects_unit.parquet").exists()
-    text = CliRunner().invoke(app, ["fit", path, "y ~ x1 + x2", "--fe", "unit", "--model", "poisson"]).output
+    text = CliRunner().invoke(app, ["fit", path, "y ~ x1 + x2", "--fe", "unit", "--model", "poisson",
+                                    "--save", str(tmp_path / "m.json")]).output
     assert "deviance R-squared" in text and "IRLS" in text
+    table = CliRunner().invoke(app, ["table", str(tmp_path / "m.json")]).output
+    r2 = json.loads((tmp_path / "m.json").read_text())["poisson"]["deviance_r2"]
+    assert [line.split()[-1] for line in table.splitlines() if "deviance R-squared" in line] == [f"{r2:.3f}"]
+    assert "poisson" in table

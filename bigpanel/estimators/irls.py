@@ -106,8 +106,8 @@ def level_keys(eng: Engine, spec: Spec, d: int) -> pa.Table:
 
 
 def prepare(session: Session, how: Projections) -> Sample:
-    """Views, counts and shifts, the sign check, the reduction, then the rounds of the module
-    docstring; on the row-codes path also the codes and first weights of every row."""
+    """Views, counts and shifts, the sign check, the reduction, the starting fit, then the rounds
+    of the module docstring (the last round's pass is the first step's)."""
     eng, spec = session.eng, session.spec
     create_views(eng, spec, materialize=session.src.kind == "csv")
     first = start(eng, spec, session.src.kind)
@@ -126,7 +126,8 @@ def prepare(session: Session, how: Projections) -> Sample:
     sample = Sample(first, red, lost, keys, None, None, [], coef, {ZERO_LEVELS: 0}, {n: 0 for n in spec.fe_names})
     sample.f0 = _level_start(red, float(first.shift[0]), ybar)
     _rounds(eng, spec, sample, how)
-    _structure(eng, spec, sample)
+    if sample.plan.strategy == PAIR_TABLES:  # on the row-codes path they come with the first link tables
+        sample.n_comp, sample.labels = components(step_reduction(sample.sums, sample.nested, PAIR_TABLES))
     return sample
 
 
@@ -188,13 +189,6 @@ def _rounds(eng: Engine, spec: Spec, sample: Sample, how: Projections) -> None:
 
 def _pairs(k: int) -> list[tuple[int, int]]:
     return [(d, e) for d in range(k) for e in range(d + 1, k)]
-
-
-def _structure(eng: Engine, spec: Spec, sample: Sample) -> None:
-    """The components of effects 1-2 on the pair-table path (on the row-codes path they come with
-    the link tables of the first step)."""
-    if sample.plan.strategy == PAIR_TABLES:
-        sample.n_comp, sample.labels = components(step_reduction(sample.sums, sample.nested, PAIR_TABLES))
 
 
 def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> None:
