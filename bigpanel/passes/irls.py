@@ -1,22 +1,22 @@
 """The passes of the Poisson fit's iteratively reweighted least squares (IRLS), in the engine.
 
-Each step reads the sample once through the view ``bp_irls`` (template ``poisson_rows``):
-with the linear predictor eta_i = sum_j b_j t_ij + sum_d f_d[level_d(i)] of the current
-fit (t the shifted regressors, f the effects, from the one-row table ``bp_irls_coef`` and the
-per-level tables ``bp_irls_fx_d``), mu_i = exp(eta_i), the working weight w_i = p_i mu_i
-(p the prior weight, 1 without ``--weights``) and the working outcome z_i = eta_i +
-(y_i - mu_i) / mu_i. The working columns are taken out of the effects solved so far:
-r_0 = z - sum_d a_d0[level], r_j = t_j - sum_d a_dj[level], so that the projections of the
-step only solve for the change (a warm start) and the sums below cancel little.
+Each step reads the sample once through the working rows (template ``poisson_rows``, a
+subquery of each pass): with the linear predictor eta_i = sum_j b_j t_ij + sum_d
+f_d[level_d(i)] of the current fit (t the shifted regressors, f the effects, from the one-row
+table ``bp_irls_coef`` and the per-level tables ``bp_irls_fx_d``), mu_i = exp(eta_i), the
+working weight w_i = p_i mu_i (p the prior weight, 1 without ``--weights``) and the working
+outcome z_i = eta_i + (y_i - mu_i) / mu_i. The working columns are taken out of the effects
+solved so far: r_0 = z - sum_d a_d0[level], r_j = t_j - sum_d a_dj[level], so that the
+projections of the step only solve for the change (a warm start) and the sums below cancel
+little.
 
-Each step makes one grouped pass (template ``poisson_cells``): per level of every effect the
-weight sum and the weighted sums of every r_j, the pair tables' weights on that path, and
-the products sum w r_i r_j, read from the effect with the fewest levels. The row-codes path
-adds a pass sorted as the codes kept in numpy that writes every row's working weight into
-the link tables (:func:`fetch_weights`, 8 bytes a row; sending the weighted columns too
-would save that pass's scan but make the engine's sort five times wider). The last step's
-pass (:func:`final_pass`) sums the demeaned cross-products, the scores and the fit
-statistics with compensated sums.
+Each step makes one grouped pass (template ``poisson_cells``): per level of every effect (on
+the pair-table path: per pair cell) the weight sum, the weighted sums of every r_j and their
+products sum w r_i r_j. The row-codes path adds a pass sorted as the codes kept in numpy that
+writes every row's working weight into the link tables (:func:`fetch_weights`, 8 bytes a row;
+sending the weighted columns too would save that pass's scan but make the engine's sort five
+times wider). The last step's pass (:func:`final_pass`) sums the demeaned cross-products,
+the scores and the fit statistics with compensated sums.
 """
 
 from __future__ import annotations
