@@ -267,6 +267,8 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
             final = run.converged or run.steps >= max_steps
             dev_before, beta_before = run.deviance, run.beta
         run.passes_per_step.append(eng.raw_passes - passes)
+        if eng.on_step:
+            eng.on_step(f"IRLS step {run.steps}: projections ({strategy})")
         t0 = perf_counter()
         proj = project_step(step_reduction(run.sums, sample.nested, strategy), sample.links, how.tol, how.max_iter)
         run.a = [a + da for a, da in zip(run.a, proj.alpha)]
