@@ -157,6 +157,21 @@ def test_zero_levels_and_singletons_peel_in_turn(to_parquet):
     assert res.extras["poisson"]["dropped_rows"]["outcome zero in every row of a level"] == int((df["unit"] == 0).sum())
 
 
+@pytest.mark.parametrize("singletons", ["drop", "keep"])
+def test_singletons_dropped_or_kept(to_parquet, singletons):
+    # Unit 99 holds one row with y = 4: dropped, the GLM without it; kept, its effect fits that
+    # row exactly and the GLM on every row (its dummy counted in N / (N - K - P)) is the reference.
+    df = count_panel(41)
+    df = pd.concat([df, pd.DataFrame({"unit": [99], "period": [3], "item": [0], "x1": [0.2], "x2": [0.1], "y": [4.0],
+                                      "sector": [1], "w": [1.0]})], ignore_index=True)
+    fe = ["unit", "period"]
+    res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe=fe, model="poisson", singletons=singletons)
+    kept = df if singletons == "keep" else df[df["unit"] != 99]
+    coef, se = sandwich(kept, fe)
+    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-6
+    assert res.nobs == len(kept) and res.rows.dropped_singletons == len(df) - len(kept)
+
+
 @pytest.mark.parametrize("strategy", ["pair tables", "row codes"])
 def test_clustered_one_and_two_way(to_parquet, strategy):
     # CR1 on a column no effect is nested in (every dummy counts: k_c = k), one way and two way
