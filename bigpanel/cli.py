@@ -290,7 +290,8 @@ def fit_command(
     ),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
-    """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
+    """Fit a within (fixed-effects) regression, or with --model poisson a Poisson one, and report slopes, errors and
+    diagnostics.
 
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
     --cluster store
