@@ -114,15 +114,20 @@ def _variance(res: FitResult, lines: Text) -> None:
     )
 
 
+def _absorbed(res: FitResult, lines: Text) -> None:
+    """The parameters the effects absorb, and the connected components of effects 1-2."""
+    _line(lines, "effects")
+    plural = "" if res.components == 1 else "s"
+    comp = f" in {res.components} connected component{plural}" if res.components else ""
+    lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
+
+
 def _solver(res: FitResult, lines: Text) -> None:
     s = res.solver
     if res.estimator == "poisson":
         return
     if res.estimator == "within":
-        _line(lines, "effects")
-        plural = "" if res.components == 1 else "s"
-        comp = f" in {res.components} connected component{plural}" if res.components else ""
-        lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
+        _absorbed(res, lines)
         _line(lines, "solver")
         conv = "converged" if s.converged else "NOT CONVERGED"
         steps = (f"{s.iterations} iterations, change {s.change:.1e} (tol {s.tol:.0e}, {conv})"
@@ -179,10 +184,7 @@ def _poisson(res: FitResult, lines: Text) -> None:
     _line(lines, "fit")
     lines.append(f"deviance {_g(ps['deviance'])} (constant only: {_g(ps['null_deviance'])}); deviance R-squared "
                  f"{ps['deviance_r2']:.4f}; squared correlation of y and the fitted mean {ps['squared_correlation']:.4f}")
-    _line(lines, "effects")
-    plural = "" if res.components == 1 else "s"
-    comp = f" in {res.components} connected component{plural}" if res.components else ""
-    lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
+    _absorbed(res, lines)
     s = res.solver
     _line(lines, "solver")
     conv = "converged" if s.converged else "NOT CONVERGED"
