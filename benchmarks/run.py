@@ -42,11 +42,12 @@ import plain_numpy
 from bigpanel import __version__
 from bigpanel.bench import measure
 from bigpanel.demo import write_demo
-from bigpanel.shapes import IV_INSTRUMENTS, SHAPES, write_shape
+from bigpanel.shapes import COUNT_FORMULA, IV_INSTRUMENTS, SHAPES, write_shape
 
 HERE = Path(__file__).resolve().parent
 DEMO_FORMULA = "log_units ~ log_price + promo"
 BOOTSTRAP = {"wild_bootstrap": True, "draws": 9_999, "seed": 1}
+POISSON = {"model": "poisson"}  # Poisson pseudo-maximum likelihood (the count outcome of POISSON_FORMULAS)
 IV = {"endogenous": ["log_price"], "instruments": list(IV_INSTRUMENTS)}  # 2SLS on the panel's cost shifters
 # (panel, effects, cluster column or None[, more fit options]): the configurations measured at every size, by group.
 CONFIGS = {
@@ -90,7 +91,15 @@ CONFIGS = {
         ("store-week-supplier", ["store", "week", "supplier"], None),
         ("store-week-supplier", ["store", "week", "supplier"], "store"),
     ],
+    "poisson": [  # the Poisson fit against the linear fit with the same effects on the same panel
+        ("store-week-counts", ["store", "week"], None),
+        ("store-week-counts", ["store", "week"], None, POISSON),
+        ("store-week-counts", ["store", "week"], "store", POISSON),
+        ("demo", ["store", "product", "week"], "store"),
+        ("demo", ["store", "product", "week"], "store", POISSON),
+    ],
 }
+POISSON_FORMULAS = {"store-week-counts": COUNT_FORMULA, "demo": "{round(exp(log_units))} ~ log_price + promo"}
 NUMPY_BYTES_PER_ROW = 200  # peak of the plain numpy fit, measured about 150 B/row at 10M rows
 NUMPY_MAX_ROWS = {"staff": 10_000_000}  # slow to converge by plain alternating projections
 
@@ -111,14 +120,18 @@ def panel_file(name: str, rows: int, data_dir: Path) -> str:
     return str(path)
 
 
-def formula(name: str) -> str:
+def formula(name: str, model: str = "linear") -> str:
+    if model == "poisson":
+        return POISSON_FORMULAS[name]
     return DEMO_FORMULA if name == "demo" else SHAPES[name].formula
 
 
 def model_of(config: tuple, path: str) -> dict:
     """The fit's keywords for a configuration (its more options included: the scan reads the same columns)."""
     name, fe, cluster, *more = config
-    return {"source": path, "formula": formula(name), "fe": fe, "cluster": cluster, **(more[0] if more else {})}
+    options = more[0] if more else {}
+    return {"source": path, "formula": formula(name, options.get("model", "linear")), "fe": fe, "cluster": cluster,
+            **options}
 
 
 def _record(rows: int, config: tuple, what: str, out: dict) -> dict:
@@ -181,7 +194,8 @@ def run(sizes: list[int], data_dir: Path, memory_limit: str, large: list[int], g
 def _key(rec: dict) -> str:
     cl = f", cluster {rec['cluster']}" if rec["cluster"] else ""
     options = rec.get("options", {})
-    extra = f", wild bootstrap {options['draws']:,}" if "wild_bootstrap" in options else ", IV" if "endogenous" in options else ""
+    extra = (f", wild bootstrap {options['draws']:,}" if "wild_bootstrap" in options else ", IV" if "endogenous" in options
+             else f", {options['model']}" if "model" in options else "")
     what = ", event study" if rec["what"] == "event" else ""
     return f"{rec['panel']}: {' + '.join(rec['effects'])}{cl}{extra}{what}"
 
@@ -214,7 +228,8 @@ def summarise(records: list[dict]) -> dict:
                      and r["effects"] == rec["effects"] and not rec.get("options")), None)
 
     out: dict = {"ratio_to_scan": {}, "numpy_over_fit": {}, "max_rel_slope_diff_vs_numpy": {}, "loglog_slope": {},
-                 "iv_over_within": {}, "event_over_within": {}}
+                 "iv_over_within": {}, "event_over_within": {},
+                 "poisson_over_linear": {}}
     keys = list(dict.fromkeys(_key(r) for r in ok if r["what"] in ("fit", "event")))
     sizes = sorted({r["rows"] for r in ok})
     for key in keys:
@@ -236,6 +251,11 @@ def summarise(records: list[dict]) -> dict:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
                 diffs = [abs(fit["coefficients"][n] - b) / abs(b) for n, b in ref["coefficients"].items()]
                 out["max_rel_slope_diff_vs_numpy"][label] = float(max(diffs))
+            linear = next((r for r in ok if fit and fit.get("options", {}).get("model") == "poisson"
+                           and r["what"] == "fit" and r["rows"] == rows and r["panel"] == fit["panel"]
+                           and r["effects"] == fit["effects"] and not r.get("options")), None)
+            if linear:  # the Poisson fit over the linear fit with the same effects on the same panel
+                out["poisson_over_linear"][label] = round(fit["seconds"] / linear["seconds"], 2)
         pts = [(rows, find(rows, key, "event" if key.endswith("event study") else "fit")) for rows in sizes
                if rows >= 10_000_000]
         pts = [(r, f["seconds"]) for r, f in pts if f]

@@ -10,11 +10,12 @@ from .estimators.base import Estimator, Request
 from .estimators.between import Between
 from .estimators.first_difference import FirstDifference
 from .estimators.instrumental import InstrumentalVariables
+from .estimators.poisson import Poisson
 from .estimators.random_effects import RandomEffects
 from .estimators.within import Within
 from .model.iv_formula import split_instrumented
 from .model.spec import parse_formula
-from .options import as_list
+from .options import MODELS, as_list
 from .results.call import call_record
 from .results.event import EventResult
 from .results.result import FitResult
@@ -37,6 +38,7 @@ def fit(
     table: object = None,
     weights: str | None = None,
     estimator: str = "within",
+    model: str = "linear",
     engine: str | None = None,
     memory_limit: str | None = None,
     temp_dir: str | None = None,
@@ -81,6 +83,11 @@ def fit(
       ``liml=True`` for LIML instead of 2SLS. ``endogenous`` terms are regressors (added to
       ``x`` when not among them); ``instruments`` are the excluded instruments.
 
+    ``model`` is ``linear`` (default) or ``poisson``: Poisson pseudo-maximum likelihood with the
+    effects absorbed (y >= 0; the within estimator only), with the within fit's options and
+    ``irls_tol`` (1e-8), ``irls_max_iter`` (100) and ``exponentiate`` (effects also as exp);
+    its default variance is ``hc1``.
+
     ``engine`` is ``duckdb`` (default for files; ``memory_limit``, ``temp_dir`` and ``threads``
     are its settings), ``postgresql`` (default for a ``postgresql://`` URL), ``spark``
     (``spark_master``, default local mode) or ``memory`` (load the used columns into numpy:
@@ -91,18 +98,7 @@ def fit(
     ``bigpanel refit`` can run the fit again from its saved JSON.
     """
     given = {name: value for name, value in locals().items() if name != "on_step"}
-    endogenous, instruments = as_list(endogenous), as_list(instruments)
-    if formula is not None:
-        if y is not None or x is not None:
-            raise BigPanelError("give either a formula or --y/--x, not both")
-        formula, named, excluded = split_instrumented(formula)
-        if named and (endogenous or instruments):
-            raise BigPanelError("give the instruments either in the formula or with --endogenous/--instrument, "
-                                "not both")
-        endogenous, instruments = (named, excluded) if named else (endogenous, instruments)
-        y, xs = parse_formula(formula)
-    else:
-        xs = as_list(x)
+    y, xs, endogenous, instruments = _variables(formula, y, x, as_list(endogenous), as_list(instruments))
     if endogenous or instruments:
         if estimator not in ("within", InstrumentalVariables.name):
             raise BigPanelError(f"instruments work with the within estimator, not --estimator {estimator}")
@@ -112,15 +108,34 @@ def fit(
         raise BigPanelError("no outcome: give a formula 'y ~ x1 + ...' or --y")
     if estimator not in ESTIMATOR_CLASSES:
         raise BigPanelError(f"unknown estimator {estimator!r}: choose one of {', '.join(ESTIMATOR_CLASSES)}")
+    if model not in MODELS:
+        raise BigPanelError(f"unknown model {model!r}: choose one of {', '.join(MODELS)}")
+    if model == "poisson" and estimator != "within":
+        raise BigPanelError(f"--model poisson is fitted with the within estimator only, not {estimator}")
     request = Request(
         source=source, y=y, x=xs, fe=as_list(fe), cluster=as_list(cluster), variance=variance, where=where,
         table=table, weights=weights, engine=engine, on_step=on_step,
         engine_options=dict(memory_limit=memory_limit, temp_dir=temp_dir, threads=threads, delimiter=delimiter,
                             spark_master=spark_master, allow_remote=allow_remote or None),
     )
-    res = ESTIMATOR_CLASSES[estimator](request, **options).fit()
+    cls = Poisson if model == "poisson" else ESTIMATOR_CLASSES[estimator]
+    res = cls(request, **options).fit()
     res.call = call_record(given)
     return res
+
+
+def _variables(formula: str | None, y: str | None, x: str | Sequence[str] | None, endogenous: list[str],
+               instruments: list[str]) -> tuple[str | None, list[str], list[str], list[str]]:
+    """The outcome, regressors, endogenous regressors and instruments, from the formula or the lists."""
+    if formula is None:
+        return y, as_list(x), endogenous, instruments
+    if y is not None or x is not None:
+        raise BigPanelError("give either a formula or --y/--x, not both")
+    formula, named, excluded = split_instrumented(formula)
+    if named and (endogenous or instruments):
+        raise BigPanelError("give the instruments either in the formula or with --endogenous/--instrument, not both")
+    y, xs = parse_formula(formula)
+    return (y, xs, named, excluded) if named else (y, xs, endogenous, instruments)
 
 
 def event(

@@ -23,7 +23,7 @@ from rich.text import Text
 from .command import interrupted
 from .engines.registry import ENGINES
 from .errors import BigPanelError
-from .options import BOOTSTRAP_WEIGHTS, ESTIMATORS, SINGLETONS, VARIANCE_TYPES
+from .options import BOOTSTRAP_WEIGHTS, ESTIMATORS, MODELS, SINGLETONS, VARIANCE_TYPES
 from .output.tables import RENDERERS
 
 # Only typer, rich and the light modules above load at start: the commands import the
@@ -53,6 +53,10 @@ def _choices(name: str, values: object) -> type[enum.Enum]:
 Variance = _choices("Variance", VARIANCE_TYPES)
 Singletons = _choices("Singletons", SINGLETONS)
 Estimator = _choices("Estimator", ESTIMATORS)
+Model = _choices("Model", MODELS)
+MODEL_HELP = ("linear (default) or poisson: Poisson pseudo-maximum likelihood, E[y] = exp(x'b + effects), for an "
+              "outcome that is never negative (counts, trade flows, sales with zeros); robust (hc1) errors by default.")
+EXPONENTIATE_HELP = "With --model poisson: add exp(effect), the factor by which each level multiplies the mean."
 EngineName = _choices("EngineName", ENGINES)
 TableFormat = _choices("TableFormat", RENDERERS)
 BootstrapWeights = _choices("BootstrapWeights", BOOTSTRAP_WEIGHTS)
@@ -292,8 +296,8 @@ def _estimation_options(
     ),
     weights: Optional[str] = typer.Option(
         None, "--weights",
-        help="Column of analytic weights (any estimator); rows with a missing weight and with a zero or negative "
-        "one are dropped and counted apart.",
+        help="Column of analytic weights (any estimator; prior weights with --model poisson); rows with a missing "
+        "weight and with a zero or negative one are dropped and counted apart.",
         metavar="COL",
     ),
     endogenous: Optional[List[str]] = typer.Option(
@@ -308,6 +312,14 @@ def _estimation_options(
     liml: bool = typer.Option(
         False, "--liml", help="With instruments: LIML instead of 2SLS (better with many or weak instruments).",
         metavar="",
+    ),
+    irls_tol: Optional[float] = typer.Option(
+        None, "--irls-tol", metavar="X",
+        help="With --model poisson: stop when the deviance changes by less than X relative and no coefficient "
+        "moves by more than X (default 1e-8).",
+    ),
+    irls_max_iter: Optional[int] = typer.Option(
+        None, "--irls-max-iter", metavar="N", help="With --model poisson: at most N weighted fits (default 100).",
     ),
 ) -> None:
     """The options of ``fit`` that choose and configure the estimator (declared once; passed to ``bigpanel.fit``)."""
@@ -343,8 +355,15 @@ def _bootstrap_options(
     """The wild cluster bootstrap's options of ``fit`` (passed to ``bigpanel.fit``)."""
 
 
+def _mean_options(
+    model: Model = typer.Option("linear", "--model", help=MODEL_HELP),
+    exponentiate: bool = typer.Option(False, "--exponentiate", help=EXPONENTIATE_HELP, metavar=""),
+) -> None:
+    """How the mean of y depends on the regressors and effects, and the effects' scale (fit and effects)."""
+
+
 @app.command("fit")
-@model_command(_estimation_options, _bootstrap_options)
+@model_command(_estimation_options, _mean_options, _bootstrap_options)
 def fit_command(
     model: dict,
     json_out: bool = typer.Option(
@@ -358,7 +377,8 @@ def fit_command(
     ),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress display.", metavar=""),
 ) -> None:
-    """Fit a within (fixed-effects) regression and report slopes, errors and diagnostics.
+    """Fit a within (fixed-effects) regression, or with --model poisson a Poisson one, and report slopes, errors and
+    diagnostics.
 
     Example: bigpanel fit sales.parquet 'log_units ~ log_price + promo' --fe store --fe product --fe week
     --cluster store
@@ -487,7 +507,7 @@ def event_command(
 
 
 @app.command("effects")
-@model_command()
+@model_command(_mean_options)
 def effects_command(
     model: dict,
     out_dir: Path = typer.Option(..., "--out", help="Folder for one Parquet file per effect (level, effect, rows)."),

@@ -5,6 +5,7 @@ import re
 from collections.abc import Sequence
 
 ESTIMATORS = ("within", "between", "first-difference", "random-effects", "instrumental-variables")
+MODELS = ("linear", "poisson")  # the mean of y: linear in x and the effects, or exp of that (Poisson)
 VARIANCE_TYPES = ("classical", "hc1", "cr1")
 SINGLETONS = ("drop", "keep")
 BOOTSTRAP_WEIGHTS = ("rademacher", "webb")

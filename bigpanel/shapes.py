@@ -10,6 +10,8 @@
 * ``store-week-adoption``: store-week plus a staggered adoption: ``first_week``, each store's
   first treated week (missing for the 30% never treated), and an effect on sales from then on
   (the event-study benchmark);
+* ``store-week-counts``: store-week plus ``units``, a count with zeros for the Poisson fit
+  (its mean is exp of the linear predictor; ``COUNT_COEFFICIENTS``);
 * ``staff``: employee x store x year with job spells (employee x store pairs compress,
   employee x year pairs do not).
 
@@ -65,9 +67,17 @@ SHAPES = {
     "store-week-adoption": Shape("store-week-adoption", "log_sales ~ log_price + promo_share + staff_hours",
                                  ("store", "week"), "store",
                                  {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
+    "store-week-counts": Shape("store-week-counts", "log_sales ~ log_price + promo_share + staff_hours",
+                               ("store", "week"), "store",
+                               {"log_price": 1.0, "promo_share": -0.5, "staff_hours": 0.25}),
     "staff": Shape("staff", "log_wage ~ log_hours + training + overtime", ("employee", "store", "year"), "employee",
                    {"log_hours": 0.6, "training": 0.3, "overtime": -0.2}),
 }
+COUNT_FORMULA = "units ~ log_price + promo_share + staff_hours"  # the Poisson model of store-week-counts
+COUNT_COEFFICIENTS = {"log_price": 0.3, "promo_share": -0.5, "staff_hours": 0.25}
+COUNT_COLUMN = ("CAST(floor(exp(0.5 + 0.3 * (z1 + 0.5 * z_store) - 0.5 * (z2 + 0.3 * z_week) + 0.25 * z3 "
+                "+ 0.5 * z_store + 0.3 * z_week + 0.5 * z_noise - 0.125) + bp_unif(i, 17, $seed)) AS INTEGER) "
+                "AS units,")
 
 
 def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
@@ -98,7 +108,8 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                              supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "",
                              instrument_columns=IV_COLUMNS if iv else "", price_shift=IV_PRICE if iv else "",
                              adoption_column="CAST(first AS SMALLINT) AS first_week," if adoption else "",
-                             adoption_effect=ADOPTION_EFFECT if adoption else "")
+                             adoption_effect=ADOPTION_EFFECT if adoption else "",
+                             count_column=COUNT_COLUMN if name == "store-week-counts" else "")
                 con.execute(sql, params).fetchall()
     finally:
         con.close()

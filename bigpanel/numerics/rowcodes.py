@@ -99,6 +99,19 @@ def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
     return Links(big, link, pairs, {e: _linked_groups(link[e]) for e in small}, weighted)
 
 
+def reweighted(links: Links, sizes: list[int], weights: np.ndarray) -> Links:
+    """``links`` with new row weights (the Poisson fit's IRLS steps): every C_e holds ``weights``
+    as its values (the array they were built around, already rewritten in place), the tables
+    P_ef of the other effects are counted again; the components do not depend on the weights."""
+    for c in links.link.values():
+        if not np.shares_memory(c.data, weights):
+            c.data = weights
+    small = sorted(links.link)
+    pairs = {(e, f): _pair_table(links.link[e].indices, links.link[f].indices, weights, sizes[e], sizes[f])
+             for i, e in enumerate(small) for f in small[i + 1:]}
+    return Links(links.big, links.link, pairs, links.groups, True)
+
+
 def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
     """P_ef = D_e'W D_f for two other effects, from the table kept for e < f."""
     return links.pairs[(e, f)] if e < f else links.pairs[(f, e)].T

@@ -147,6 +147,10 @@ def _footer_rows(fits: list[dict[str, Any]]) -> list[Row]:
         values = [(f.get("fit") or {}).get(key) for f in fits]
         if any(v is not None for v in values):
             rows.append([label, *(format_number(v, R2_DECIMALS) if v is not None else "" for v in values)])
+    deviance_r2 = [(f.get("poisson") or {}).get("deviance_r2") for f in fits]  # the Poisson fit's pseudo R-squared
+    if any(v is not None for v in deviance_r2):
+        rows.append(["deviance R-squared",
+                     *(format_number(v, R2_DECIMALS) if v is not None else "" for v in deviance_r2)])
     for key, usual in (("outcome", fits[0].get("outcome")), ("estimator", "within"), ("weights", None)):
         values = [(f.get("instrumental_variables") or {}).get("method") or f.get(key) if key == "estimator"
                   else f.get(key) for f in fits]

@@ -18,6 +18,13 @@ VCOV_LABEL = {
 }
 
 
+POISSON_VCOV_LABEL = {
+    "classical": "model-based (Poisson: variance equal to the mean)",
+    "hc1": "HC1 sandwich, robust to any variance of y given the mean",
+    "cr1": "CR1 sandwich, robust to errors correlated within clusters",
+}
+
+
 def _n(v: int | float) -> str:
     return f"{int(v):,}"
 
@@ -122,13 +129,16 @@ def _rows(res: FitResult, lines: Text) -> None:
 def _variance(res: FitResult, lines: Text) -> None:
     inf = res.inference
     _line(lines, "variance")
-    lines.append(VCOV_LABEL[inf.kind])
+    poisson = res.extras.get("poisson")
+    lines.append(POISSON_VCOV_LABEL[inf.kind] if poisson else VCOV_LABEL[inf.kind])
     if inf.clusters:
         nested = [d.name for d in res.fe if d.nested_in_cluster]
         lines.append("; clusters: " + ", ".join(f"{c} {_n(g)}" for c, g in inf.clusters.items()))
         if nested:
             lines.append(f"; each level of {', '.join(nested)} lies inside one cluster")
     lines.append(f"; t on {_n(inf.df)} df")
+    if poisson:
+        return
     _line(lines, "fit")
     r2 = (f"R-squared {res.fit.r2_full_model:.4f} with the effects, {res.fit.r2_within:.4f} after removing them"
           if _absorbs(res) else f"R-squared {res.fit.r2_transformed:.4f} of the transformed regression")
@@ -138,13 +148,20 @@ def _variance(res: FitResult, lines: Text) -> None:
     )
 
 
+def _absorbed(res: FitResult, lines: Text) -> None:
+    """The parameters the effects absorb, and the connected components of effects 1-2."""
+    _line(lines, "effects")
+    plural = "" if res.components == 1 else "s"
+    comp = f" in {res.components} connected component{plural}" if res.components else ""
+    lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
+
+
 def _solver(res: FitResult, lines: Text) -> None:
     s = res.solver
+    if res.estimator == "poisson":
+        return
     if _absorbs(res):
-        _line(lines, "effects")
-        plural = "" if res.components == 1 else "s"
-        comp = f" in {res.components} connected component{plural}" if res.components else ""
-        lines.append(f"{_n(res.absorbed)} parameters spent on the fixed effects{comp}")
+        _absorbed(res, lines)
         _line(lines, "solver")
         conv = "converged" if s.converged else "NOT CONVERGED"
         steps = (f"{s.iterations} iterations, change {s.change:.1e} (tol {s.tol:.0e}, {conv})"
@@ -219,10 +236,33 @@ def _instruments(res: FitResult, lines: Text) -> None:
                  "(Anderson-Rubin; null: every endogenous coefficient is 0; valid with weak instruments)")
 
 
+def _poisson(res: FitResult, lines: Text) -> None:
+    """The Poisson fit: deviance and pseudo R-squared, the rows of all-zero levels, the IRLS steps."""
+    ps = res.extras.get("poisson")
+    if not ps:
+        return
+    dropped = sum(ps["dropped_rows"].values())
+    if dropped:
+        _line(lines, "zeros")
+        levels = ", ".join(f"{name} {_n(v)}" for name, v in ps["levels_with_zero_outcome"].items() if v)
+        lines.append(f"{_n(dropped)} rows dropped in levels whose outcome is zero in every row (levels: {levels})")
+    _line(lines, "fit")
+    lines.append(f"deviance {_g(ps['deviance'])} (constant only: {_g(ps['null_deviance'])}); deviance R-squared "
+                 f"{ps['deviance_r2']:.4f}; squared correlation of y and the fitted mean {ps['squared_correlation']:.4f}")
+    _absorbed(res, lines)
+    s = res.solver
+    _line(lines, "solver")
+    conv = "converged" if s.converged else "NOT CONVERGED"
+    change = f"deviance change {ps['deviance_change']:.1e}, " if ps["deviance_change"] is not None else ""
+    lines.append(f"IRLS: {ps['iterations']} weighted within fits ({change}tol {s.tol:.0e}, {conv}); "
+                 f"{s.path.split(': ', 1)[-1]}; {s.raw_passes} passes over the rows "
+                 f"({ps['raw_passes']['per_step']} per step); {s.seconds:.2f} s")
+
+
 def fit_renderable(res: FitResult) -> Group:
     """The report: a coefficient table framed by lines on sample, effects, variance and solver."""
     lines = Text()
-    for section in (_rows, _variance, _bootstrap, _solver, _panel_tests, _instruments):
+    for section in (_rows, _variance, _bootstrap, _solver, _poisson, _panel_tests, _instruments):
         section(res, lines)
     if res.dropped:
         _line(lines, "dropped", style="bold yellow")

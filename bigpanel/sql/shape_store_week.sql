@@ -11,7 +11,11 @@
 --   log_price is endogenous and the shifters are valid instruments);
 -- * store-week-adoption: the same as store-week plus a staggered adoption (a store
 --   remodel): 30% of the stores never adopt, the others from a week drawn between
---   20 and 140 (first_week); from then on sales rise by 0.05 + 0.002 per week since.
+--   20 and 140 (first_week); from then on sales rise by 0.05 + 0.002 per week since;
+-- * store-week-counts: store-week plus units, a count with zeros whose mean is
+--   exp(0.5 + 0.3 log_price - 0.5 promo_share + 0.25 staff_hours + 0.5 store + 0.3 week)
+--   (a log-normal factor of mean 1, then rounded down after adding a uniform draw,
+--   which keeps the mean), for the Poisson fit.
 -- log_sales = 1.0 log_price - 0.5 promo_share + 0.25 staff_hours + store + week
 --             (+ supplier) effects (+ the adoption effect) + noise; the regressors move
 -- with the store and week effects, so pooled OLS is biased. Rows are written store by store.
@@ -36,7 +40,7 @@ COPY (
   )
   SELECT CAST(s + 1 AS INTEGER) AS store,
          CAST(w + 1 AS SMALLINT) AS week,
-         {{supplier_column}}{{instrument_columns}}{{adoption_column}}
+         {{supplier_column}}{{instrument_columns}}{{adoption_column}}{{count_column}}
          {{region_column}}
          z1 + 0.5 * z_store {{price_shift}} AS log_price,
          z2 + 0.3 * z_week AS promo_share,
