@@ -69,13 +69,15 @@ GROUP BY GROUPING SETS ((f1_1), (f2_1), (f3_1))
 ;
 -- params: {"gid": 3, "min_count": 1}
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE: a sum of counts is a 128-bit integer, which reaches numpy as
+-- Python objects, one by one (0.4 s for 340,000 levels).
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
        n,
        nw
-FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
+FROM (SELECT f1_1, CAST(sum(n) AS BIGINT) AS n, CAST(sum(nw) AS DOUBLE) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f1_1
@@ -83,13 +85,15 @@ FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
 ;
 -- params: {"gid": 5, "min_count": 1}
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE: a sum of counts is a 128-bit integer, which reaches numpy as
+-- Python objects, one by one (0.4 s for 340,000 levels).
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
        n,
        nw
-FROM (SELECT f2_1, sum(n) AS n, sum(nw) AS nw
+FROM (SELECT f2_1, CAST(sum(n) AS BIGINT) AS n, CAST(sum(nw) AS DOUBLE) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f2_1
@@ -97,13 +101,15 @@ FROM (SELECT f2_1, sum(n) AS n, sum(nw) AS nw
 ;
 -- params: {"gid": 6, "min_count": 1}
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE: a sum of counts is a 128-bit integer, which reaches numpy as
+-- Python objects, one by one (0.4 s for 340,000 levels).
 CREATE OR REPLACE TEMP TABLE bp_lev_3 AS
 SELECT f3_1,
        CAST(row_number() OVER (ORDER BY f3_1) - 1 AS INTEGER) AS code,
        n,
        nw
-FROM (SELECT f3_1, sum(n) AS n, sum(nw) AS nw
+FROM (SELECT f3_1, CAST(sum(n) AS BIGINT) AS n, CAST(sum(nw) AS DOUBLE) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f3_1

@@ -38,19 +38,19 @@ CREATE TEMPORARY TABLE bp_cells AS SELECT f1_1, f2_1, f3_1, GROUPING(f1_1, f2_1,
 ;
 DROP TABLE IF EXISTS bp_lev_1
 ;
-CREATE TEMPORARY TABLE bp_lev_1 AS SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f1_1 HAVING SUM(n) >= %(min_count)s) AS lv
+CREATE TEMPORARY TABLE bp_lev_1 AS SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, CAST(SUM(n) AS BIGINT) AS n, CAST(SUM(nw) AS DOUBLE PRECISION) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f1_1 HAVING SUM(n) >= %(min_count)s) AS lv
 ;
 -- params: {"gid": 5, "min_count": 1}
 ;
 DROP TABLE IF EXISTS bp_lev_2
 ;
-CREATE TEMPORARY TABLE bp_lev_2 AS SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f2_1 HAVING SUM(n) >= %(min_count)s) AS lv
+CREATE TEMPORARY TABLE bp_lev_2 AS SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, CAST(SUM(n) AS BIGINT) AS n, CAST(SUM(nw) AS DOUBLE PRECISION) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f2_1 HAVING SUM(n) >= %(min_count)s) AS lv
 ;
 -- params: {"gid": 6, "min_count": 1}
 ;
 DROP TABLE IF EXISTS bp_lev_3
 ;
-CREATE TEMPORARY TABLE bp_lev_3 AS SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f3_1 HAVING SUM(n) >= %(min_count)s) AS lv
+CREATE TEMPORARY TABLE bp_lev_3 AS SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, CAST(SUM(n) AS BIGINT) AS n, CAST(SUM(nw) AS DOUBLE PRECISION) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f3_1 HAVING SUM(n) >= %(min_count)s) AS lv
 ;
 -- params: {}
 ;

@@ -35,17 +35,17 @@ SELECT f1_1, f2_1, f3_1, GROUPING_ID(f1_1, f2_1, f3_1) AS gid, COUNT(*) AS n, SU
 -- params: {"gid": 3, "min_count": 1}
 ;
 -- materialised as bp_lev_1
-SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f1_1 HAVING SUM(n) >= :min_count) AS lv
+SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, CAST(SUM(n) AS BIGINT) AS n, CAST(SUM(nw) AS DOUBLE) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f1_1 HAVING SUM(n) >= :min_count) AS lv
 ;
 -- params: {"gid": 5, "min_count": 1}
 ;
 -- materialised as bp_lev_2
-SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f2_1 HAVING SUM(n) >= :min_count) AS lv
+SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, CAST(SUM(n) AS BIGINT) AS n, CAST(SUM(nw) AS DOUBLE) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f2_1 HAVING SUM(n) >= :min_count) AS lv
 ;
 -- params: {"gid": 6, "min_count": 1}
 ;
 -- materialised as bp_lev_3
-SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f3_1 HAVING SUM(n) >= :min_count) AS lv
+SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, CAST(SUM(n) AS BIGINT) AS n, CAST(SUM(nw) AS DOUBLE) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f3_1 HAVING SUM(n) >= :min_count) AS lv
 ;
 -- params: {}
 ;

@@ -55,13 +55,15 @@ GROUP BY GROUPING SETS ((f1_1), (f2_1))
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE: a sum of counts is a 128-bit integer, which reaches numpy as
+-- Python objects, one by one (0.4 s for 340,000 levels).
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
        n,
        nw
-FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
+FROM (SELECT f1_1, CAST(sum(n) AS BIGINT) AS n, CAST(sum(nw) AS DOUBLE) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f1_1
@@ -69,13 +71,15 @@ FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE: a sum of counts is a 128-bit integer, which reaches numpy as
+-- Python objects, one by one (0.4 s for 340,000 levels).
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
        n,
        nw
-FROM (SELECT f2_1, sum(n) AS n, sum(nw) AS nw
+FROM (SELECT f2_1, CAST(sum(n) AS BIGINT) AS n, CAST(sum(nw) AS DOUBLE) AS nw
       FROM bp_cells
       WHERE gid = $gid
       GROUP BY f2_1
