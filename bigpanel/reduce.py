@@ -80,9 +80,10 @@ class Reduction:
 
 @dataclass
 class RowCodes:
-    """The sample rows sorted by the level code of effect ``big`` (the one with most levels):
-    ``codes[d]`` holds every row's level code of each other effect d (int16 or int32), and
-    ``weights`` the rows' weights (None: unweighted).
+    """The sample rows in runs that each hold rows of one level of effect ``big`` (the one with
+    most levels): ``codes[d]`` holds every row's level code of each other effect d (int32),
+    ``weights`` the rows' weights (None: unweighted), and ``runs`` the level of ``big`` of each
+    run and its row count (None: one run per level, in code order).
 
     Mutable on purpose: :mod:`bigpanel.rowcodes` empties it once it has built its
     link tables, so that the row arrays do not outlive their use.
@@ -91,6 +92,7 @@ class RowCodes:
     big: int
     codes: dict[int, np.ndarray]
     weights: np.ndarray | None
+    runs: tuple[np.ndarray, np.ndarray] | None = None
 
 
 def _complete(spec: Spec) -> str:
@@ -278,17 +280,11 @@ class Plan:
                 "pairs_at_most": self.pair_bounds, "python_bytes_planned": self.python_bytes}
 
 
-def code_bytes(levels: int) -> int:
-    """Bytes per row of one effect's level code: int16 up to 32,767 levels, else int32."""
-    return 2 if levels <= 32_767 else 4
-
-
-def row_code_bytes(rows: int, levels: list[int], weighted: bool) -> int:
-    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.rowcodes`): the codes of
-    every effect but the largest, then one sparse link table per other effect (int32 indices)
-    sharing one float64 weight per row."""
-    fetch = sum(code_bytes(g) for g in sorted(levels)[:-1]) + (8 if weighted else 0)
-    return rows * (fetch + 4 * (len(levels) - 1) + 8)
+def row_code_bytes(rows: int, levels: list[int]) -> int:
+    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.rowcodes`): an int32
+    level code per row of every effect but the largest (the link tables' column indices, held
+    from the fetch on) and one float64 weight per row, shared by the link tables."""
+    return rows * (4 * (len(levels) - 1) + 8)
 
 
 def choose_strategy(spec: Spec, levels: list[int], rows: int, budget: int, forced: str | None = None) -> Plan:
@@ -308,7 +304,7 @@ def choose_strategy(spec: Spec, levels: list[int], rows: int, budget: int, force
     worst = max(bounds, key=lambda de: bounds[de])
     pair_name = f"{names[worst[0]]} x {names[worst[1]]}"
     cells = CELL_BYTES * sum(min(b, rows) for b in bounds.values())
-    codes = row_code_bytes(rows, levels, bool(spec.weights))
+    codes = row_code_bytes(rows, levels)
     per_row = bounds[worst] / rows
     if per_row * COMPRESSION <= 1 and cells <= budget:
         strategy, planned = PAIR_TABLES, cells
@@ -459,33 +455,71 @@ def _pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tupl
     return cross
 
 
-def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
-    """One pass: every sample row's level code of each effect but the largest (int16 or int32)
-    and its weight, ordered by the largest effect's code (the engine sorts, and spills if it
-    must), so that the rows are already grouped as :mod:`bigpanel.rowcodes` needs them.
+EXTRA_RUNS = 64  # runs beyond one per level that the unsorted row codes may hold (1/64 of the levels, at least 64)
 
-    The rows stream into preallocated arrays: the peak is the arrays plus one batch.
+
+def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
+    """Every sample row's int32 level code of each effect but the largest, and its weight, in
+    runs of rows of one level of the largest effect, as :mod:`bigpanel.rowcodes` needs them.
+
+    Panels are mostly stored unit by unit, so on an engine that returns rows about in the
+    order it reads them the codes first stream unsorted, with the largest effect's code
+    beside them to find the runs; a level may come in a few runs (the engine's threads hand
+    over batches a little out of order). Only when the runs outnumber the levels by more
+    than a 64th (the stream stops there) does a second pass ask the engine to sort the rows
+    by that code (it spills if it must); an engine without that order sorts at once. The
+    rows stream into preallocated arrays: the peak is the arrays plus one batch.
     """
     big = int(np.argmax(levels))
+    if eng.ordered_scans:
+        found = _stream_codes(eng, spec, big, levels, n_obs, sort=False)
+        if found is not None:
+            return found
+    found = _stream_codes(eng, spec, big, levels, n_obs, sort=True)
+    if found is None:
+        raise RuntimeError("the rows sorted by the engine came back out of order")
+    return found
+
+
+def _stream_codes(eng: Engine, spec: Spec, big: int, levels: list[int], n_obs: int, sort: bool) -> RowCodes | None:
+    """One pass of :func:`fetch_codes`; None as soon as the runs are too many."""
     small = [d for d in range(len(levels)) if d != big]
-    kinds = {d: ("SMALLINT", np.int16) if code_bytes(levels[d]) == 2 else ("INTEGER", np.int32) for d in small}
-    cols = [f"CAST(l{d + 1}.code AS {kinds[d][0]}) AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
-    codes = {d: np.empty(n_obs, dtype=kinds[d][1]) for d in small}
+    cols = [f"l{d + 1}.code AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
+    cols.append(f"l{big + 1}.code AS c{big + 1}")
+    sql = render("row_codes", codes=join(cols), joins=_level_joins(spec),
+                 order=f"\nORDER BY l{big + 1}.code" if sort else "")
+    codes = {d: np.empty(n_obs, dtype=np.int32) for d in small}
     weights = np.empty(n_obs) if spec.weights else None
-    sql = render("row_codes", codes=join(cols), joins=_level_joins(spec), order=f"l{big + 1}.code")
-    at = 0
-    for batch in eng.stream("level codes of every row", sql, raw=True):
+    heads: list[np.ndarray] = []
+    starts: list[np.ndarray] = []
+    n_runs, last, at = 0, -1, 0
+    most = levels[big] + max(EXTRA_RUNS, levels[big] // EXTRA_RUNS)
+    for batch in eng.stream("level codes of every row" + (", sorted" if sort else ""), sql, raw=True):
         size = batch.num_rows
         if at + size > n_obs:
             raise RuntimeError("the row-codes pass returned more rows than the levels hold")
+        if size == 0:
+            continue
         for j, d in enumerate(small):
             codes[d][at:at + size] = batch.column(j).to_numpy()
         if weights is not None:
             weights[at:at + size] = batch.column(len(small)).to_numpy()
-        at += size
+        b = batch.column(batch.num_columns - 1).to_numpy()
+        first = np.flatnonzero(b[1:] != b[:-1]) + 1
+        if b[0] != last:
+            first = np.concatenate([[0], first])
+        n_runs += len(first)
+        if n_runs > most:
+            return None
+        heads.append(b[first].astype(np.int32))
+        starts.append(first + at)
+        last, at = b[-1], at + size
     if at != n_obs:
         raise RuntimeError(f"the row-codes pass returned {at:,} rows, the levels hold {n_obs:,}")
-    return RowCodes(big, codes, weights)
+    head = np.concatenate(heads) if heads else np.zeros(0, dtype=np.int32)
+    if len(head) == levels[big] and np.array_equal(head, np.arange(levels[big])):
+        return RowCodes(big, codes, weights)
+    return RowCodes(big, codes, weights, (head, np.diff(np.concatenate(starts + [[n_obs]]))))
 
 
 def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, forced: str | None) -> Reduction:

@@ -143,14 +143,15 @@ ORDER BY l.code
 
 ;
 -- The row-codes strategy: every sample row's integer level code of each effect
--- but the largest (and its weight), nothing else, ordered by the largest effect's
--- code; the projections iterate on these in numpy. The inner joins keep exactly
--- the sample rows whose levels survived singleton removal.
-SELECT CAST(l2.code AS SMALLINT) AS c2
+-- (and its weight), nothing else, the largest effect's code last; the projections
+-- iterate on these in numpy, with the rows grouped by that code (in the order the
+-- engine reads them, or sorted by it when that order does not group them). The
+-- inner joins keep exactly the sample rows whose levels survived singleton removal.
+SELECT l2.code AS c2,
+       l1.code AS c1
 FROM bp_sample
 JOIN bp_lev_1 AS l1 USING (f1_1)
 JOIN bp_lev_2 AS l2 USING (f2_1)
-ORDER BY l1.code
 
 ;
 -- The levels of one effect in code order (keys or row counts).
