@@ -55,7 +55,9 @@ class Reduction:
     each shifted value column per level (levels x columns), ``cross[(d, e)]``
     the sparse table of rows per pair of levels of effects d < e (pair-table
     strategy only, else None), and
-    ``sumsq`` each shifted column's sum of squares over the sample. ``strategy``
+    ``sumsq`` each shifted column's sum of squares over the sample and, when the cells carry
+    them (:func:`carries_products`) with two or more effects, ``products`` every product of two
+    shifted columns summed over the sample (T'WT, columns x columns). ``strategy``
     names how the effects are partialled out (:func:`choose_strategy`); ``codes``
     holds the per-row level codes of the row-codes strategy.
     """
@@ -72,6 +74,7 @@ class Reduction:
     strategy: str = PAIR_TABLES
     codes: RowCodes | None = None
     plan: Plan | None = None
+    products: np.ndarray | None = None
 
     @property
     def singletons(self) -> int:
@@ -359,15 +362,22 @@ def products(spec: Spec) -> list[tuple[int, int]]:
     return [(i, j) for i in range(m) for j in range(i + 1, m)]
 
 
-def _cell_sums(spec: Spec) -> list[str]:
-    """Per level: weight, sums and squares of the shifted columns, cluster ranges; with one
-    effect also every product of two shifted columns (the per-level co-moments)."""
+def carries_products(spec: Spec) -> bool:
+    """Whether the cells carry every product of two shifted columns: with one effect (the level
+    co-moments), and with more unless the errors are clustered (the demeaned cross-products
+    then follow from the solved effects, :func:`bigpanel.moments.solution_cross_products`; a
+    clustered fit needs per-cluster sums of rows anyway)."""
+    return len(spec.fe) == 1 or spec.vcov != "cluster"
+
+
+def cell_sums(spec: Spec, t: list[str], with_products: bool) -> list[str]:
+    """Per level: weight, the sums and squares of the value expressions ``t`` (one per value
+    column), cluster ranges and, ``with_products``, every product of two of them."""
     w = spec.w
-    t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
     sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]
     sums += [f"sum({w}{tj}) AS s{j}" for j, tj in enumerate(t)]
     sums += [f"sum({w}{tj} * {tj}) AS q{j}" for j, tj in enumerate(t)]
-    if len(spec.fe) == 1:
+    if with_products:
         sums += [f"sum({w}{t[i]} * {t[j]}) AS p{i}_{j}" for i, j in products(spec)]
     for c in spec.cluster_aliases:
         sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
@@ -379,7 +389,8 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
     level tables, the strategy (:func:`choose_strategy`) and what it fetches to numpy."""
     k = len(spec.fe)
     all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
-    sums = join(_cell_sums(spec))
+    shifted = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
+    sums = join(cell_sums(spec, shifted, carries_products(spec)))
     groups = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
     filters = ""
     rounds = 0
@@ -427,6 +438,20 @@ def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray
     tab = eng.arrow("level sums", sql, {"gid": _gid(spec, (d,))})
     rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
     return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
+
+
+def _products(eng: Engine, spec: Spec) -> np.ndarray:
+    """T'WT: every product of two shifted columns summed over the sample, from the cells of
+    the first effect (compensated sums over its levels)."""
+    m = len(spec.value_aliases)
+    pairs = [(i, j) for i in range(m) for j in range(i, m)]
+    sums = join([f"fsum(c.{f'q{i}' if i == j else f'p{i}_{j}'}) AS t_{i}_{j}" for i, j in pairs])
+    sql = render("level_moments", sums=sums, keys=", ".join(spec.key_aliases(0)), cells="bp_cells", levels="bp_lev_1")
+    row = eng.one("products of the shifted columns", sql, {"gid": _gid(spec, (0,))})
+    out = np.zeros((m, m))
+    for i, j in pairs:
+        out[i, j] = out[j, i] = row[f"t_{i}_{j}"]
+    return out
 
 
 def _level_joins(spec: Spec) -> str:
@@ -534,5 +559,6 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, f
             else choose_strategy(spec, [len(c) for c in counts], n_obs, budget, forced))
     cross = _pair_tables(eng, spec, list(counts)) if plan.strategy == PAIR_TABLES else None
     codes = fetch_codes(eng, spec, [len(c) for c in counts], n_obs) if plan.strategy == ROW_CODES else None
+    totals = _products(eng, spec) if k > 1 and carries_products(spec) else None
     return Reduction(list(counts), list(rows), [s[0] for s in sums], cross, list(nested), sums[0][1],
-                     n_complete, n_obs, rounds, plan.strategy, codes, plan)
+                     n_complete, n_obs, rounds, plan.strategy, codes, plan, totals)

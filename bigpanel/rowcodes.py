@@ -236,6 +236,21 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
     return Projection(alpha, it, change, converged)
 
 
+def normal_times(links: Links, counts: list[np.ndarray], parts: list[np.ndarray]) -> list[np.ndarray]:
+    """D'WD times the effects ``parts`` (one array of levels x columns per effect, B's included):
+    diag(n) a plus the link and pair tables times the other effects."""
+    big, small = links.big, sorted(links.link)
+    out = [counts[d][:, None] * p for d, p in enumerate(parts)]
+    out[big] = out[big] + links.per_level(links.times({e: parts[e] for e in small}))
+    back = links.transposed_times(links.by_row(parts[big]))
+    for e in small:
+        out[e] = out[e] + back[e]
+        for f in small:
+            if f != e:
+                out[e] = out[e] + _pair(links, e, f) @ parts[f]
+    return out
+
+
 def _linked_groups(c: sparse.csr_matrix, order: np.ndarray | None, levels: int) -> tuple[int, np.ndarray]:
     """Connected components of the column levels of ``c`` when two are linked by sharing a B
     level: edges between consecutive column indices inside each row connect them exactly so,

@@ -1,14 +1,15 @@
--- One effect nested in every cluster column: a cluster's demeaned cross-products
--- are the sums of the co-moments of the levels inside it, for every combination
--- of cluster columns (grouping sets). The table the cluster meat reads, made
--- from the cells without a pass over the rows.
+-- An effect nested in every cluster column: a cluster's demeaned cross-products
+-- are the sums of the co-moments of the effect's levels inside it, for every
+-- combination of cluster columns (grouping sets). The table the cluster meat
+-- reads, made from per-level cells (those of the reduction with one effect, else
+-- those of the nested-effect pass) without a further pass over the rows.
 CREATE OR REPLACE TEMP TABLE bp_cluster_moments AS
 SELECT GROUPING({{clusters}}) AS gid,
        sum(n) AS n,
        {{sums}}
 FROM (SELECT c.n,
              {{values}}
-      FROM bp_cells AS c
-      JOIN bp_lev_1 USING ({{keys}})
+      FROM {{cells}} AS c
+      JOIN {{levels}} USING ({{keys}})
       WHERE c.gid = $gid) AS lv
 GROUP BY GROUPING SETS ({{sets}})
