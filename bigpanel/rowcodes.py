@@ -31,6 +31,10 @@ duplicate cells stay separate nonzeros (a product adds them). Memory: 4 bytes pe
 row per other effect (the int32 codes become the column indices) plus one
 float64 weight per row shared by every C_e that was not shortened so.
 
+An unweighted C_e that holds most of its cells, each at most once (the period of a
+unit x period panel), is kept as all ones minus its missing cells M: C_e p =
+1 (1'p) - M p and C_e'v = 1 (1'v) - M'v cost the missing cells only.
+
 A product with a C_e of many levels reads and writes memory at random; it runs
 in threads (scipy's sparse products release the interpreter lock), each on some
 of the value columns, so the sums are the same as in one thread.
@@ -51,8 +55,32 @@ from .reduce import Reduction, RowCodes
 
 DENSE_PAIRS = 1 << 26  # a pair table of two small effects is counted densely up to this many cells
 EDGE_CHUNK = 1 << 24  # rows (or edges) handled at a time while counting pair tables and components
+GRID_CHUNK = 1 << 18  # rows marked at a time in the cells table of a complement (small: the temporaries stay in cache)
 THREADED_LEVELS = 1 << 16  # a product with C_e runs its value columns in threads from this many levels of e
 RUNS_PAY = 0.75  # a link table is shortened to its runs when they are at most this share of its rows
+
+
+@dataclass(frozen=True)
+class _Complement:
+    """C_e as all ones but the cells of ``missing`` (rows x levels of e, a one per missing
+    cell); ``first`` holds the first level of e each row holds."""
+
+    missing: sparse.csr_matrix
+    first: np.ndarray
+
+    @property
+    def nbytes(self) -> int:
+        m = self.missing
+        return m.data.nbytes + m.indices.nbytes + m.indptr.nbytes + self.first.nbytes
+
+    def times(self, vec: np.ndarray) -> np.ndarray:
+        return vec.sum(axis=0) - self.missing @ vec
+
+    def transposed_times(self, vec: np.ndarray) -> np.ndarray:
+        return vec.sum(axis=0) - self.missing.T @ vec
+
+
+Link = sparse.csr_matrix | _Complement
 
 
 @dataclass(frozen=True)
@@ -64,7 +92,7 @@ class Links:
     their number and a label per level of e) and ``unit`` the effects whose C_e holds only ones."""
 
     big: int
-    link: dict[int, sparse.csr_matrix]
+    link: dict[int, Link]
     pairs: dict[tuple[int, int], sparse.csr_matrix]
     groups: dict[int, tuple[int, np.ndarray]]
     unit: frozenset[int]
@@ -73,9 +101,10 @@ class Links:
 
     @property
     def nbytes(self) -> int:
-        mats = list(self.link.values()) + list(self.pairs.values())
+        mats = [m for m in self.link.values() if not isinstance(m, _Complement)] + list(self.pairs.values())
         shared = {id(m.data): m.data.nbytes for m in mats}
-        return sum(m.indices.nbytes + m.indptr.nbytes for m in mats) + sum(shared.values())
+        dense = sum(m.nbytes for m in self.link.values() if isinstance(m, _Complement))
+        return sum(m.indices.nbytes + m.indptr.nbytes for m in mats) + sum(shared.values()) + dense
 
     def by_row(self, values: np.ndarray) -> np.ndarray:
         """Values per level of B (code order) repeated for each row of the link tables."""
@@ -87,11 +116,18 @@ class Links:
 
     def times(self, parts: dict[int, np.ndarray]) -> np.ndarray:
         """sum_e C_e parts[e] (a row per row of the link tables)."""
-        return sum(_product(self.link[e], p) for e, p in parts.items())
+        return sum(c.times(p) if isinstance(c := self.link[e], _Complement) else _product(c, p)
+                   for e, p in parts.items())
 
     def transposed_times(self, vec: np.ndarray) -> dict[int, np.ndarray]:
         """C_e' vec for every other effect e (vec: a row per row of the link tables)."""
-        return {e: _product(c.T, vec) for e, c in self.link.items()}
+        return {e: c.transposed_times(vec) if isinstance(c, _Complement) else _product(c.T, vec)
+                for e, c in self.link.items()}
+
+    def firsts(self, e: int) -> np.ndarray:
+        """The first level of e in each row of the link tables."""
+        c = self.link[e]
+        return c.first if isinstance(c, _Complement) else c.indices[c.indptr[:-1]]
 
 
 def _product(mat: sparse.spmatrix, vec: np.ndarray) -> np.ndarray:
@@ -133,21 +169,73 @@ def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
     n = int(per_row.sum())
     index = np.int32 if n < np.iinfo(np.int32).max else np.int64
     indptr = np.concatenate([[0], np.cumsum(per_row)]).astype(index)
-    data = np.ones(n) if rc.weights is None else rc.weights
-    link, unit = {}, set()
+    data = rc.weights
+    link: dict[int, Link] = {}
+    groups, unit = {}, set()
     for e in small:
         codes = rc.codes.pop(e)
-        link[e] = _runs(codes, indptr, data, sizes[e])
-        if link[e] is None:
-            link[e] = sparse.csr_matrix((data, codes.astype(index, copy=False), indptr), shape=(len(per_row), sizes[e]))
+        found = None if rc.weights is not None else _complement(codes, indptr, sizes[e], order, sizes[big])
+        if found is not None:
+            link[e], groups[e] = found
+            continue
+        found = _runs(codes, indptr, np.ones(n) if data is None else data, sizes[e])
+        if found is None:
+            data = np.ones(n) if data is None else data  # shared by every table that keeps its rows
+            found = sparse.csr_matrix((data, codes.astype(index, copy=False), indptr), shape=(len(per_row), sizes[e]))
             if rc.weights is None:
                 unit.add(e)
-        del codes
+        link[e] = found
+        groups[e] = _linked_groups(found, order, sizes[big])
+        del codes, found
     rc.weights = None
-    groups = {e: _linked_groups(link[e], order, sizes[big]) for e in small}
     gather = None if order is None else sparse.csr_matrix(
         (np.ones(len(order)), (order, np.arange(len(order)))), shape=(sizes[big], len(order)))
     return Links(big, link, pairs, groups, frozenset(unit), order, gather)
+
+
+def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray | None,
+                levels: int) -> tuple[_Complement, tuple[int, np.ndarray]] | None:
+    """C_e as a :class:`_Complement` and the connected components of e's levels, when the rows
+    x levels of e table is at most twice the row count and no row holds a level twice; else None.
+
+    Two rows holding more than half the levels each share one, so all the levels such rows hold
+    are linked; the other rows link their levels to their first, and a B level in several rows
+    links the first levels of those rows (as :func:`_linked_groups`)."""
+    rows, n = len(indptr) - 1, len(codes)
+    if rows * g > 2 * n or n == 0:
+        return None
+    grid = np.zeros(rows * g, dtype=bool)
+    flat = np.int32 if rows * g < np.iinfo(np.int32).max else np.int64
+    cuts = np.unique(np.concatenate([[0], np.searchsorted(indptr, np.arange(GRID_CHUNK, n, GRID_CHUNK)), [rows]]))
+    for lo, hi in zip(cuts[:-1], cuts[1:]):
+        cells = np.repeat(np.arange(lo, hi, dtype=flat) * g, np.diff(indptr[lo:hi + 1]))
+        cells += codes[indptr[lo]:indptr[hi]]
+        grid[cells] = True
+    if np.count_nonzero(grid) != n:
+        return None
+    grid = grid.reshape(rows, g)
+    first = grid.argmax(axis=1).astype(np.int32)
+    absent_rows, absent = np.nonzero(~grid)
+    ptr = np.concatenate([[0], np.cumsum(np.bincount(absent_rows, minlength=rows))]).astype(indptr.dtype)
+    missing = sparse.csr_matrix((np.ones(len(absent)), absent.astype(indptr.dtype), ptr), shape=(rows, g))
+    heavy = grid.sum(axis=1) * 2 > g
+    held = np.flatnonzero(grid[heavy].any(axis=0))
+    light_rows, light = np.nonzero(grid[~heavy])
+    edges = [(np.full(len(held), held[0] if len(held) else 0), held), (first[~heavy][light_rows], light)]
+    if order is not None:
+        edges.append(_split_edges(first, order, levels))
+    a, b = (np.concatenate(side) for side in zip(*edges))
+    graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+    n_comp, labels = connected_components(graph, directed=False)
+    return _Complement(missing, first), (int(n_comp), labels)
+
+
+def _split_edges(firsts: np.ndarray, order: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Edges from the first level of e of each row to that of the first row of its B level
+    (a B level that came in several runs links what its rows hold)."""
+    lead = np.empty(levels, dtype=firsts.dtype)
+    lead[order[::-1]] = firsts[::-1]  # the first row of each level writes last
+    return lead[order], firsts
 
 
 def _runs(codes: np.ndarray, indptr: np.ndarray, data: np.ndarray, g: int) -> sparse.csr_matrix | None:
@@ -187,9 +275,12 @@ class _Schur:
         diag, free = [], []
         for e, n_e in zip(self.small, self.n):
             c = links.link[e]
-            if e not in links.unit:  # with only ones, every nonzero equals its square
-                c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
-            d = n_e - c.T @ links.by_row(inv)
+            if isinstance(c, _Complement):  # ones: every nonzero equals its square
+                d = n_e - c.transposed_times(links.by_row(inv))
+            else:
+                if e not in links.unit:
+                    c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
+                d = n_e - c.T @ links.by_row(inv)
             diag.append(np.where(d > 1e-9 * n_e, d, n_e))  # a level absorbed by B: any positive scale
             n_groups, labels = links.groups[e]
             pinned = np.zeros(len(n_e), dtype=bool)
@@ -265,10 +356,7 @@ def _linked_groups(c: sparse.csr_matrix, order: np.ndarray | None, levels: int) 
     chunks = [(c.indices[start - 1:min(start + EDGE_CHUNK, n) - 1], c.indices[start:start + EDGE_CHUNK], start)
               for start in range(1, n, EDGE_CHUNK)]
     if order is not None:
-        firsts = c.indices[c.indptr[:-1]]
-        lead = np.empty(levels, dtype=firsts.dtype)
-        lead[order[::-1]] = firsts[::-1]  # the first row of each level writes last
-        chunks.append((lead[order], firsts, None))
+        chunks.append((*_split_edges(c.indices[c.indptr[:-1]], order, levels), None))
     for a, b, start in chunks:
         heads = None if start is None else (
             c.indptr[np.searchsorted(c.indptr, start):np.searchsorted(c.indptr, start + len(b))] - start)
@@ -296,12 +384,11 @@ def components(links: Links, sizes: list[int]) -> tuple[int, np.ndarray]:
     """
     if links.big in (0, 1):
         other = 1 - links.big
-        c = links.link[other]
         n_comp, lab_other = links.groups[other]
-        lab_big = lab_other[c.indices[c.indptr[:-1]]]
+        lab_big = lab_other[links.firsts(other)]
         if links.order is not None:
             lab_big = np.empty_like(lab_big, shape=sizes[links.big])
-            lab_big[links.order] = lab_other[c.indices[c.indptr[:-1]]]
+            lab_big[links.order] = lab_other[links.firsts(other)]
         labels = (lab_big, lab_other) if links.big == 0 else (lab_other, lab_big)
         return n_comp, np.concatenate(labels)
     link = links.pairs[(0, 1)]
