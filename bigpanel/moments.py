@@ -114,6 +114,11 @@ def level_cross_products(eng: Engine, spec: Spec, m: int, d: int = 0, cells: str
         return _moments(eng.one("cross-products from the level co-moments",
                                 render("level_moments", sums=sums, **tables), {"gid": gid}), m)
     names = spec.cluster_aliases
+    if spec.cluster == spec.fe[d]:  # clustered on the effect itself: a cluster per level
+        eng.execute("cluster cross-products: the level co-moments",
+                    render("level_cluster_identity", values=join([f"{_comoment(i, j)} AS q_{i}_{j}" for i, j in pairs]),
+                           **tables), {"gid": gid})
+        return _cluster_totals(eng, names, m)
     values = join([f"c.{c}_min AS {c}" for c in names] + [f"{_comoment(i, j)} AS m_{i}_{j}" for i, j in pairs])
     sets = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
     eng.execute("cluster cross-products from the level co-moments",
