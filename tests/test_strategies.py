@@ -112,7 +112,7 @@ def test_the_panel_chooses_its_strategy(to_parquet):
     assert res.solver.strategy["name"] == "pair tables"
     coef = lsdv(many, "y", X, ["unit", "period"]).params[:2]
     assert rel(res.coef, coef) < 1e-8
-    assert res.solver.raw_passes == 3  # per-level statistics, pairs of levels, cross-products
+    assert res.solver.raw_passes == 2  # per-level statistics, pairs of levels (cross-products from them)
 
 
 def test_nearly_perfect_fit_keeps_its_digits(to_parquet):

@@ -42,13 +42,16 @@ class Engine(ABC):
     Class attributes describe the implementation: ``name`` is what a result reports
     (``solver.engine``), ``title`` what messages say, ``dialect`` the sqlglot dialect its
     statements are written in (picks ``name.<dialect>.sql`` template variants), and
-    ``count_scans`` whether ``count(*)`` over a table reads its rows rather than metadata.
+    ``count_scans`` whether ``count(*)`` over a table reads its rows rather than metadata,
+    ``ordered_scans`` whether a query without ORDER BY returns the rows in the order the
+    source holds them.
     """
 
     name: ClassVar[str]
     title: ClassVar[str]
     dialect: ClassVar[str]
     count_scans: ClassVar[bool] = True
+    ordered_scans: ClassVar[bool] = False
 
     con: Any
     on_step: Callable[[str], None] | None = None
@@ -140,18 +143,20 @@ class Engine(ABC):
     def stream(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> Iterator[Any]:
         """Run a query whose (large) result is consumed batch by batch; the bytes add to
         ``bytes_to_client``. The query counts as a pass when ``raw``; its time is the time to
-        exhaust the iterator."""
+        exhaust the iterator, or to the caller's leaving it early."""
         self.statements.append(sql)
         self._announce(label, raw)
         start = time.perf_counter()
         batches = self._run(label, raw, sql, lambda: iter(self._stream(sql, params or {})), record=False)
-        while True:
-            batch = self._run(label, False, sql, lambda: next(batches, None), record=False)
-            if batch is None:
-                break
-            self.bytes_to_client += batch.nbytes
-            yield batch
-        self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
+        try:
+            while True:
+                batch = self._run(label, False, sql, lambda: next(batches, None), record=False)
+                if batch is None:
+                    break
+                self.bytes_to_client += batch.nbytes
+                yield batch
+        finally:
+            self.timings[label] = self.timings.get(label, 0.0) + time.perf_counter() - start
 
     def one(self, label: str, sql: str, params: dict | None = None, raw: bool = False) -> dict:
         """Run a query returning one row; return it as a dict."""

@@ -24,6 +24,7 @@ class DuckDBEngine(Engine):
     title: ClassVar[str] = "DuckDB"
     dialect: ClassVar[str] = "duckdb"
     count_scans: ClassVar[bool] = False  # count(*) over a Parquet view reads the footers only
+    ordered_scans: ClassVar[bool] = True  # preserve_insertion_order, DuckDB's default
 
     def _execute(self, sql: str, params: dict) -> None:
         self.con.execute(sql, params).fetchall()

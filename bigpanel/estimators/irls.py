@@ -32,7 +32,7 @@ from ..numerics.solve import Slopes, solve_slopes
 from ..passes.irls import (StepSums, check_nonnegative, create_demeaned, fetch_weights, final_pass, step_pass,
                            store_state)
 from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, RowCodes, Start,
-                             choose_strategy, code_bytes, create_views, incomplete, reduce_cells, start,
+                             choose_strategy, create_views, incomplete, reduce_cells, start,
                              value_offsets)
 from ..sql.text import join, render
 from .absorb import Projections
@@ -199,11 +199,10 @@ def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> None:
     if sample.links is None:
         big = int(np.argmax(sizes))
         n = int(rows[0].sum())
-        codes = {d: np.empty(n, dtype=np.int16 if code_bytes(g) == 2 else np.int32)
-                 for d, g in enumerate(sizes) if d != big}
+        codes = {d: np.empty(n, dtype=np.int32) for d in range(len(sizes)) if d != big}
         sample.weights = np.empty(n)
         fetch_weights(eng, spec, big, sample.weights, codes)
-        sample.links = build_links(RowCodes(big, codes, sample.weights), rows)
+        sample.links = build_links(RowCodes(big, codes, sample.weights), rows, fixed=False)
         sample.n_comp, sample.labels = code_components(sample.links, sizes)
         return
     fetch_weights(eng, spec, sample.links.big, sample.weights, {})

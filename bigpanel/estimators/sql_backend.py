@@ -6,17 +6,19 @@ import numpy as np
 import pyarrow as pa
 
 from ..engines.base import Engine
-from ..passes.bootstrap import Cells, PairSums, cluster_cells, cross_sums
-from ..passes.moments import ClusterTerm, Residuals, ols_residuals
-from ..passes.moments import (Moments, create_tilde, cross_products, level_cross_products, meat_cluster, meat_hc, residual_ss,
-                      store_effects)
-from ..numerics.project import Projection, components, solve_effects
-from ..passes.reduce import IN_ENGINE, ONE_WAY, ROW_CODES, Reduction, Start, create_views, incomplete, reduce_cells, start
+from ..model.spec import Spec
+from ..numerics.project import Projection, components, normal_times, solve_effects
 from ..numerics.rowcodes import Links, build_links, solve_codes
 from ..numerics.rowcodes import components as code_components
-from ..model.spec import Spec
-from ..sql.text import join, render
+from ..numerics.rowcodes import normal_times as code_normal_times
 from ..numerics.sweeps import sweep_in_engine
+from ..passes.bootstrap import Cells, PairSums, cluster_cells, cross_sums
+from ..passes.moments import (ClusterTerm, Moments, Residuals, create_tilde, cross_products, level_cross_products,
+                              meat_cluster, meat_hc, nested_cross_products, ols_residuals, residual_ss,
+                              solution_cross_products, store_effects)
+from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Reduction, Start, create_views, incomplete,
+                             reduce_cells, start)
+from ..sql.text import join, render
 
 ROUNDING = 1e-14  # relative rounding of a level co-moment: plain sums, then one cancelling subtraction
 TRUSTED = 1e-10  # largest predicted relative error of the cross-products' solution taken from co-moments
@@ -32,6 +34,7 @@ class SqlBackend:
         self.red: Reduction | None = None
         self.links: Links | None = None
         self.alpha: list[np.ndarray] = []
+        self.stored = False
         self.demeaned_view = False
         self.python_bytes = 0
         self.moments_from = ""
@@ -83,18 +86,22 @@ class SqlBackend:
         if red.strategy == IN_ENGINE:
             return 1, None  # conservative: P may count C - 1 parameters too many
         if red.strategy == ROW_CODES:
-            found = code_components(self.links, [len(c) for c in red.counts])
-            self.links = None  # the link tables are not needed past this point
-            return found
+            return code_components(self.links, [len(c) for c in red.counts])
         return components(red)
 
     def incomplete(self) -> dict[str, int]:
         return incomplete(self.eng, self.spec)
 
+    def _store(self) -> None:
+        """Store the solved effects in the engine (``bp_alpha_d``), once."""
+        if not self.stored:
+            store_effects(self.eng, [self.level_keys(d) for d in range(len(self.alpha))], self.alpha)
+            self.stored = True
+
     def _demeaned(self) -> None:
         """Join the solved effects back to the rows (the view ``bp_tilde``), once."""
         if not self.demeaned_view:
-            store_effects(self.eng, [self.level_keys(d) for d in range(len(self.alpha))], self.alpha)
+            self._store()
             create_tilde(self.eng, self.spec)
             self.demeaned_view = True
 
@@ -113,11 +120,53 @@ class SqlBackend:
         mom = level_cross_products(self.eng, spec, len(spec.value_aliases))
         return mom if _accurate(mom.q, red.sumsq) else None
 
+    def _from_solution(self) -> Moments | None:
+        """Two or more effects solved in numpy: the cross-products from the solved effects and
+        the level sums (:func:`bigpanel.passes.moments.solution_cross_products`), when the cells carry
+        the products of the shifted columns and the cancelling terms leave enough digits
+        (the bound of :func:`_accurate`, with each column's magnitude for t'Wt)."""
+        red = self.red
+        if red is None or red.products is None or red.strategy not in (PAIR_TABLES, ROW_CODES):
+            return None
+        if red.strategy == ROW_CODES:
+            links = self.links
+            mom, size = solution_cross_products(red.products, self.alpha, red.rhs,
+                                                lambda parts: code_normal_times(links, red.counts, parts), red.n_obs)
+        else:
+            mom, size = solution_cross_products(red.products, self.alpha, red.rhs,
+                                                lambda parts: normal_times(red, parts), red.n_obs)
+        return mom if _accurate(mom.q, size) else None
+
+    def _from_nested(self) -> Moments | None:
+        """Two or more effects, clustered errors, some effect nested in every cluster column: the
+        per-cluster cross-products from one pass grouped by that effect's levels (the nested
+        effect with most levels, whose table it never joins), when its co-moments keep their
+        digits (the bound of :func:`_accurate`)."""
+        red, spec = self.red, self.spec
+        if red is None or spec.variance != "cr1" or len(red.counts) < 2:
+            return None
+        nested = [d for d in range(len(red.counts)) if all(red.nested[d])]
+        if not nested:
+            return None
+        d = max(nested, key=lambda e: len(red.counts[e]))
+        self._store()
+        mom, squares = nested_cross_products(self.eng, spec, d, len(spec.value_aliases))
+        return mom if _accurate(mom.q, squares) else None
+
     def moments(self, proj: Projection) -> Moments:
         self.alpha = proj.alpha
         mom = self._from_levels()
         if mom is not None:
             self.moments_from = "level co-moments (no row pass)"
+            return mom
+        mom = self._from_solution()
+        self.links = None  # the link tables are not needed past this point
+        if mom is not None:
+            self.moments_from = "solved effects and level sums (no row pass)"
+            return mom
+        mom = self._from_nested()
+        if mom is not None:
+            self.moments_from = "co-moments per level of an effect the clusters nest (one row pass)"
             return mom
         self.moments_from = "demeaned rows"
         self._demeaned()

@@ -148,6 +148,12 @@ def solve_effects(red: Reduction, tol: float = 1e-8, max_iter: int = 10_000) -> 
     return Projection(system.split(x), it, change, converged)
 
 
+def normal_times(red: Reduction, parts: list[np.ndarray]) -> list[np.ndarray]:
+    """D'WD times the effects ``parts`` (one array of levels x columns per effect), on the pair tables."""
+    system = _System(red)
+    return system.split(system.matvec(np.vstack(parts)))
+
+
 def components(red: Reduction) -> tuple[int, np.ndarray]:
     """Connected components of the graph linking levels of effects 1 and 2.
 

@@ -16,22 +16,35 @@ effect's levels in one connected component of its graph with B is absorbed by
 B), so one level per such component is held at zero; without that, rounding in
 r_s would let the solution drift along the null space and lose digits. Conjugate gradients preconditioned by
 the diagonal of S (Jacobi) solve it for every value column at once, with the
-stopping rule of :mod:`bigpanel.project` applied to the columns with B
+stopping rule of :mod:`bigpanel.numerics.project` applied to the columns with B
 partialled out (||(I - P_B) t||^2 = t'Wt - sum_l (D_B'Wt)_l^2 / n_B,l). Each
 iteration is two sparse products whose nonzeros are the rows; nothing is read
 from the engine while iterating.
 
-C_e is built without a hash table: the engine returns the rows sorted by
-their B code, so they are the nonzeros of C_e in row order, its row pointers
-are the cumulative row counts of B's levels and its column indices are the
-rows' e-codes. Memory: 4 bytes per row per other effect plus one float64
-weight per row shared by every C_e (duplicate cells are kept as separate
-nonzeros; a product adds them), and the int16/int32 codes while building.
+C_e is built without a hash table: the rows come grouped by their B level
+(:func:`bigpanel.passes.reduce.fetch_codes`), so they are the nonzeros of C_e in row
+order, its row pointers are the cumulative row counts of B's levels (in the
+order the groups came) and its column indices are the rows' e-codes. Rows of
+one B level that follow each other with the same e level (a worker's years in
+one firm) become one nonzero holding their count or summed weight; other
+duplicate cells stay separate nonzeros (a product adds them). Memory: 4 bytes per
+row per other effect (the int32 codes become the column indices) plus one
+float64 weight per row shared by every C_e that was not shortened so.
+
+An unweighted C_e that holds most of its cells, each at most once (the period of a
+unit x period panel), is kept as all ones minus its missing cells M: C_e p =
+1 (1'p) - M p and C_e'v = 1 (1'v) - M'v cost the missing cells only.
+
+A product with a C_e of many levels reads and writes memory at random; it runs
+in threads (scipy's sparse products release the interpreter lock), each on some
+of the value columns, so the sums are the same as in one thread.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import os
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import sparse
@@ -42,25 +55,90 @@ from ..passes.reduce import Reduction, RowCodes
 
 DENSE_PAIRS = 1 << 26  # a pair table of two small effects is counted densely up to this many cells
 EDGE_CHUNK = 1 << 24  # rows (or edges) handled at a time while counting pair tables and components
+GRID_CHUNK = 1 << 18  # rows marked at a time in the cells table of a complement (small: the temporaries stay in cache)
+THREADED_LEVELS = 1 << 16  # a product with C_e runs its value columns in threads from this many levels of e
+RUNS_PAY = 0.75  # a link table is shortened to its runs when they are at most this share of its rows
+
+
+@dataclass(frozen=True)
+class _Complement:
+    """C_e as all ones but the cells of ``missing`` (rows x levels of e, a one per missing
+    cell); ``first`` holds the first level of e each row holds."""
+
+    missing: sparse.csr_matrix
+    first: np.ndarray
+
+    @property
+    def nbytes(self) -> int:
+        m = self.missing
+        return m.data.nbytes + m.indices.nbytes + m.indptr.nbytes + self.first.nbytes
+
+    def times(self, vec: np.ndarray) -> np.ndarray:
+        return vec.sum(axis=0) - self.missing @ vec
+
+    def transposed_times(self, vec: np.ndarray) -> np.ndarray:
+        return vec.sum(axis=0) - self.missing.T @ vec
+
+
+Link = sparse.csr_matrix | _Complement
 
 
 @dataclass(frozen=True)
 class Links:
-    """The sparse tables of the Schur system: ``link[e]`` = C_e, ``pairs[(e, f)]`` = P_ef (e < f),
-    and for every other effect e the connected components of the graph linking its levels to
-    B's (``groups[e]``: their number and a label per level of e)."""
+    """The sparse tables of the Schur system: ``link[e]`` = C_e with a row per run of rows of
+    one B level (``order``: the B level of each row; None: one row per level, in code order;
+    ``gather`` adds rows up per level), ``pairs[(e, f)]`` = P_ef (e < f), for every other
+    effect e the connected components of the graph linking its levels to B's (``groups[e]``:
+    their number and a label per level of e) and ``unit`` the effects whose C_e holds only ones."""
 
     big: int
-    link: dict[int, sparse.csr_matrix]
+    link: dict[int, Link]
     pairs: dict[tuple[int, int], sparse.csr_matrix]
     groups: dict[int, tuple[int, np.ndarray]]
-    weighted: bool
+    unit: frozenset[int]
+    order: np.ndarray | None
+    gather: sparse.csr_matrix | None
 
     @property
     def nbytes(self) -> int:
-        mats = list(self.link.values()) + list(self.pairs.values())
+        mats = [m for m in self.link.values() if not isinstance(m, _Complement)] + list(self.pairs.values())
         shared = {id(m.data): m.data.nbytes for m in mats}
-        return sum(m.indices.nbytes + m.indptr.nbytes for m in mats) + sum(shared.values())
+        dense = sum(m.nbytes for m in self.link.values() if isinstance(m, _Complement))
+        return sum(m.indices.nbytes + m.indptr.nbytes for m in mats) + sum(shared.values()) + dense
+
+    def by_row(self, values: np.ndarray) -> np.ndarray:
+        """Values per level of B (code order) repeated for each row of the link tables."""
+        return values if self.order is None else values[self.order]
+
+    def per_level(self, values: np.ndarray) -> np.ndarray:
+        """Values per row of the link tables added up per level of B (code order)."""
+        return values if self.gather is None else self.gather @ values
+
+    def times(self, parts: dict[int, np.ndarray]) -> np.ndarray:
+        """sum_e C_e parts[e] (a row per row of the link tables)."""
+        return sum(c.times(p) if isinstance(c := self.link[e], _Complement) else _product(c, p)
+                   for e, p in parts.items())
+
+    def transposed_times(self, vec: np.ndarray) -> dict[int, np.ndarray]:
+        """C_e' vec for every other effect e (vec: a row per row of the link tables)."""
+        return {e: c.transposed_times(vec) if isinstance(c, _Complement) else _product(c.T, vec)
+                for e, c in self.link.items()}
+
+    def firsts(self, e: int) -> np.ndarray:
+        """The first level of e in each row of the link tables."""
+        c = self.link[e]
+        return c.first if isinstance(c, _Complement) else c.indices[c.indptr[:-1]]
+
+
+def _product(mat: sparse.spmatrix, vec: np.ndarray) -> np.ndarray:
+    """mat @ vec (mat: C_e or its transpose); with many levels of e, the columns of vec split over threads."""
+    columns = vec.shape[1]
+    threads = min(columns, os.cpu_count() or 1)
+    if threads < 2 or min(mat.shape) < THREADED_LEVELS:
+        return mat @ vec
+    spans = np.array_split(np.arange(columns), threads)
+    with ThreadPoolExecutor(threads) as pool:
+        return np.hstack(list(pool.map(lambda cols: mat @ vec[:, cols], spans)))
 
 
 def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb: int) -> sparse.csr_matrix:
@@ -81,35 +159,119 @@ def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb:
     return table
 
 
-def build_links(rc: RowCodes, rows: list[np.ndarray]) -> Links:
-    """The tables of the module docstring from the row codes; empties ``rc`` on the way."""
+def build_links(rc: RowCodes, rows: list[np.ndarray], fixed: bool = True) -> Links:
+    """The tables of the module docstring from the row codes; empties ``rc`` on the way. With
+    ``fixed`` False (weights that change between solves, :func:`reweighted`) every C_e keeps a
+    nonzero per row holding the row weights: no runs merged, no complement."""
     sizes = [len(r) for r in rows]
     big, small = rc.big, sorted(rc.codes)
     pairs = {(e, f): _pair_table(rc.codes[e], rc.codes[f], rc.weights, sizes[e], sizes[f])
              for i, e in enumerate(small) for f in small[i + 1:]}
-    n = int(rows[big].sum())
+    order, per_row = (None, rows[big]) if rc.runs is None else rc.runs
+    n = int(per_row.sum())
     index = np.int32 if n < np.iinfo(np.int32).max else np.int64
-    indptr = np.concatenate([[0], np.cumsum(rows[big])]).astype(index)
-    data = np.ones(n) if rc.weights is None else rc.weights
-    link = {}
+    indptr = np.concatenate([[0], np.cumsum(per_row)]).astype(index)
+    data = rc.weights
+    link: dict[int, Link] = {}
+    groups, unit = {}, set()
     for e in small:
-        link[e] = sparse.csr_matrix((data, rc.codes.pop(e).astype(index), indptr), shape=(sizes[big], sizes[e]))
-    weighted = rc.weights is not None
+        codes = rc.codes.pop(e)
+        found = None if rc.weights is not None or not fixed else _complement(codes, indptr, sizes[e], order,
+                                                                              sizes[big])
+        if found is not None:
+            link[e], groups[e] = found
+            continue
+        found = _runs(codes, indptr, np.ones(n) if data is None else data, sizes[e]) if fixed else None
+        if found is None:
+            data = np.ones(n) if data is None else data  # shared by every table that keeps its rows
+            found = sparse.csr_matrix((data, codes.astype(index, copy=False), indptr), shape=(len(per_row), sizes[e]))
+            if rc.weights is None:
+                unit.add(e)
+        link[e] = found
+        groups[e] = _linked_groups(found, order, sizes[big])
+        del codes, found
     rc.weights = None
-    return Links(big, link, pairs, {e: _linked_groups(link[e]) for e in small}, weighted)
+    gather = None if order is None else sparse.csr_matrix(
+        (np.ones(len(order)), (order, np.arange(len(order)))), shape=(sizes[big], len(order)))
+    return Links(big, link, pairs, groups, frozenset(unit), order, gather)
+
+
+def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray | None,
+                levels: int) -> tuple[_Complement, tuple[int, np.ndarray]] | None:
+    """C_e as a :class:`_Complement` and the connected components of e's levels, when the rows
+    x levels of e table is at most twice the row count and no row holds a level twice; else None.
+
+    Two rows holding more than half the levels each share one, so all the levels such rows hold
+    are linked; the other rows link their levels to their first, and a B level in several rows
+    links the first levels of those rows (as :func:`_linked_groups`)."""
+    rows, n = len(indptr) - 1, len(codes)
+    if rows * g > 2 * n or n == 0:
+        return None
+    grid = np.zeros(rows * g, dtype=bool)
+    flat = np.int32 if rows * g < np.iinfo(np.int32).max else np.int64
+    cuts = np.unique(np.concatenate([[0], np.searchsorted(indptr, np.arange(GRID_CHUNK, n, GRID_CHUNK)), [rows]]))
+    for lo, hi in zip(cuts[:-1], cuts[1:]):
+        cells = np.repeat(np.arange(lo, hi, dtype=flat) * g, np.diff(indptr[lo:hi + 1]))
+        cells += codes[indptr[lo]:indptr[hi]]
+        grid[cells] = True
+    if np.count_nonzero(grid) != n:
+        return None
+    grid = grid.reshape(rows, g)
+    first = grid.argmax(axis=1).astype(np.int32)
+    absent_rows, absent = np.nonzero(~grid)
+    ptr = np.concatenate([[0], np.cumsum(np.bincount(absent_rows, minlength=rows))]).astype(indptr.dtype)
+    missing = sparse.csr_matrix((np.ones(len(absent)), absent.astype(indptr.dtype), ptr), shape=(rows, g))
+    heavy = grid.sum(axis=1) * 2 > g
+    held = np.flatnonzero(grid[heavy].any(axis=0))
+    light_rows, light = np.nonzero(grid[~heavy])
+    edges = [(np.full(len(held), held[0] if len(held) else 0), held), (first[~heavy][light_rows], light)]
+    if order is not None:
+        edges.append(_split_edges(first, order, levels))
+    a, b = (np.concatenate(side) for side in zip(*edges))
+    graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+    n_comp, labels = connected_components(graph, directed=False)
+    return _Complement(missing, first), (int(n_comp), labels)
+
+
+def _split_edges(firsts: np.ndarray, order: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Edges from the first level of e of each row to that of the first row of its B level
+    (a B level that came in several runs links what its rows hold)."""
+    lead = np.empty(levels, dtype=firsts.dtype)
+    lead[order[::-1]] = firsts[::-1]  # the first row of each level writes last
+    return lead[order], firsts
+
+
+def _runs(codes: np.ndarray, indptr: np.ndarray, data: np.ndarray, g: int) -> sparse.csr_matrix | None:
+    """C_e with each run of equal codes inside a row as one nonzero (its count or summed weight),
+    or None when the runs would not save at least a quarter of the nonzeros."""
+    n = len(codes)
+    if n == 0:
+        return None
+    new = np.empty(n, dtype=bool)
+    new[0] = True
+    np.not_equal(codes[1:], codes[:-1], out=new[1:])
+    new[indptr[:-1][indptr[:-1] < n]] = True
+    if np.count_nonzero(new) > RUNS_PAY * n:
+        return None
+    starts = np.flatnonzero(new)
+    del new
+    weights = np.add.reduceat(data, starts)
+    ptr = np.searchsorted(starts, indptr).astype(indptr.dtype)
+    return sparse.csr_matrix((weights, codes[starts].astype(indptr.dtype), ptr), shape=(len(indptr) - 1, g))
 
 
 def reweighted(links: Links, sizes: list[int], weights: np.ndarray) -> Links:
-    """``links`` with new row weights (the Poisson fit's IRLS steps): every C_e holds ``weights``
-    as its values (the array they were built around, already rewritten in place), the tables
-    P_ef of the other effects are counted again; the components do not depend on the weights."""
+    """``links`` (built with ``fixed`` False) with new row weights (the Poisson fit's IRLS steps):
+    every C_e holds ``weights`` as its values (the array they were built around, already
+    rewritten in place), the tables P_ef of the other effects are counted again; the
+    components do not depend on the weights."""
     for c in links.link.values():
         if not np.shares_memory(c.data, weights):
             c.data = weights
     small = sorted(links.link)
     pairs = {(e, f): _pair_table(links.link[e].indices, links.link[f].indices, weights, sizes[e], sizes[f])
              for i, e in enumerate(small) for f in small[i + 1:]}
-    return Links(links.big, links.link, pairs, links.groups, True)
+    return replace(links, pairs=pairs, unit=frozenset())
 
 
 def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
@@ -130,9 +292,12 @@ class _Schur:
         diag, free = [], []
         for e, n_e in zip(self.small, self.n):
             c = links.link[e]
-            if links.weighted:
-                c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
-            d = n_e - c.T @ inv  # unweighted, every nonzero is 1 and equals its square
+            if isinstance(c, _Complement):  # ones: every nonzero equals its square
+                d = n_e - c.transposed_times(links.by_row(inv))
+            else:
+                if e not in links.unit:
+                    c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
+                d = n_e - c.T @ links.by_row(inv)
             diag.append(np.where(d > 1e-9 * n_e, d, n_e))  # a level absorbed by B: any positive scale
             n_groups, labels = links.groups[e]
             pinned = np.zeros(len(n_e), dtype=bool)
@@ -146,10 +311,11 @@ class _Schur:
 
     def matvec(self, vec: np.ndarray) -> np.ndarray:
         parts = self.split(vec * self.free)
-        on_big = sum(self.links.link[e] @ p for e, p in zip(self.small, parts)) / self.nb[:, None]
+        on_big = self.links.per_level(self.links.times(dict(zip(self.small, parts)))) / self.nb[:, None]
+        back = self.links.transposed_times(self.links.by_row(on_big))
         out = []
         for i, e in enumerate(self.small):
-            acc = self.n[i][:, None] * parts[i] - self.links.link[e].T @ on_big
+            acc = self.n[i][:, None] * parts[i] - back[e]
             for j, f in enumerate(self.small):
                 if f != e:
                     acc += _pair(self.links, e, f) @ parts[j]
@@ -166,34 +332,61 @@ def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Proj
     big = links.big
     rhs_big = red.rhs[big]
     on_big = rhs_big / op.nb[:, None]
-    b = np.vstack([red.rhs[e] - links.link[e].T @ on_big for e in op.small]) * op.free
+    back = links.transposed_times(links.by_row(on_big))
+    b = np.vstack([red.rhs[e] - back[e] for e in op.small]) * op.free
     total = red.sumsq - np.einsum("ij,ij->j", rhs_big, on_big)
     x, it, change, converged = conjugate_gradients(op.matvec, op.precondition, b, total, tol, max_iter)
     alpha: list[np.ndarray] = [np.empty(0)] * len(red.counts)
     for e, part in zip(op.small, op.split(x)):
         alpha[e] = part
-    alpha[big] = (rhs_big - sum(links.link[e] @ alpha[e] for e in op.small)) / op.nb[:, None]
+    fitted = links.per_level(links.times({e: alpha[e] for e in op.small}))
+    alpha[big] = (rhs_big - fitted) / op.nb[:, None]
     return Projection(alpha, it, change, converged)
 
 
-def _linked_groups(c: sparse.csr_matrix) -> tuple[int, np.ndarray]:
-    """Connected components of the column levels of ``c`` when two are linked by sharing a row
-    level: edges between consecutive column indices inside each row connect them exactly so.
-    The edges are deduplicated chunk by chunk, so memory stays a few bytes per chunk row."""
+def normal_times(links: Links, counts: list[np.ndarray], parts: list[np.ndarray]) -> list[np.ndarray]:
+    """D'WD times the effects ``parts`` (one array of levels x columns per effect, B's included):
+    diag(n) a plus the link and pair tables times the other effects."""
+    big, small = links.big, sorted(links.link)
+    out = [counts[d][:, None] * p for d, p in enumerate(parts)]
+    out[big] = out[big] + links.per_level(links.times({e: parts[e] for e in small}))
+    back = links.transposed_times(links.by_row(parts[big]))
+    for e in small:
+        out[e] = out[e] + back[e]
+        for f in small:
+            if f != e:
+                out[e] = out[e] + _pair(links, e, f) @ parts[f]
+    return out
+
+
+def _linked_groups(c: sparse.csr_matrix, order: np.ndarray | None, levels: int) -> tuple[int, np.ndarray]:
+    """Connected components of the column levels of ``c`` when two are linked by sharing a B
+    level: edges between consecutive column indices inside each row connect them exactly so,
+    with, when a B level has several rows (``order``), an edge from the first index of each of
+    its rows to that of its first row. The edges are deduplicated chunk by chunk (in a dense
+    table of pairs when the levels are few), so memory stays a few bytes per chunk row."""
     g = c.shape[1]
-    row_start = np.zeros(len(c.indices), dtype=bool)
-    row_start[c.indptr[:-1][c.indptr[:-1] < len(c.indices)]] = True
-    dense = g * g <= DENSE_PAIRS
+    n = len(c.indices)
+    dense = g * g <= DENSE_PAIRS  # so a * g + b fits an int32
     seen = np.zeros(g * g if dense else 0, dtype=bool)
     graph = sparse.csr_matrix((g, g), dtype=bool)
-    for start in range(1, len(c.indices), EDGE_CHUNK):
-        stop = min(start + EDGE_CHUNK, len(c.indices))
-        keep = ~row_start[start:stop]
-        a, b = c.indices[start - 1:stop - 1][keep], c.indices[start:stop][keep]
-        if dense:
-            seen[a.astype(np.int64) * g + b] = True
-        else:
-            graph = graph + sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
+    chunks = [(c.indices[start - 1:min(start + EDGE_CHUNK, n) - 1], c.indices[start:start + EDGE_CHUNK], start)
+              for start in range(1, n, EDGE_CHUNK)]
+    if order is not None:
+        chunks.append((*_split_edges(c.indices[c.indptr[:-1]], order, levels), None))
+    for a, b, start in chunks:
+        heads = None if start is None else (
+            c.indptr[np.searchsorted(c.indptr, start):np.searchsorted(c.indptr, start + len(b))] - start)
+        if dense:  # the pair across two rows becomes a loop on one level, which links nothing
+            if heads is not None:
+                b = b.copy()
+                b[heads] = a[heads]
+            seen[a.astype(np.int32, copy=False) * g + b] = True
+            continue
+        keep = a != b
+        if heads is not None:
+            keep[heads] = False
+        graph = graph + sparse.csr_matrix((np.ones(int(keep.sum()), dtype=bool), (a[keep], b[keep])), shape=(g, g))
     if dense:
         a, b = np.divmod(np.flatnonzero(seen), g)
         graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
@@ -208,9 +401,11 @@ def components(links: Links, sizes: list[int]) -> tuple[int, np.ndarray]:
     """
     if links.big in (0, 1):
         other = 1 - links.big
-        c = links.link[other]
         n_comp, lab_other = links.groups[other]
-        lab_big = lab_other[c.indices[c.indptr[:-1]]]
+        lab_big = lab_other[links.firsts(other)]
+        if links.order is not None:
+            lab_big = np.empty_like(lab_big, shape=sizes[links.big])
+            lab_big[links.order] = lab_other[links.firsts(other)]
         labels = (lab_big, lab_other) if links.big == 0 else (lab_other, lab_big)
         return n_comp, np.concatenate(labels)
     link = links.pairs[(0, 1)]

@@ -18,9 +18,10 @@ import pyarrow as pa
 
 from dataclasses import dataclass
 from itertools import combinations
+from typing import Callable
 
 from ..engines.base import Engine
-from .reduce import put_one_row
+from .reduce import cell_sums, put_one_row
 from ..model.spec import Spec
 from ..sql.text import grouping_id, grouping_sets, join, render
 
@@ -109,28 +110,89 @@ def _comoment(i: int, j: int) -> str:
     return f"{product} - c.s{i} * c.s{j} / c.nw"
 
 
-def level_cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
-    """One effect: E'E as the sum over the kept levels of their co-moments, read from the cells
-    of the reduction (no pass over the rows). With clustering, every cluster column must nest
-    the effect; the per-cluster sums then go to ``bp_cluster_moments`` as in :func:`cross_products`.
+def level_cross_products(eng: Engine, spec: Spec, m: int, d: int = 0, cells: str = "bp_cells",
+                         gid: int = 0) -> Moments:
+    """E'E as the sum over the kept levels of effect d of their co-moments, read from per-level
+    ``cells`` (those of grouping set ``gid``; no pass over the rows): with one effect the cells
+    of the reduction, with more those of :func:`nested_cross_products`. With clustering, every
+    cluster column must nest effect d; the per-cluster sums then go to ``bp_cluster_moments``
+    as in :func:`cross_products`.
 
     The co-moment sum w t_i t_j - s_i s_j / n_w of a level loses digits to cancellation when the
     level's mean is far from the shift relative to its spread; the caller checks the loss.
     """
     pairs = [(i, j) for i in range(m) for j in range(i, m)]
-    keys = ", ".join(spec.key_aliases(0))
-    gid = {"gid": 0}  # one effect: the cells hold one grouping set
+    tables = {"keys": ", ".join(spec.key_aliases(d)), "cells": cells, "levels": f"bp_lev_{d + 1}"}
     if spec.variance != "cr1":
         sums = join([f"fsum({_comoment(i, j)}) AS q_{i}_{j}" for i, j in pairs])
         return _moments(eng.one("cross-products from the level co-moments",
-                                render("level_moments", sums=sums, keys=keys), gid), m)
+                                render("level_moments", sums=sums, **tables), {"gid": gid}), m)
     names = spec.cluster_aliases
-    values = join([f"c.{c}_min AS {c}" for c in names] + [f"{_comoment(i, j)} AS m_{i}_{j}" for i, j in pairs])
+    clusters = [f"c.{c}_min AS {c}" for c in names]
+    if spec.cluster == spec.fe[d] and len(names) == 1:  # clustered on the effect itself: a cluster per level
+        eng.execute("cluster cross-products: the level co-moments",
+                    render("level_cluster_identity",
+                           values=join(clusters + [f"{_comoment(i, j)} AS q_{i}_{j}" for i, j in pairs]), **tables),
+                    {"gid": gid})
+        return _cluster_totals(eng, names, m)
+    values = join(clusters + [f"{_comoment(i, j)} AS m_{i}_{j}" for i, j in pairs])
     sets = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
     eng.execute("cluster cross-products from the level co-moments",
-                render("level_cluster_moments", clusters=", ".join(names), values=values, keys=keys, sets=sets,
-                       sums=join([f"fsum(m_{i}_{j}) AS q_{i}_{j}" for i, j in pairs])), gid)
+                render("level_cluster_moments", clusters=", ".join(names), values=values, sets=sets,
+                       sums=join([f"fsum(m_{i}_{j}) AS q_{i}_{j}" for i, j in pairs]), **tables), {"gid": gid})
     return _cluster_totals(eng, names, m)
+
+
+def nested_cross_products(eng: Engine, spec: Spec, d: int, m: int) -> tuple[Moments, np.ndarray]:
+    """Clustered errors, effect d nested in every cluster column, two or more effects solved
+    and stored (``bp_alpha_*``): one pass groups the rows by d's levels, with every other
+    effect's solved levels taken off each column (u = t - sum_{e != d} a_e; sql/nested_cells.sql);
+    the demeaned rows are u minus its level mean, so each cluster's cross-products are the sums
+    of its levels' co-moments of u (:func:`level_cross_products`). Returns the moments and each
+    column's u'Wu, for the caller's check of the digits the co-moments cancel."""
+    others = [e for e in range(len(spec.fe)) if e != d]
+    cols = [f"{v} - s.m{j} - " + " - ".join(f"a{e + 1}.a{j}" for e in others) + f" AS u{j}"
+            for j, v in enumerate(spec.value_aliases)]
+    cols += spec.cluster_aliases + (["w"] if spec.weights else [])
+    joins = "\n".join(f"JOIN bp_alpha_{e + 1} AS a{e + 1} USING ({', '.join(spec.key_aliases(e))})" for e in others)
+    keys = ", ".join(spec.key_aliases(d))
+    sums = cell_sums(spec, [f"u{j}" for j in range(m)], with_products=True)
+    eng.execute("per-level sums of the columns without the other effects",
+                render("nested_cells", keys=keys, columns=join(cols), joins=joins, sums=join(sums)), raw=True)
+    mom = level_cross_products(eng, spec, m, d, "bp_nested_cells")
+    squares = eng.one("squares of the columns without the other effects",
+                      render("level_moments", sums=join([f"fsum(c.q{j}) AS q{j}" for j in range(m)]), keys=keys,
+                             cells="bp_nested_cells", levels=f"bp_lev_{d + 1}"), {"gid": 0})
+    return mom, np.array([squares[f"q{j}"] for j in range(m)], dtype=float)
+
+
+def solution_cross_products(
+    products: np.ndarray, alpha: list[np.ndarray], rhs: list[np.ndarray],
+    normal: Callable[[list[np.ndarray]], list[np.ndarray]], n: int,
+) -> tuple[Moments, np.ndarray]:
+    """E'WE of the columns demeaned by the solved effects, without a pass over the rows.
+
+    With T the shifted columns, D the dummies of every effect, A the solved effects (levels x
+    columns, per effect), R = D'WT the level sums and ``normal`` the product with D'WD, the
+    residual E = T - DA has, exactly,
+
+        E'WE = T'WT - A'R - R'A + A'(D'WD)A,
+
+    which is what the row pass sums for these A (with the largest effect eliminated exactly,
+    T'WT - sum_b s_b s_b'/n_b is the within co-moment of that effect and the rest is the
+    Schur form -a'r - r'a + a'Sa). The terms cancel, so the second result is each column's
+    magnitude: t'Wt + 2|a|'|r| + |a|'(D'WD)|a| (D'WD has no negative entry), the size of the
+    terms whose rounding errors add up, for the caller's bound.
+    """
+    m = products.shape[0]
+    applied = normal([np.hstack([a, np.abs(a)]) for a in alpha])
+    ar = sum(a.T @ r for a, r in zip(alpha, rhs))
+    ama = sum(a.T @ x[:, :m] for a, x in zip(alpha, applied))
+    q = products - ar - ar.T + ama
+    size = np.diag(products) + sum(
+        2 * np.einsum("ij,ij->j", np.abs(a), np.abs(r)) + np.einsum("ij,ij->j", np.abs(a), x[:, m:])
+        for a, r, x in zip(alpha, rhs, applied))
+    return Moments(n, (q + q.T) / 2), size
 
 
 def _cluster_totals(eng: Engine, names: list[str], m: int) -> Moments:

@@ -55,7 +55,9 @@ class Reduction:
     each shifted value column per level (levels x columns), ``cross[(d, e)]``
     the sparse table of rows per pair of levels of effects d < e (pair-table
     strategy only, else None), and
-    ``sumsq`` each shifted column's sum of squares over the sample. ``strategy``
+    ``sumsq`` each shifted column's sum of squares over the sample and, when the cells carry
+    them (:func:`carries_products`) with two or more effects, ``products`` every product of two
+    shifted columns summed over the sample (T'WT, columns x columns). ``strategy``
     names how the effects are partialled out (:func:`choose_strategy`); ``codes``
     holds the per-row level codes of the row-codes strategy.
     """
@@ -72,6 +74,7 @@ class Reduction:
     strategy: str = PAIR_TABLES
     codes: RowCodes | None = None
     plan: Plan | None = None
+    products: np.ndarray | None = None
 
     @property
     def singletons(self) -> int:
@@ -80,17 +83,19 @@ class Reduction:
 
 @dataclass
 class RowCodes:
-    """The sample rows sorted by the level code of effect ``big`` (the one with most levels):
-    ``codes[d]`` holds every row's level code of each other effect d (int16 or int32), and
-    ``weights`` the rows' weights (None: unweighted).
+    """The sample rows in runs that each hold rows of one level of effect ``big`` (the one with
+    most levels): ``codes[d]`` holds every row's level code of each other effect d (int32),
+    ``weights`` the rows' weights (None: unweighted), and ``runs`` the level of ``big`` of each
+    run and its row count (None: one run per level, in code order).
 
-    Mutable on purpose: :mod:`bigpanel.rowcodes` empties it once it has built its
+    Mutable on purpose: :mod:`bigpanel.numerics.rowcodes` empties it once it has built its
     link tables, so that the row arrays do not outlive their use.
     """
 
     big: int
     codes: dict[int, np.ndarray]
     weights: np.ndarray | None
+    runs: tuple[np.ndarray, np.ndarray] | None = None
 
 
 def _complete(spec: Spec) -> str:
@@ -284,17 +289,11 @@ class Plan:
                 "pairs_at_most": self.pair_bounds, "python_bytes_planned": self.python_bytes}
 
 
-def code_bytes(levels: int) -> int:
-    """Bytes per row of one effect's level code: int16 up to 32,767 levels, else int32."""
-    return 2 if levels <= 32_767 else 4
-
-
-def row_code_bytes(rows: int, levels: list[int], weighted: bool) -> int:
-    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.rowcodes`): the codes of
-    every effect but the largest, then one sparse link table per other effect (int32 indices)
-    sharing one float64 weight per row."""
-    fetch = sum(code_bytes(g) for g in sorted(levels)[:-1]) + (8 if weighted else 0)
-    return rows * (fetch + 4 * (len(levels) - 1) + 8)
+def row_code_bytes(rows: int, levels: list[int]) -> int:
+    """Peak numpy bytes of the row-codes strategy (see :mod:`bigpanel.numerics.rowcodes`): an int32
+    level code per row of every effect but the largest (the link tables' column indices, held
+    from the fetch on) and one float64 weight per row, shared by the link tables."""
+    return rows * (4 * (len(levels) - 1) + 8)
 
 
 def choose_strategy(spec: Spec, levels: list[int], rows: int, budget: int, forced: str | None = None) -> Plan:
@@ -314,7 +313,7 @@ def choose_strategy(spec: Spec, levels: list[int], rows: int, budget: int, force
     worst = max(bounds, key=lambda de: bounds[de])
     pair_name = f"{names[worst[0]]} x {names[worst[1]]}"
     cells = CELL_BYTES * sum(min(b, rows) for b in bounds.values())
-    codes = row_code_bytes(rows, levels, bool(spec.weights))
+    codes = row_code_bytes(rows, levels)
     per_row = bounds[worst] / rows
     if per_row * COMPRESSION <= 1 and cells <= budget:
         strategy, planned = PAIR_TABLES, cells
@@ -369,15 +368,22 @@ def products(spec: Spec) -> list[tuple[int, int]]:
     return [(i, j) for i in range(m) for j in range(i + 1, m)]
 
 
-def _cell_sums(spec: Spec) -> list[str]:
-    """Per level: weight, sums and squares of the shifted columns, cluster ranges; with one
-    effect also every product of two shifted columns (the per-level co-moments)."""
+def carries_products(spec: Spec) -> bool:
+    """Whether the cells carry every product of two shifted columns: with one effect (the level
+    co-moments), and with more unless the errors are clustered (the demeaned cross-products
+    then follow from the solved effects, :func:`bigpanel.passes.moments.solution_cross_products`; a
+    clustered fit needs per-cluster sums of rows anyway)."""
+    return len(spec.fe) == 1 or spec.variance != "cr1"
+
+
+def cell_sums(spec: Spec, t: list[str], with_products: bool) -> list[str]:
+    """Per level: weight, the sums and squares of the value expressions ``t`` (one per value
+    column), cluster ranges and, ``with_products``, every product of two of them."""
     w = spec.w
-    t = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
     sums = ["sum(w) AS nw" if spec.weights else "count(*) AS nw"]
     sums += [f"sum({w}{tj}) AS s{j}" for j, tj in enumerate(t)]
     sums += [f"sum({w}{tj} * {tj}) AS q{j}" for j, tj in enumerate(t)]
-    if len(spec.fe) == 1:
+    if with_products:
         sums += [f"sum({w}{t[i]} * {t[j]}) AS p{i}_{j}" for i, j in products(spec)]
     for c in spec.cluster_aliases:
         sums += [f"min({c}) AS {c}_min", f"max({c}) AS {c}_max"]
@@ -389,7 +395,8 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
     level tables, the strategy (:func:`choose_strategy`) and what it fetches to numpy."""
     k = len(spec.fe)
     all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
-    sums = join(_cell_sums(spec))
+    shifted = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
+    sums = join(cell_sums(spec, shifted, carries_products(spec)))
     groups = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
     filters = ""
     rounds = 0
@@ -432,11 +439,25 @@ def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarr
 def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray]:
     """Effect d's per-level sums (levels x columns) and the columns' total sums of squares."""
     m = len(spec.value_aliases)
-    sums = join([f"sum(c.s{j}) AS s{j}" for j in range(m)] + [f"sum(c.q{j}) AS q{j}" for j in range(m)], ", ")
+    sums = join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", ")
     sql = render("level_sums", sums=sums, table=f"bp_lev_{d + 1}", keys=", ".join(spec.key_aliases(d)))
     tab = eng.arrow("level sums", sql, {"gid": _gid(spec, (d,))})
     rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
     return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
+
+
+def _products(eng: Engine, spec: Spec) -> np.ndarray:
+    """T'WT: every product of two shifted columns summed over the sample, from the cells of
+    the first effect (compensated sums over its levels)."""
+    m = len(spec.value_aliases)
+    pairs = [(i, j) for i in range(m) for j in range(i, m)]
+    sums = join([f"fsum(c.{f'q{i}' if i == j else f'p{i}_{j}'}) AS t_{i}_{j}" for i, j in pairs])
+    sql = render("level_moments", sums=sums, keys=", ".join(spec.key_aliases(0)), cells="bp_cells", levels="bp_lev_1")
+    row = eng.one("products of the shifted columns", sql, {"gid": _gid(spec, (0,))})
+    out = np.zeros((m, m))
+    for i, j in pairs:
+        out[i, j] = out[j, i] = row[f"t_{i}_{j}"]
+    return out
 
 
 def _level_joins(spec: Spec) -> str:
@@ -465,33 +486,71 @@ def pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple
     return cross
 
 
-def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
-    """One pass: every sample row's level code of each effect but the largest (int16 or int32)
-    and its weight, ordered by the largest effect's code (the engine sorts, and spills if it
-    must), so that the rows are already grouped as :mod:`bigpanel.rowcodes` needs them.
+EXTRA_RUNS = 64  # runs beyond one per level that the unsorted row codes may hold (1/64 of the levels, at least 64)
 
-    The rows stream into preallocated arrays: the peak is the arrays plus one batch.
+
+def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
+    """Every sample row's int32 level code of each effect but the largest, and its weight, in
+    runs of rows of one level of the largest effect, as :mod:`bigpanel.numerics.rowcodes` needs them.
+
+    Panels are mostly stored unit by unit, so on an engine that returns rows about in the
+    order it reads them the codes first stream unsorted, with the largest effect's code
+    beside them to find the runs; a level may come in a few runs (the engine's threads hand
+    over batches a little out of order). Only when the runs outnumber the levels by more
+    than a 64th (the stream stops there) does a second pass ask the engine to sort the rows
+    by that code (it spills if it must); an engine without that order sorts at once. The
+    rows stream into preallocated arrays: the peak is the arrays plus one batch.
     """
     big = int(np.argmax(levels))
+    if eng.ordered_scans:
+        found = _stream_codes(eng, spec, big, levels, n_obs, sort=False)
+        if found is not None:
+            return found
+    found = _stream_codes(eng, spec, big, levels, n_obs, sort=True)
+    if found is None:
+        raise RuntimeError("the rows sorted by the engine came back out of order")
+    return found
+
+
+def _stream_codes(eng: Engine, spec: Spec, big: int, levels: list[int], n_obs: int, sort: bool) -> RowCodes | None:
+    """One pass of :func:`fetch_codes`; None as soon as the runs are too many."""
     small = [d for d in range(len(levels)) if d != big]
-    kinds = {d: ("SMALLINT", np.int16) if code_bytes(levels[d]) == 2 else ("INTEGER", np.int32) for d in small}
-    cols = [f"CAST(l{d + 1}.code AS {kinds[d][0]}) AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
-    codes = {d: np.empty(n_obs, dtype=kinds[d][1]) for d in small}
+    cols = [f"l{d + 1}.code AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
+    cols.append(f"l{big + 1}.code AS c{big + 1}")
+    sql = render("row_codes", codes=join(cols), joins=_level_joins(spec),
+                 order=f"\nORDER BY l{big + 1}.code" if sort else "")
+    codes = {d: np.empty(n_obs, dtype=np.int32) for d in small}
     weights = np.empty(n_obs) if spec.weights else None
-    sql = render("row_codes", codes=join(cols), joins=_level_joins(spec), order=f"l{big + 1}.code")
-    at = 0
-    for batch in eng.stream("level codes of every row", sql, raw=True):
+    heads: list[np.ndarray] = []
+    starts: list[np.ndarray] = []
+    n_runs, last, at = 0, -1, 0
+    most = levels[big] + max(EXTRA_RUNS, levels[big] // EXTRA_RUNS)
+    for batch in eng.stream("level codes of every row" + (", sorted" if sort else ""), sql, raw=True):
         size = batch.num_rows
         if at + size > n_obs:
             raise RuntimeError("the row-codes pass returned more rows than the levels hold")
+        if size == 0:
+            continue
         for j, d in enumerate(small):
             codes[d][at:at + size] = batch.column(j).to_numpy()
         if weights is not None:
             weights[at:at + size] = batch.column(len(small)).to_numpy()
-        at += size
+        b = batch.column(batch.num_columns - 1).to_numpy()
+        first = np.flatnonzero(b[1:] != b[:-1]) + 1
+        if b[0] != last:
+            first = np.concatenate([[0], first])
+        n_runs += len(first)
+        if n_runs > most:
+            return None
+        heads.append(b[first].astype(np.int32))
+        starts.append(first + at)
+        last, at = b[-1], at + size
     if at != n_obs:
         raise RuntimeError(f"the row-codes pass returned {at:,} rows, the levels hold {n_obs:,}")
-    return RowCodes(big, codes, weights)
+    head = np.concatenate(heads) if heads else np.zeros(0, dtype=np.int32)
+    if len(head) == levels[big] and np.array_equal(head, np.arange(levels[big])):
+        return RowCodes(big, codes, weights)
+    return RowCodes(big, codes, weights, (head, np.diff(np.concatenate(starts + [[n_obs]]))))
 
 
 def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, forced: str | None) -> Reduction:
@@ -506,5 +565,6 @@ def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, f
             else choose_strategy(spec, [len(c) for c in counts], n_obs, budget, forced))
     cross = pair_tables(eng, spec, list(counts)) if plan.strategy == PAIR_TABLES else None
     codes = fetch_codes(eng, spec, [len(c) for c in counts], n_obs) if plan.strategy == ROW_CODES else None
+    totals = _products(eng, spec) if k > 1 and carries_products(spec) else None
     return Reduction(list(counts), list(rows), [s[0] for s in sums], cross, list(nested), sums[0][1],
-                     n_complete, n_obs, rounds, plan.strategy, codes, plan)
+                     n_complete, n_obs, rounds, plan.strategy, codes, plan, totals)

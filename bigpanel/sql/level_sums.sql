@@ -1,8 +1,7 @@
 -- Per level of one effect (in code order): the weighted sums and squares of the shifted
--- columns, from the cells of a grouping set that holds the effect.
+-- columns, from the cells of the grouping set that holds the effect (one row per level).
 SELECT l.code, {{sums}}
 FROM bp_cells AS c
 JOIN {{table}} AS l USING ({{keys}})
 WHERE c.gid = $gid
-GROUP BY l.code
 ORDER BY l.code

@@ -69,45 +69,42 @@ GROUP BY GROUPING SETS ((f1_1), (f2_1), (f3_1))
 ;
 -- params: {"gid": 3, "min_count": 1}
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE (a 128-bit integer would reach numpy as Python objects, one by
+-- one). The cells of the effect's grouping set hold one row per level.
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
-       n,
-       nw
-FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
-      FROM bp_cells
-      WHERE gid = $gid
-      GROUP BY f1_1
-      HAVING sum(n) >= $min_count) AS lv
+       CAST(n AS BIGINT) AS n,
+       CAST(nw AS DOUBLE) AS nw
+FROM bp_cells
+WHERE gid = $gid AND n >= $min_count
 ;
 -- params: {"gid": 5, "min_count": 1}
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE (a 128-bit integer would reach numpy as Python objects, one by
+-- one). The cells of the effect's grouping set hold one row per level.
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
-       n,
-       nw
-FROM (SELECT f2_1, sum(n) AS n, sum(nw) AS nw
-      FROM bp_cells
-      WHERE gid = $gid
-      GROUP BY f2_1
-      HAVING sum(n) >= $min_count) AS lv
+       CAST(n AS BIGINT) AS n,
+       CAST(nw AS DOUBLE) AS nw
+FROM bp_cells
+WHERE gid = $gid AND n >= $min_count
 ;
 -- params: {"gid": 6, "min_count": 1}
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE (a 128-bit integer would reach numpy as Python objects, one by
+-- one). The cells of the effect's grouping set hold one row per level.
 CREATE OR REPLACE TEMP TABLE bp_lev_3 AS
 SELECT f3_1,
        CAST(row_number() OVER (ORDER BY f3_1) - 1 AS INTEGER) AS code,
-       n,
-       nw
-FROM (SELECT f3_1, sum(n) AS n, sum(nw) AS nw
-      FROM bp_cells
-      WHERE gid = $gid
-      GROUP BY f3_1
-      HAVING sum(n) >= $min_count) AS lv
+       CAST(n AS BIGINT) AS n,
+       CAST(nw AS DOUBLE) AS nw
+FROM bp_cells
+WHERE gid = $gid AND n >= $min_count
 ;
 -- params: {}
 -- Rows covered by the levels of one effect.
@@ -130,89 +127,80 @@ SELECT count(*) AS n_single FROM bp_lev_3 WHERE n = 1
 SELECT nw, n FROM bp_lev_1 ORDER BY code
 ;
 -- params: {"gid": 3}
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
-      WHERE c.gid = $gid
-      GROUP BY f1_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl1_min = c.cl1_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
+WHERE c.gid = $gid
 ;
 -- params: {"gid": 3}
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl2_min) AS lo, max(c.cl2_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
-      WHERE c.gid = $gid
-      GROUP BY f1_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl2_min = c.cl2_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
+WHERE c.gid = $gid
 ;
 -- params: {}
 -- The levels of one effect in code order (keys or row counts).
 SELECT nw, n FROM bp_lev_2 ORDER BY code
 ;
 -- params: {"gid": 5}
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
-      WHERE c.gid = $gid
-      GROUP BY f2_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl1_min = c.cl1_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
+WHERE c.gid = $gid
 ;
 -- params: {"gid": 5}
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl2_min) AS lo, max(c.cl2_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
-      WHERE c.gid = $gid
-      GROUP BY f2_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl2_min = c.cl2_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
+WHERE c.gid = $gid
 ;
 -- params: {}
 -- The levels of one effect in code order (keys or row counts).
 SELECT nw, n FROM bp_lev_3 ORDER BY code
 ;
 -- params: {"gid": 6}
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1)
-      WHERE c.gid = $gid
-      GROUP BY f3_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl1_min = c.cl1_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1)
+WHERE c.gid = $gid
 ;
 -- params: {"gid": 6}
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl2_min) AS lo, max(c.cl2_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1)
-      WHERE c.gid = $gid
-      GROUP BY f3_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl2_min = c.cl2_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1)
+WHERE c.gid = $gid
 ;
 -- params: {"gid": 3}
 -- Per level of one effect (in code order): the weighted sums and squares of the shifted
--- columns, from the cells of a grouping set that holds the effect.
-SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
+-- columns, from the cells of the grouping set that holds the effect (one row per level).
+SELECT l.code, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
 JOIN bp_lev_1 AS l USING (f1_1)
 WHERE c.gid = $gid
-GROUP BY l.code
 ORDER BY l.code
 ;
 -- params: {"gid": 5}
 -- Per level of one effect (in code order): the weighted sums and squares of the shifted
--- columns, from the cells of a grouping set that holds the effect.
-SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
+-- columns, from the cells of the grouping set that holds the effect (one row per level).
+SELECT l.code, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
 JOIN bp_lev_2 AS l USING (f2_1)
 WHERE c.gid = $gid
-GROUP BY l.code
 ORDER BY l.code
 ;
 -- params: {"gid": 6}
 -- Per level of one effect (in code order): the weighted sums and squares of the shifted
--- columns, from the cells of a grouping set that holds the effect.
-SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
+-- columns, from the cells of the grouping set that holds the effect (one row per level).
+SELECT l.code, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
 JOIN bp_lev_3 AS l USING (f3_1)
 WHERE c.gid = $gid
-GROUP BY l.code
 ORDER BY l.code
 ;
 -- params: {}

@@ -38,19 +38,19 @@ CREATE TEMPORARY TABLE bp_cells AS SELECT f1_1, f2_1, f3_1, GROUPING(f1_1, f2_1,
 ;
 DROP TABLE IF EXISTS bp_lev_1
 ;
-CREATE TEMPORARY TABLE bp_lev_1 AS SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f1_1 HAVING SUM(n) >= %(min_count)s) AS lv
+CREATE TEMPORARY TABLE bp_lev_1 AS SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1) - 1 AS INT) AS code, CAST(n AS BIGINT) AS n, CAST(nw AS DOUBLE PRECISION) AS nw FROM bp_cells WHERE gid = %(gid)s AND n >= %(min_count)s
 ;
 -- params: {"gid": 5, "min_count": 1}
 ;
 DROP TABLE IF EXISTS bp_lev_2
 ;
-CREATE TEMPORARY TABLE bp_lev_2 AS SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f2_1 HAVING SUM(n) >= %(min_count)s) AS lv
+CREATE TEMPORARY TABLE bp_lev_2 AS SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1) - 1 AS INT) AS code, CAST(n AS BIGINT) AS n, CAST(nw AS DOUBLE PRECISION) AS nw FROM bp_cells WHERE gid = %(gid)s AND n >= %(min_count)s
 ;
 -- params: {"gid": 6, "min_count": 1}
 ;
 DROP TABLE IF EXISTS bp_lev_3
 ;
-CREATE TEMPORARY TABLE bp_lev_3 AS SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = %(gid)s GROUP BY f3_1 HAVING SUM(n) >= %(min_count)s) AS lv
+CREATE TEMPORARY TABLE bp_lev_3 AS SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1) - 1 AS INT) AS code, CAST(n AS BIGINT) AS n, CAST(nw AS DOUBLE PRECISION) AS nw FROM bp_cells WHERE gid = %(gid)s AND n >= %(min_count)s
 ;
 -- params: {}
 ;
@@ -74,11 +74,11 @@ SELECT nw, n FROM bp_lev_1 ORDER BY code
 ;
 -- params: {"gid": 3}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = %(gid)s GROUP BY f1_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl1_min = c.cl1_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = %(gid)s
 ;
 -- params: {"gid": 3}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = %(gid)s GROUP BY f1_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl2_min = c.cl2_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = %(gid)s
 ;
 -- params: {}
 ;
@@ -86,11 +86,11 @@ SELECT nw, n FROM bp_lev_2 ORDER BY code
 ;
 -- params: {"gid": 5}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = %(gid)s GROUP BY f2_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl1_min = c.cl1_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = %(gid)s
 ;
 -- params: {"gid": 5}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = %(gid)s GROUP BY f2_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl2_min = c.cl2_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = %(gid)s
 ;
 -- params: {}
 ;
@@ -98,23 +98,23 @@ SELECT nw, n FROM bp_lev_3 ORDER BY code
 ;
 -- params: {"gid": 6}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = %(gid)s GROUP BY f3_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl1_min = c.cl1_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = %(gid)s
 ;
 -- params: {"gid": 6}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = %(gid)s GROUP BY f3_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl2_min = c.cl2_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = %(gid)s
 ;
 -- params: {"gid": 3}
 ;
-SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_1 AS l USING (f1_1) WHERE c.gid = %(gid)s GROUP BY l.code ORDER BY l.code
+SELECT l.code, c.s0, c.s1, c.q0, c.q1 FROM bp_cells AS c JOIN bp_lev_1 AS l USING (f1_1) WHERE c.gid = %(gid)s ORDER BY l.code
 ;
 -- params: {"gid": 5}
 ;
-SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_2 AS l USING (f2_1) WHERE c.gid = %(gid)s GROUP BY l.code ORDER BY l.code
+SELECT l.code, c.s0, c.s1, c.q0, c.q1 FROM bp_cells AS c JOIN bp_lev_2 AS l USING (f2_1) WHERE c.gid = %(gid)s ORDER BY l.code
 ;
 -- params: {"gid": 6}
 ;
-SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_3 AS l USING (f3_1) WHERE c.gid = %(gid)s GROUP BY l.code ORDER BY l.code
+SELECT l.code, c.s0, c.s1, c.q0, c.q1 FROM bp_cells AS c JOIN bp_lev_3 AS l USING (f3_1) WHERE c.gid = %(gid)s ORDER BY l.code
 ;
 -- params: {}
 ;

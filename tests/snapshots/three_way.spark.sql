@@ -35,17 +35,17 @@ SELECT f1_1, f2_1, f3_1, GROUPING_ID(f1_1, f2_1, f3_1) AS gid, COUNT(*) AS n, SU
 -- params: {"gid": 3, "min_count": 1}
 ;
 -- materialised as bp_lev_1
-SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f1_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f1_1 HAVING SUM(n) >= :min_count) AS lv
+SELECT f1_1, CAST(ROW_NUMBER() OVER (ORDER BY f1_1 NULLS LAST) - 1 AS INT) AS code, CAST(n AS BIGINT) AS n, CAST(nw AS DOUBLE) AS nw FROM bp_cells WHERE gid = :gid AND n >= :min_count
 ;
 -- params: {"gid": 5, "min_count": 1}
 ;
 -- materialised as bp_lev_2
-SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f2_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f2_1 HAVING SUM(n) >= :min_count) AS lv
+SELECT f2_1, CAST(ROW_NUMBER() OVER (ORDER BY f2_1 NULLS LAST) - 1 AS INT) AS code, CAST(n AS BIGINT) AS n, CAST(nw AS DOUBLE) AS nw FROM bp_cells WHERE gid = :gid AND n >= :min_count
 ;
 -- params: {"gid": 6, "min_count": 1}
 ;
 -- materialised as bp_lev_3
-SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1 NULLS LAST) - 1 AS INT) AS code, n, nw FROM (SELECT f3_1, SUM(n) AS n, SUM(nw) AS nw FROM bp_cells WHERE gid = :gid GROUP BY f3_1 HAVING SUM(n) >= :min_count) AS lv
+SELECT f3_1, CAST(ROW_NUMBER() OVER (ORDER BY f3_1 NULLS LAST) - 1 AS INT) AS code, CAST(n AS BIGINT) AS n, CAST(nw AS DOUBLE) AS nw FROM bp_cells WHERE gid = :gid AND n >= :min_count
 ;
 -- params: {}
 ;
@@ -69,11 +69,11 @@ SELECT nw, n FROM bp_lev_1 ORDER BY code NULLS LAST
 ;
 -- params: {"gid": 3}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = :gid GROUP BY f1_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl1_min = c.cl1_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = :gid
 ;
 -- params: {"gid": 3}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = :gid GROUP BY f1_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl2_min = c.cl2_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1) WHERE c.gid = :gid
 ;
 -- params: {}
 ;
@@ -81,11 +81,11 @@ SELECT nw, n FROM bp_lev_2 ORDER BY code NULLS LAST
 ;
 -- params: {"gid": 5}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = :gid GROUP BY f2_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl1_min = c.cl1_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = :gid
 ;
 -- params: {"gid": 5}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = :gid GROUP BY f2_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl2_min = c.cl2_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1) WHERE c.gid = :gid
 ;
 -- params: {}
 ;
@@ -93,23 +93,23 @@ SELECT nw, n FROM bp_lev_3 ORDER BY code NULLS LAST
 ;
 -- params: {"gid": 6}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl1_min) AS lo, MAX(c.cl1_max) AS hi FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = :gid GROUP BY f3_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl1_min = c.cl1_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = :gid
 ;
 -- params: {"gid": 6}
 ;
-SELECT COALESCE(BOOL_AND(lo = hi), FALSE) AS nested FROM (SELECT MIN(c.cl2_min) AS lo, MAX(c.cl2_max) AS hi FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = :gid GROUP BY f3_1) AS lv
+SELECT COALESCE(BOOL_AND(c.cl2_min = c.cl2_max), FALSE) AS nested FROM bp_cells AS c JOIN bp_lev_3 USING (f3_1) WHERE c.gid = :gid
 ;
 -- params: {"gid": 3}
 ;
-SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_1 AS l USING (f1_1) WHERE c.gid = :gid GROUP BY l.code ORDER BY l.code NULLS LAST
+SELECT l.code, c.s0, c.s1, c.q0, c.q1 FROM bp_cells AS c JOIN bp_lev_1 AS l USING (f1_1) WHERE c.gid = :gid ORDER BY l.code NULLS LAST
 ;
 -- params: {"gid": 5}
 ;
-SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_2 AS l USING (f2_1) WHERE c.gid = :gid GROUP BY l.code ORDER BY l.code NULLS LAST
+SELECT l.code, c.s0, c.s1, c.q0, c.q1 FROM bp_cells AS c JOIN bp_lev_2 AS l USING (f2_1) WHERE c.gid = :gid ORDER BY l.code NULLS LAST
 ;
 -- params: {"gid": 6}
 ;
-SELECT l.code, SUM(c.s0) AS s0, SUM(c.s1) AS s1, SUM(c.q0) AS q0, SUM(c.q1) AS q1 FROM bp_cells AS c JOIN bp_lev_3 AS l USING (f3_1) WHERE c.gid = :gid GROUP BY l.code ORDER BY l.code NULLS LAST
+SELECT l.code, c.s0, c.s1, c.q0, c.q1 FROM bp_cells AS c JOIN bp_lev_3 AS l USING (f3_1) WHERE c.gid = :gid ORDER BY l.code NULLS LAST
 ;
 -- params: {}
 ;

@@ -55,31 +55,29 @@ GROUP BY GROUPING SETS ((f1_1), (f2_1))
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE (a 128-bit integer would reach numpy as Python objects, one by
+-- one). The cells of the effect's grouping set hold one row per level.
 CREATE OR REPLACE TEMP TABLE bp_lev_1 AS
 SELECT f1_1,
        CAST(row_number() OVER (ORDER BY f1_1) - 1 AS INTEGER) AS code,
-       n,
-       nw
-FROM (SELECT f1_1, sum(n) AS n, sum(nw) AS nw
-      FROM bp_cells
-      WHERE gid = $gid
-      GROUP BY f1_1
-      HAVING sum(n) >= $min_count) AS lv
+       CAST(n AS BIGINT) AS n,
+       CAST(nw AS DOUBLE) AS nw
+FROM bp_cells
+WHERE gid = $gid AND n >= $min_count
 
 ;
 -- The levels of one effect with a dense integer code in key order, the row
--- count and the total weight (the row count again when unweighted).
+-- count and the total weight (the row count again when unweighted), as BIGINT
+-- and DOUBLE (a 128-bit integer would reach numpy as Python objects, one by
+-- one). The cells of the effect's grouping set hold one row per level.
 CREATE OR REPLACE TEMP TABLE bp_lev_2 AS
 SELECT f2_1,
        CAST(row_number() OVER (ORDER BY f2_1) - 1 AS INTEGER) AS code,
-       n,
-       nw
-FROM (SELECT f2_1, sum(n) AS n, sum(nw) AS nw
-      FROM bp_cells
-      WHERE gid = $gid
-      GROUP BY f2_1
-      HAVING sum(n) >= $min_count) AS lv
+       CAST(n AS BIGINT) AS n,
+       CAST(nw AS DOUBLE) AS nw
+FROM bp_cells
+WHERE gid = $gid AND n >= $min_count
 
 ;
 -- Rows covered by the levels of one effect.
@@ -98,55 +96,52 @@ SELECT count(*) AS n_single FROM bp_lev_2 WHERE n = 1
 SELECT nw, n FROM bp_lev_1 ORDER BY code
 
 ;
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
-      WHERE c.gid = $gid
-      GROUP BY f1_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl1_min = c.cl1_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_1 USING (f1_1)
+WHERE c.gid = $gid
 
 ;
 -- The levels of one effect in code order (keys or row counts).
 SELECT nw, n FROM bp_lev_2 ORDER BY code
 
 ;
--- Whether every kept level of one effect lies in a single value of a cluster column.
-SELECT coalesce(bool_and(lo = hi), FALSE) AS nested
-FROM (SELECT min(c.cl1_min) AS lo, max(c.cl1_max) AS hi
-      FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
-      WHERE c.gid = $gid
-      GROUP BY f2_1) AS lv
+-- Whether every kept level of one effect lies in a single value of a cluster column
+-- (the cells of the effect's grouping set hold one row per level).
+SELECT coalesce(bool_and(c.cl1_min = c.cl1_max), FALSE) AS nested
+FROM bp_cells AS c JOIN bp_lev_2 USING (f2_1)
+WHERE c.gid = $gid
 
 ;
 -- Per level of one effect (in code order): the weighted sums and squares of the shifted
--- columns, from the cells of a grouping set that holds the effect.
-SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
+-- columns, from the cells of the grouping set that holds the effect (one row per level).
+SELECT l.code, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
 JOIN bp_lev_1 AS l USING (f1_1)
 WHERE c.gid = $gid
-GROUP BY l.code
 ORDER BY l.code
 
 ;
 -- Per level of one effect (in code order): the weighted sums and squares of the shifted
--- columns, from the cells of a grouping set that holds the effect.
-SELECT l.code, sum(c.s0) AS s0, sum(c.s1) AS s1, sum(c.q0) AS q0, sum(c.q1) AS q1
+-- columns, from the cells of the grouping set that holds the effect (one row per level).
+SELECT l.code, c.s0, c.s1, c.q0, c.q1
 FROM bp_cells AS c
 JOIN bp_lev_2 AS l USING (f2_1)
 WHERE c.gid = $gid
-GROUP BY l.code
 ORDER BY l.code
 
 ;
 -- The row-codes strategy: every sample row's integer level code of each effect
--- but the largest (and its weight), nothing else, ordered by the largest effect's
--- code; the projections iterate on these in numpy. The inner joins keep exactly
--- the sample rows whose levels survived singleton removal.
-SELECT CAST(l2.code AS SMALLINT) AS c2
+-- (and its weight), nothing else, the largest effect's code last; the projections
+-- iterate on these in numpy, with the rows grouped by that code (in the order the
+-- engine reads them, or sorted by it when that order does not group them). The
+-- inner joins keep exactly the sample rows whose levels survived singleton removal.
+SELECT l2.code AS c2,
+       l1.code AS c1
 FROM bp_sample
 JOIN bp_lev_1 AS l1 USING (f1_1)
 JOIN bp_lev_2 AS l2 USING (f2_1)
-ORDER BY l1.code
 
 ;
 -- The levels of one effect in code order (keys or row counts).

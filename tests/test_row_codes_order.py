@@ -1,0 +1,139 @@
+"""The row-codes pass without the engine's sort: rows grouped by the largest effect in the
+order the file holds them, levels split over a few runs, rows that are not grouped at all,
+link tables shortened to runs of one level, and the threaded products; every fit against
+statsmodels LSDV (OLS with the full-rank dummy block)."""
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import sparse
+from scipy.sparse.csgraph import connected_components
+
+import bigpanel
+import bigpanel.numerics.rowcodes as rowcodes
+from bigpanel.passes.reduce import RowCodes
+from conftest import rel
+from test_strategies import X, sm_ref, unit_period_panel
+
+SORTED = "level codes of every row, sorted"
+
+
+def fit_codes(path: str, fe: list[str], vcov: str = "classical", cluster: str | None = None):
+    return bigpanel.fit(path, y="y", x=X, fe=fe, variance=vcov, cluster=cluster, strategy="row codes", tol=1e-12)
+
+
+@pytest.mark.parametrize("layout", ["units reversed", "two units split", "period by period"])
+def test_row_order_of_the_file(to_parquet, layout):
+    # The unit (the largest effect) comes in runs whose order is not the code order, two
+    # units come in two runs each, or the file is written period by period (no runs at
+    # all: the engine sorts in a second pass). Reference: statsmodels LSDV.
+    df = unit_period_panel(seed=21)
+    if layout == "units reversed":
+        df = df.sort_values(["unit", "period"], ascending=[False, True])
+    elif layout == "two units split":
+        late = df["unit"].isin([3, 17]) & (df["period"] >= 5)
+        df = pd.concat([df[~late], df[late]])
+    else:
+        df = df.sort_values(["period", "unit"])
+    res = fit_codes(to_parquet(df.reset_index(drop=True)), ["unit", "period", "item"])
+    coef, se = sm_ref(df, ["unit", "period", "item"], "classical")
+    assert (SORTED in res.timings) == (layout == "period by period")
+    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
+
+
+def spells_panel(seed: int, workers: int = 60, years: int = 8, firms: int = 12) -> pd.DataFrame:
+    """Workers x years, each worker in one firm per spell of two to four years (the rows of a
+    worker in one firm follow each other), a sector effect drawn per row; synthetic, with the
+    slopes 0.6 and -0.3 set here."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for w in range(workers):
+        firm, left = int(rng.integers(firms)), int(rng.integers(2, 5))
+        for year in range(years):
+            if left == 0:
+                firm, left = int(rng.integers(firms)), int(rng.integers(2, 5))
+            rows.append((w, firm, year, int(rng.integers(4))))
+            left -= 1
+    df = pd.DataFrame(rows, columns=["worker", "firm", "year", "sector"])
+    a, f = rng.normal(size=workers)[df["worker"]], rng.normal(size=firms)[df["firm"]]
+    x = rng.normal(size=(len(df), 2)) + np.column_stack([0.5 * a, 0.4 * f])
+    df["x1"], df["x2"] = x[:, 0], x[:, 1]
+    df["y"] = 0.6 * df["x1"] - 0.3 * df["x2"] + a + f + 0.1 * df["year"] + rng.normal(size=len(df))
+    return df
+
+
+def test_runs_of_one_firm_become_one_link(to_parquet):
+    # A worker's consecutive years in one firm are one nonzero of the worker x firm table, holding
+    # their count: the table equals the product of the explicit dummy matrices (scipy), with
+    # fewer nonzeros; so does the worker x year table kept as all ones but its missing cells.
+    # The fit agrees with statsmodels LSDV, classical and clustered by worker.
+    df = spells_panel(seed=22)
+    rows = np.bincount(df["worker"])
+    codes = {1: df["firm"].to_numpy(dtype=np.int32), 2: df["year"].to_numpy(dtype=np.int32)}
+    links = rowcodes.build_links(RowCodes(0, codes, None), [rows, np.bincount(df["firm"]), np.bincount(df["year"])])
+    n = len(df)
+    dummies = [sparse.csr_matrix((np.ones(n), (np.arange(n), df[c].to_numpy()))) for c in ("worker", "firm", "year")]
+    assert links.link[1].nnz < 0.75 * n and 1 not in links.unit
+    for e in (1, 2):  # the year table, every cell held once, is all ones but its missing cells
+        table = links.times({e: np.eye(df[("worker", "firm", "year")[e]].nunique())})
+        assert np.array_equal(table, (dummies[0].T @ dummies[e]).toarray())
+        assert np.array_equal(links.transposed_times(np.eye(len(rows)))[e], table.T)
+    path = to_parquet(df)
+    for vcov, cluster in (("classical", None), ("cr1", "worker")):
+        res = fit_codes(path, ["worker", "firm", "year"], vcov, cluster)
+        coef, se = sm_ref(df, ["worker", "firm", "year"], vcov, cluster)
+        assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
+
+
+def test_threaded_products_add_as_one_thread(to_parquet, monkeypatch):
+    # Splitting the value columns over threads leaves every sum as it was: the same bits as
+    # without threads, and the slopes of statsmodels LSDV.
+    df = spells_panel(seed=23)
+    path = to_parquet(df)
+    fe = ["worker", "firm", "sector"]
+    plain = fit_codes(path, fe)
+    monkeypatch.setattr(rowcodes, "THREADED_LEVELS", 1)
+    threaded = fit_codes(path, fe)
+    coef, se = sm_ref(df, fe, "classical")
+    assert np.array_equal(plain.coef, threaded.coef) and np.array_equal(plain.std_error, threaded.std_error)
+    assert rel(threaded.coef, coef) < 1e-8 and rel(threaded.std_error, se) < 1e-8
+
+
+def two_blocks(visits: str) -> pd.DataFrame:
+    """Two blocks of firms joined by one worker (60) alone, whose two rows are the first and
+    the last of the panel; synthetic, slopes 0.6 and -0.3 set here. Workers stay six years in
+    one firm of their block (a sparse worker x firm table), or visit every firm of their block
+    once (a table kept as all ones but its missing cells)."""
+    rng = np.random.default_rng(24)
+    if visits == "years in one firm":
+        rows = [(w, (w // 30) * 5 + int(rng.integers(5)), year) for w in range(60) for year in range(6)]
+    else:
+        rows = [(w, f, f) for w in range(40) for f in range(5)]
+        rows += [(w, f, f) for w in range(40, 60) for f in range(5, 8)]
+    df = pd.DataFrame([(60, 2, 0)] + rows + [(60, 7, 1)], columns=["worker", "firm", "year"])
+    a, f = rng.normal(size=61)[df["worker"]], rng.normal(size=10)[df["firm"]]
+    x = rng.normal(size=(len(df), 2)) + np.column_stack([0.5 * a, 0.4 * f])
+    df["x1"], df["x2"] = x[:, 0], x[:, 1]
+    df["y"] = 0.6 * df["x1"] - 0.3 * df["x2"] + a + f + rng.normal(size=len(df))
+    return df
+
+
+@pytest.mark.parametrize("visits", ["years in one firm", "each firm once"])
+def test_a_worker_in_two_runs_still_links_the_firms(to_parquet, visits):
+    # The worker's rows come in two runs, one per block: the link tables get a row per run, and
+    # the firms still form one connected component, as scipy finds on the explicit worker x firm
+    # dummies; so one firm level is redundant, not two. Reference for the fit: statsmodels LSDV.
+    df = two_blocks(visits)
+    worker, firm = df["worker"].to_numpy(), df["firm"].to_numpy()
+    starts = np.flatnonzero(np.diff(worker, prepend=-1))
+    runs = (worker[starts].astype(np.int32), np.diff(np.append(starts, len(df))))
+    rc = RowCodes(0, {1: firm.astype(np.int32)}, None, runs)
+    links = rowcodes.build_links(rc, [np.bincount(worker), np.bincount(firm)])
+    n = len(df)
+    both = sparse.csr_matrix((np.ones(n), (worker, firm)))
+    found, _ = connected_components(sparse.bmat([[None, both], [both.T, None]]), directed=False)
+    assert len(runs[0]) == 62 and found == 1 and rowcodes.components(links, [61, 10])[0] == 1
+    res = fit_codes(to_parquet(df), ["worker", "firm"])
+    coef, se = sm_ref(df, ["worker", "firm"], "classical")
+    assert res.components == 1
+    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
