@@ -17,7 +17,7 @@ from rich import box
 from rich.table import Table
 
 from .errors import BigPanelError
-from .sql.text import ident, join, render
+from .sql.text import Fragment, ident, join, render
 
 
 def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
@@ -40,7 +40,7 @@ def _scan_floor(model: dict[str, Any]) -> dict[str, Any]:
         aggs = [f"sum(CAST({c} AS DOUBLE)) AS s{i}" for i, c in enumerate(spec.value_sql)]
         keys = [c for cols in spec.fe for c in cols] + list(spec.cluster)
         aggs += [f"min({ident(c)}) AS k{i}" for i, c in enumerate(dict.fromkeys(keys))]
-        where = f"({spec.where})" if spec.where else "TRUE"
+        where = Fragment(f"({spec.where})" if spec.where else "TRUE")
         row = eng.one("scan", render("scan_floor", aggregates=join(aggs), where=where), raw=True)
         return {"nobs": int(row["n"]), "raw_passes": eng.raw_passes}
     finally:

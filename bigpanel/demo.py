@@ -9,7 +9,7 @@ from pathlib import Path
 from .errors import BigPanelError
 from .output.files import atomic_path
 from .engines.duckdb import connect
-from .sql.text import literal, render
+from .sql.text import Fragment, literal, render
 
 TRUE_COEFFICIENTS = {"log_price": -1.8, "promo": 0.35}
 WEEKS = 104
@@ -64,7 +64,7 @@ def write_demo(path: str, rows: int = 1_000_000, seed: int = 7, threads: int | N
         for statement in con.extract_statements(render("demo_macros")):
             con.execute(statement).fetchall()
         with atomic_path(path) as tmp:
-            con.execute(render("demo", path=literal(str(tmp)), format=fmt), params).fetchall()
+            con.execute(render("demo", path=literal(str(tmp)), format=Fragment(fmt)), params).fetchall()
     finally:
         con.close()
     return DemoPanel(str(Path(path)), rows, stores, products, weeks, dict(TRUE_COEFFICIENTS))

@@ -29,7 +29,7 @@ from .engines.registry import open_session
 from .engines.source import Source
 from .model.spec import NUMERIC, check_column
 from .output.plots import pyplot, save_figure
-from .sql.text import ident, join, render
+from .sql.text import Fragment, ident, join, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 _ORDERED_TIME = re.compile(
@@ -113,19 +113,19 @@ def _id_columns(src: Source, id: str) -> list[str]:
     return [id] if id in src.columns else [part.strip() for part in id.split(":")]
 
 
-def _unit_sql(columns: list[str]) -> str:
+def _unit_sql(columns: list[str]) -> Fragment:
     """The unit as one value: the column, or its parts as text, each but the last prefixed by its
     length so that no two different tuples give the same text; NULL when any part is NULL."""
     if len(columns) == 1:
         return ident(columns[0])
     text = [f"CAST({ident(c)} AS VARCHAR)" for c in columns]
     pieces = [f"CAST(length({t}) AS VARCHAR) || ':' || {t}" for t in text[:-1]] + [text[-1]]
-    return " || ':' || ".join(pieces)
+    return join(pieces, " || ':' || ")
 
 
-def _time_sql(time: str, kind: str) -> str:
+def _time_sql(time: str, kind: str) -> Fragment:
     """The period; a NaN or infinite floating-point period counts as missing."""
-    return f"CASE WHEN isfinite({ident(time)}) THEN {ident(time)} END" if _FLOAT.match(kind) else ident(time)
+    return Fragment(f"CASE WHEN isfinite({ident(time)}) THEN {ident(time)} END") if _FLOAT.match(kind) else ident(time)
 
 
 def _check_columns(src: Source, id: str, time: str, effects: tuple[str, str] | None) -> None:
@@ -153,24 +153,24 @@ def _count_missing(eng: Engine, kinds: list[str]) -> dict[str, int]:
 
 def _group_units(eng: Engine, kinds: list[str], numeric: list[int]) -> dict[str, Any]:
     """Pass 2: the per-unit table ``bp_units``, then its summary (not a pass over the rows)."""
-    cell_ranges = "".join(
+    cell_ranges = join([
         f",\n         min({_col(j)}){_finite(kinds[j], j)} AS lo{j}, max({_col(j)}){_finite(kinds[j], j)} AS hi{j}"
         for j in numeric
-    )
-    unit_flags = "".join(f",\n       min(c.lo{j}) = max(c.hi{j}) AS same{j}" for j in numeric)
+    ], "")
+    unit_flags = join([f",\n       min(c.lo{j}) = max(c.hi{j}) AS same{j}" for j in numeric], "")
     eng.execute(
         "describe pass 2: periods per unit",
         render("describe_units", cell_ranges=cell_ranges, unit_flags=unit_flags),
         raw=True,
     )
-    invariant = "".join(f",\n       bool_and(same{j}) AS inv{j}" for j in numeric)
+    invariant = join([f",\n       bool_and(same{j}) AS inv{j}" for j in numeric], "")
     return eng.one("summary of units", render("describe_unit_summary", invariant=invariant))
 
 
 def _effect_graph(eng: Engine, names: list[str], effects: tuple[str, str]) -> EffectGraph:
     """Pass 3: connected components of the graph whose edges are the distinct (a, b) pairs."""
     a, b = (_col(names.index(name)) for name in effects)
-    pairs = eng.arrow("describe pass 3: effect pairs", render("describe_pairs", a=a, b=b), raw=True)
+    pairs = eng.arrow("describe pass 3: effect pairs", render("describe_pairs", a=Fragment(a), b=Fragment(b)), raw=True)
     code_a = pairs.column("code_a").to_numpy()
     code_b = pairs.column("code_b").to_numpy()
     n_a = int(code_a.max()) + 1 if len(code_a) else 0

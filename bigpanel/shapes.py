@@ -26,7 +26,7 @@ from dataclasses import dataclass
 from .errors import BigPanelError
 from .output.files import atomic_path
 from .engines.duckdb import connect
-from .sql.text import literal, render
+from .sql.text import Fragment, literal, render
 
 WEEKS = 150
 SUPPLIERS = 1_000
@@ -102,14 +102,15 @@ def write_shape(path: str, name: str, rows: int, seed: int = 11) -> Shape:
                 region = name == "store-week-region"
                 if region:
                     params["regions"] = REGIONS
-                sql = render("shape_store_week", path=literal(str(tmp)),
-                             region_column="CAST(s % $regions + 1 AS SMALLINT) AS region," if region else "",
+                parts = dict(region_column="CAST(s % $regions + 1 AS SMALLINT) AS region," if region else "",
                              supplier_column="CAST(supplier + 1 AS SMALLINT) AS supplier," if supplier else "",
                              supplier_effect="+ 0.3 * bp_normal(supplier, 15, $seed)" if supplier else "",
                              instrument_columns=IV_COLUMNS if iv else "", price_shift=IV_PRICE if iv else "",
                              adoption_column="CAST(first AS SMALLINT) AS first_week," if adoption else "",
                              adoption_effect=ADOPTION_EFFECT if adoption else "",
                              count_column=COUNT_COLUMN if name == "store-week-counts" else "")
+                sql = render("shape_store_week", path=literal(str(tmp)),
+                             **{slot: Fragment(text) for slot, text in parts.items()})
                 con.execute(sql, params).fetchall()
     finally:
         con.close()

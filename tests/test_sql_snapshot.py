@@ -126,3 +126,27 @@ def test_grouping_id_matches_duckdbs_bitmask(grouped):
     got = con.sql(f"SELECT GROUPING(a, b, c) FROM (VALUES (1, 2, 3)) AS t(a, b, c) "
                   f"GROUP BY GROUPING SETS (({', '.join(grouped)}), (a, b, c))").fetchall()
     assert sorted(got) == sorted([(grouping_id(["a", "b", "c"], grouped),), (0,)])
+
+
+@pytest.mark.parametrize("grouped", [["a"], ["b"], ["c"], ["a", "c"], ["b", "c"], ["a", "b", "c"], []])
+def test_grouped_columns_decodes_duckdbs_bitmask(grouped):
+    # The decoder the cluster meats use reads DuckDB's own GROUPING(a, b, c) value back into
+    # the grouped columns (reference: DuckDB, SQL standard bit order).
+    import duckdb
+
+    from bigpanel.sql.text import grouped_columns
+
+    con = duckdb.connect()
+    rows = con.sql(f"SELECT GROUPING(a, b, c) FROM (VALUES (1, 2, 3)) AS t(a, b, c) "
+                   f"GROUP BY GROUPING SETS (({', '.join(grouped)}), (a, b, c))").fetchall()
+    gid = max(r[0] for r in rows)  # the set (a, b, c) gives 0; ours gives the largest value
+    assert grouped_columns(gid, 3) == tuple(["a", "b", "c"].index(c) for c in grouped)
+
+
+def test_render_takes_only_generated_fragments():
+    # A slot filled with plain text (not built by the quoting helpers) is refused.
+    from bigpanel.sql.text import ident, render
+
+    assert '"my ""col"""' in render("fractional_key", column=ident('my "col"'))
+    with pytest.raises(TypeError, match="plain text"):
+        render("fractional_key", column='"x"; DROP TABLE t')

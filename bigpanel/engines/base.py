@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, ClassVar, Iterator
 
 from ..errors import BigPanelError
-from ..sql.text import ident, render, render_variant
+from ..sql.text import Fragment, ident, render, render_variant
 
 STREAM_BATCH = 1 << 20  # rows per batch of a streamed result
 
@@ -92,7 +92,7 @@ class Engine(ABC):
         """The one-line detail shown for a failed statement."""
         return first_line(exc)
 
-    def render(self, name: str, **slots: str) -> str:
+    def render(self, name: str, **slots: Fragment) -> str:
         """Template ``name`` in this engine's variant (``name.<dialect>.sql``) when there is one."""
         return render_variant(name, self.dialect, **slots)
 

@@ -245,7 +245,7 @@ def open_postgres(
     eng = PostgresEngine(con, on_step=on_step)
     try:
         schema, name = _resolve(eng, table, where)
-        eng.execute("source view", eng.render("source_table", table=f"{ident(schema)}.{ident(name)}"))
+        eng.execute("source view", eng.render("source_table", table=join([ident(schema), ident(name)], ".")))
         described = eng.arrow("source columns", eng.render("describe_source"), {"schema": schema, "table": name})
     except BaseException:
         eng.close()

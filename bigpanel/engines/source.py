@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import duckdb
 
 from ..errors import BigPanelError
-from ..sql.text import ident, literal, render
+from ..sql.text import Fragment, ident, join, literal, render
 from .base import first_line
 from .remote import is_remote, redacted
 
@@ -90,7 +90,7 @@ def _check_header(path: str, delim: str) -> None:
         raise BigPanelError(f"CSV {path}: the header names column {repeated[0]!r} more than once; rename one of them")
 
 
-def _check_same_schema(con: duckdb.DuckDBPyConnection, files: list[str], paths: str) -> None:
+def _check_same_schema(con: duckdb.DuckDBPyConnection, files: list[str], paths: Fragment) -> None:
     """All files of a glob must hold the same columns (names and types), or nothing is read."""
     rows = con.execute(render("parquet_schemas", paths=paths)).fetchall()
     schemas: dict[str, list[tuple[str, str]]] = {}
@@ -152,7 +152,7 @@ def open_source(
             files = [location] if is_remote(location) else parquet_files(location)
             for f in files if not is_remote(location) else []:
                 _check_not_empty(f)
-            paths = "[" + ", ".join(literal(f) for f in files) + "]"
+            paths = Fragment("[" + join([literal(f) for f in files], ", ") + "]")
             if len(files) > 1:
                 _check_same_schema(con, files, paths)
             con.execute(render("source_parquet", paths=paths)).fetchall()

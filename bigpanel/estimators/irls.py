@@ -34,7 +34,7 @@ from ..passes.irls import (StepSums, check_nonnegative, create_demeaned, fetch_w
 from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, RowCodes, Start,
                              choose_strategy, create_views, incomplete, reduce_cells, start,
                              value_offsets)
-from ..sql.text import join, render
+from ..sql.text import Fragment, join, render
 from .absorb import Projections
 from .base import Session
 
@@ -101,7 +101,7 @@ def working_spec(spec: Spec) -> Spec:
 
 def level_keys(eng: Engine, spec: Spec, d: int) -> pa.Table:
     """Effect d's level keys in code order, from the reduction's level table."""
-    sql = render("level_table", columns=join(spec.key_aliases(d), ", "), table=f"bp_lev_{d + 1}")
+    sql = render("level_table", columns=join(spec.key_aliases(d), ", "), table=Fragment(f"bp_lev_{d + 1}"))
     return eng.arrow("effect keys", sql)
 
 

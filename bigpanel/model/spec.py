@@ -21,7 +21,7 @@ from ..engines.base import Engine, EngineError
 from .formula import Factor, Term, factor_sql, parse_outcome, parse_rhs, parse_term, sql_expression, term_label
 from ..engines.source import Source
 from ..options import VARIANCE_TYPES
-from ..sql.text import ident, literal, render
+from ..sql.text import Fragment, ident, literal, render
 
 _FLOAT = re.compile(r"^(FLOAT|DOUBLE|REAL)$")
 MAX_LEVELS = 200  # a categorical regressor with more levels belongs in --fe
@@ -187,7 +187,7 @@ def _check_factor(factor: Factor, source: Source, role: str, eng: Engine | None)
     if eng is None:
         return
     try:
-        kind = eng.arrow("check a term", render("check_term", expression=f"({expression})")).schema[0].type
+        kind = eng.arrow("check a term", render("check_term", expression=Fragment(f"({expression})"))).schema[0].type
     except EngineError as exc:
         raise BigPanelError(f"term {factor.label!r} is not a valid expression: {exc.detail}") from None
     if not (pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind)
@@ -213,7 +213,7 @@ def _levels(eng: Engine | None, column: str, where: str | None) -> list[str]:
         raise BigPanelError(f"levels({column}) needs the data: use it in bigpanel fit")
     if where:
         check_where(eng, where)
-    sql = render("term_levels", column=ident(column), where=f"({where})" if where else "TRUE")
+    sql = render("term_levels", column=ident(column), where=Fragment(f"({where})" if where else "TRUE"))
     rows = eng.arrow(f"levels of {column}", sql, {"limit": MAX_LEVELS + 1}, raw=True).column("level").to_pylist()
     if len(rows) > MAX_LEVELS:
         raise BigPanelError(f"levels({column}) has more than {MAX_LEVELS} levels: absorb it with --fe {column} instead")
@@ -468,6 +468,6 @@ def _functions(node: object) -> set[str]:
 def check_where(eng: Engine, where: str) -> None:
     """Bind the (canonical) filter against the source's columns without reading a row."""
     try:
-        eng.execute("check the filter", render("check_where", where=f"({where})"))
+        eng.execute("check the filter", render("check_where", where=Fragment(f"({where})")))
     except EngineError as exc:
         raise BigPanelError(f"--where {where!r} is not a valid filter: {exc.detail}") from None

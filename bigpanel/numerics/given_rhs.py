@@ -26,7 +26,7 @@ import pyarrow as pa
 from ..engines.base import Engine
 from ..model.spec import Spec
 from ..passes.reduce import IN_ENGINE, ROW_CODES, Reduction
-from ..sql.text import join, render
+from ..sql.text import Fragment, join, level_joins, names, render
 from .project import Projection, solve_effects
 from .rowcodes import Links, solve_codes
 
@@ -75,13 +75,13 @@ def sweep_given(eng: Engine, spec: Spec, red: Reduction, keys: list[pa.Table], t
         for d in range(k):
             others = [e for e in range(k) if e != d]
             sums = [f"sum({' + '.join(f'g{e + 1}.z{j}' for e in others)}) AS z{j}" for j in range(cols)]
-            joins = "\n".join(f"JOIN bp_given_{e + 1} AS g{e + 1} USING ({', '.join(spec.key_aliases(e))})"
-                              for e in others)
-            keys_d = ", ".join(spec.key_aliases(d))
+            joins = level_joins("bp_given", {e: spec.key_aliases(e) for e in others}, "g")
+            keys_d = names(spec.key_aliases(d))
             eng.execute(f"in-engine sweep {sweeps} (given right-hand sides)",
-                        render("sweep", target="bp_given_next", keys=keys_d, means=join(sums), joins=joins), raw=True)
+                        render("sweep", target=Fragment("bp_given_next"), keys=keys_d, means=join(sums), joins=joins),
+                        raw=True)
             fetch = render("alpha_by_code", columns=join([f"a.z{j}" for j in range(cols)], ", "),
-                           alpha="bp_given_next", levels=f"bp_lev_{d + 1}", keys=keys_d)
+                           alpha=Fragment("bp_given_next"), levels=Fragment(f"bp_lev_{d + 1}"), keys=keys_d)
             tab = eng.arrow("fetch the sums", fetch)
             others_sum = np.column_stack([tab.column(f"z{j}").to_numpy() for j in range(cols)])
             new = (red.rhs[d] - others_sum) / red.counts[d][:, None]

@@ -19,13 +19,13 @@ from ..engines.base import Engine
 from .project import Projection
 from ..passes.reduce import Reduction
 from ..model.spec import Spec
-from ..sql.text import join, render
+from ..sql.text import Fragment, join, level_joins, names, render
 
 
 def _fetch_alpha(eng: Engine, spec: Spec, d: int, m: int) -> np.ndarray:
-    keys = ", ".join(spec.key_aliases(d))
+    keys = names(spec.key_aliases(d))
     sql = render("alpha_by_code", columns=join([f"a.a{j}" for j in range(m)], ", "),
-                 alpha=f"bp_alpha_{d + 1}", levels=f"bp_lev_{d + 1}", keys=keys)
+                 alpha=Fragment(f"bp_alpha_{d + 1}"), levels=Fragment(f"bp_lev_{d + 1}"), keys=keys)
     tab = eng.arrow("fetch effects", sql)
     return np.column_stack([tab.column(f"a{j}").to_numpy() for j in range(m)])
 
@@ -51,12 +51,13 @@ def sweep_in_engine(eng: Engine, spec: Spec, red: Reduction, keys: list[pa.Table
             wsum = "sum(w)" if spec.weights else "count(*)"
             means = [f"sum({spec.w}({v} - s.m{j}" + "".join(f" - a{e + 1}.a{j}" for e in others) + f")) / {wsum} AS a{j}"
                      for j, v in enumerate(spec.value_aliases)]
-            joins = "\n".join(f"JOIN bp_alpha_{e + 1} AS a{e + 1} USING ({', '.join(spec.key_aliases(e))})"
-                              for e in others)
-            keys_d = ", ".join(spec.key_aliases(d))
-            sql = render("sweep", target=f"bp_alpha_{d + 1}_next", keys=keys_d, means=join(means), joins=joins)
+            joins = level_joins("bp_alpha", {e: spec.key_aliases(e) for e in others}, "a")
+            keys_d = names(spec.key_aliases(d))
+            sql = render("sweep", target=Fragment(f"bp_alpha_{d + 1}_next"), keys=keys_d, means=join(means),
+                         joins=joins)
             eng.execute(f"in-engine sweep {sweeps}", sql, raw=True)
-            eng.execute("swap effects", render("store_arrow", table=f"bp_alpha_{d + 1}", view=f"bp_alpha_{d + 1}_next"))
+            eng.execute("swap effects", render("store_arrow", table=Fragment(f"bp_alpha_{d + 1}"),
+                                                     view=Fragment(f"bp_alpha_{d + 1}_next")))
             new = _fetch_alpha(eng, spec, d, m)
             moved += (red.counts[d][:, None] * (new - alpha[d]) ** 2).sum(axis=0)
             alpha[d] = new

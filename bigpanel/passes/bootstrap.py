@@ -22,7 +22,7 @@ import pyarrow.compute as pc
 
 from ..engines.base import Engine
 from ..model.spec import Spec
-from ..sql.text import grouping_id, grouping_sets, join, render
+from ..sql.text import Fragment, grouping_id, grouping_sets, join, level_joins, names, render
 from .moments import demeaned_columns, effect_joins
 
 
@@ -58,12 +58,12 @@ def square(columns: list[np.ndarray], m: int) -> np.ndarray:
 
 def cluster_cells(eng: Engine, spec: Spec) -> Cells:
     """The cells of the finest combination of cluster columns and their cross-products."""
-    names, m = spec.cluster_aliases, len(spec.value_aliases)
+    columns, m = spec.cluster_aliases, len(spec.value_aliases)
     sums = [f"q_{i}_{j}" for i in range(m) for j in range(i, m)]
     tab = eng.arrow("bootstrap: per-cluster cross-products",
-                    render("bootstrap_cells", clusters=", ".join(names), sums=join(sums)),
-                    {"gid": grouping_id(names, names)})
-    codes, keys = coded([tab.column(c).combine_chunks() for c in names])
+                    render("bootstrap_cells", clusters=names(columns), sums=join(sums)),
+                    {"gid": grouping_id(columns, columns)})
+    codes, keys = coded([tab.column(c).combine_chunks() for c in columns])
     q = square([tab.column(s).to_numpy(zero_copy_only=False).astype(float) for s in sums], m)
     return Cells(q, codes, keys)
 
@@ -95,9 +95,10 @@ def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[in
     codes = [f"c{d + 1}" for d in dims]
     columns = [cluster] + [f"l{d + 1}.code AS c{d + 1}" for d in dims] + demeaned_columns(spec)
     columns += ["w"] if spec.weights else []
-    joins = effect_joins(spec) + "".join(
-        f"\n      JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in dims)
-    sql = render("bootstrap_cross_sums", cluster=cluster, codes=join(codes), grouping=", ".join([cluster, *codes]),
+    joins = Fragment(effect_joins(spec) + "\n" + level_joins("bp_lev", {d: spec.key_aliases(d) for d in dims}, "l",
+                                                             indent="      "))
+    sql = render("bootstrap_cross_sums", cluster=Fragment(cluster), codes=join(codes),
+                 grouping=names([cluster, *codes]),
                  columns=join(columns), joins=joins, sets=grouping_sets([[cluster, c] for c in codes]),
                  sums=join([f"fsum({spec.w}e{j}) AS f{j}" for j in range(m)]))
     tab = eng.arrow("bootstrap: sums per cluster and level of the effects that cut across", sql, raw=True)

@@ -30,7 +30,7 @@ from ..engines.base import Engine
 from ..errors import BigPanelError
 from ..model.event import Design
 from ..model.spec import Spec
-from ..sql.text import grouping_id, grouping_sets, join, render
+from ..sql.text import Fragment, grouping_id, grouping_sets, join, names, render
 
 PANEL_KEYS = ["f1_1", "f2_1", "ft"]
 
@@ -51,7 +51,7 @@ def check_panel(eng: Engine, design: Design) -> PanelCounts:
     with their event time ``k``, ``treated`` flag and target weight ``wt``."""
     keys = PANEL_KEYS if design.dates else PANEL_KEYS[:1]
     sets = [["f1_1"]] + ([["f2_1"], ["ft"]] if design.dates else [])
-    eng.execute("event study: units and cohorts", render("event_panel", keys=", ".join(keys),
+    eng.execute("event study: units and cohorts", render("event_panel", keys=names(keys),
                                                          sets=grouping_sets(sets)), raw=True)
     units = eng.one("units", render("event_units"), {"gid": grouping_id(keys, ["f1_1"])})
     bad = int(units["inconsistent"] or 0)
@@ -69,7 +69,8 @@ def check_panel(eng: Engine, design: Design) -> PanelCounts:
                  "\nLEFT JOIN bp_event_cohorts AS c ON c.ft = r.ft")
         event_time = "p.r - c.re"
     weight = "CASE WHEN isfinite(r.uw) AND r.uw > 0 THEN r.uw END" if design.weights else "CAST(1 AS DOUBLE)"
-    eng.execute("event rows", render("event_all", event_time=event_time, weight=weight, joins=joins))
+    eng.execute("event rows", render("event_all", event_time=Fragment(event_time), weight=Fragment(weight),
+                                     joins=Fragment(joins)))
     return PanelCounts(int(units["n"] or 0), int(units["n_treated"] or 0), int(units["units"] or 0),
                        int(units["never_treated"] or 0), int(units["cohorts"] or 0))
 
@@ -121,7 +122,8 @@ def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: 
     sets = grouping_sets([["kk", "why", c] for c in codes] + [["kk", "why"]])
     columns = join([f"l{d + 1}.code AS c{d + 1}" for d in range(k)])
     eng.execute("event study: right-hand sides and exclusions",
-                render("event_rhs", keys=", ".join(order), columns=columns, why=why, joins="\n      ".join(joins),
+                render("event_rhs", keys=names(order), columns=columns, why=Fragment(why),
+                       joins=join(joins, "\n      "),
                        sets=sets), {"lo": design.lo, "beyond": design.hi + 1}, raw=True)
     params = {f"lead{i}": a for i, a in enumerate(design.leads)}
     params.update({f"post{h}": p for h, p in enumerate(design.post)})
@@ -133,8 +135,8 @@ def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: 
     values = [f"r{j}" for j in range(n_cols)]
     rhs = []
     for d in range(k):
-        sql = render("event_rhs_rows", columns=join([codes[d], *sums]), filter=f" AND {codes[d]} IS NOT NULL",
-                     group=f"GROUP BY {codes[d]}")
+        sql = render("event_rhs_rows", columns=join([codes[d], *sums]), filter=Fragment(f" AND {codes[d]} IS NOT NULL"),
+                     group=Fragment(f"GROUP BY {codes[d]}"))
         tab = eng.arrow("right-hand sides", sql, {**params, "gid": grouping_id(order, ["kk", "why", codes[d]])})
         out = np.zeros((levels[d], n_cols))
         at = tab.column(codes[d]).to_numpy().astype(np.int64)
@@ -142,7 +144,8 @@ def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: 
             out[at, j] = tab.column(v).to_numpy(zero_copy_only=False).astype(float)
         rhs.append(out)
     gid = {"gid": grouping_id(order, ["kk", "why"])}
-    row = eng.one("right-hand side totals", render("event_rhs_rows", columns=join(sums), filter="", group=""),
+    row = eng.one("right-hand side totals",
+                  render("event_rhs_rows", columns=join(sums), filter=Fragment(""), group=Fragment("")),
                   {**params, **gid})
     why_rows = eng.arrow("exclusions", render("event_exclusions"), gid).to_pylist()
     excluded = {reasons[int(r["why"]) - 1][0]: int(r["n"]) for r in why_rows}
@@ -166,7 +169,7 @@ def rows_view(eng: Engine, spec: Spec, extra: int, linked: bool) -> None:
     cols += [" + ".join(f"f{d + 1}.a{m + i}" for d in range(k)) + f" AS z{i}" for i in range(extra)]
     joins = "\n".join(f"JOIN bp_event_fx_{d + 1} AS f{d + 1} ON {_key_match(spec, d, f'f{d + 1}')}" for d in range(k))
     usable = "NOT r.treated OR (r.wt IS NOT NULL" + (" AND f1.comp = f2.comp)" if linked else ")")
-    eng.execute("usable rows", render("event_rows", columns=join(cols), joins=joins, usable=usable))
+    eng.execute("usable rows", render("event_rows", columns=join(cols), joins=Fragment(joins), usable=Fragment(usable)))
 
 
 def _fit(coef: str, names: list[str]) -> str:
@@ -185,7 +188,7 @@ def cell_sums(eng: Engine, controls: list[int], leads: int, lo: int) -> pa.Table
     sums = ["sum(wt) AS sw", "sum(wt * tau) AS swt", "sum(wt * wt * tau) AS sw2t", "sum(wt * wt) AS sw2"]
     sums += [f"sum(wt * {e}) AS sw{e}" for e in es]
     sums += [f"sum({e}) AS s{e}" for e in ["e0", *es]] + [f"sum(z{a}) AS sz{a}" for a in range(leads)]
-    return eng.arrow("event study: sums by cell", render("event_cells", sums=join(sums), tau=tau), {"lo": lo},
+    return eng.arrow("event study: sums by cell", render("event_cells", sums=join(sums), tau=Fragment(tau)), {"lo": lo},
                      raw=True)
 
 
@@ -227,7 +230,7 @@ def cluster_scores(eng: Engine, t: ScoreTerms) -> None:
     sums += [f"sum(({_one(f'coalesce(k, 0) = $lead{a}')} - z{a}) * u2) AS sq{a}" for a in range(len(t.leads))]
     params = {f"lead{a}": k for a, k in enumerate(t.leads)}
     params.update({f"est{h}": k for h, k in enumerate(t.estimands) if k is not None})
-    sql = render("event_scores", sums=join(sums), resid=resid, pretrend=pretrend)
+    sql = render("event_scores", sums=join(sums), resid=Fragment(resid), pretrend=Fragment(pretrend))
     eng.execute("event study: scores per cluster", sql, params, raw=True)
 
 

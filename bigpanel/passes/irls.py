@@ -29,7 +29,7 @@ import pyarrow as pa
 from ..engines.base import Engine
 from ..errors import BigPanelError
 from ..model.spec import Spec
-from ..sql.text import grouping_id, grouping_sets, join, render
+from ..sql.text import Fragment, grouping_id, grouping_sets, join, level_joins, names, render
 from .moments import cluster_sets
 from .reduce import put_one_row
 
@@ -101,7 +101,7 @@ def store_state(eng: Engine, spec: Spec, keys: list[pa.Table], f: list[np.ndarra
     put_one_row(eng, "bp_irls_coef", coef)
 
 
-def rows_sql(spec: Spec) -> str:
+def rows_sql(spec: Spec) -> Fragment:
     """The working rows of a step (template ``poisson_rows``), a subquery of the passes; eta comes
     from the slopes and the effects of :func:`store_state`."""
     k, m = len(spec.fe), len(spec.value_aliases)
@@ -113,14 +113,13 @@ def rows_sql(spec: Spec) -> str:
               "b.low AS low", " + ".join(f"{e}.a0" for e in effects) + " AS za"]
     inner += [t[j] + "".join(f" - {e}.a{j}" for e in effects) + f" AS r{j}" for j in range(1, m)]
     inner += spec.cluster_aliases
-    joins = "\n".join(f"JOIN bp_irls_fx_{d + 1} AS e{d + 1} USING ({', '.join(spec.key_aliases(d))})"
-                      for d in range(k))
-    return render("poisson_rows", codes=_codes(k), inner=join(inner), joins=joins,
-                  columns=join([f"r{j}" for j in range(1, m)] + spec.cluster_aliases))
+    joins = level_joins("bp_irls_fx", {d: spec.key_aliases(d) for d in range(k)}, "e")
+    return Fragment(render("poisson_rows", codes=_codes(k), inner=join(inner), joins=joins,
+                           columns=join([f"r{j}" for j in range(1, m)] + spec.cluster_aliases)))
 
 
-def _codes(k: int) -> str:
-    return ", ".join(f"c{d + 1}" for d in range(k))
+def _codes(k: int) -> Fragment:
+    return names([f"c{d + 1}" for d in range(k)])
 
 
 def _pairs_of(m: int) -> list[tuple[int, int]]:
@@ -203,9 +202,9 @@ def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
                      constants={name: col(name) for name in constants(spec)} if first else None, nested=nested)
 
 
-def _row_order(spec: Spec, big: int) -> str:
+def _row_order(spec: Spec, big: int) -> Fragment:
     """All the level codes, the largest effect's first: the order of the rows on the row-codes path."""
-    return ", ".join(f"c{d + 1}" for d in [big] + [d for d in range(len(spec.fe)) if d != big])
+    return names([f"c{d + 1}" for d in [big] + [d for d in range(len(spec.fe)) if d != big]])
 
 
 def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes: dict[int, np.ndarray]) -> None:
@@ -251,14 +250,14 @@ def final_pass(eng: Engine, spec: Spec) -> FinalSums:
     if spec.variance == "hc1":
         sums += [f"fsum(p * p * (y - mu) * (y - mu) * e{i} * e{j}) AS h_{i}_{j}" for i, j in regressors]
     if spec.variance == "cr1":
-        names = spec.cluster_aliases
-        groups = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
+        columns = spec.cluster_aliases
+        groups = grouping_sets([[columns[j] for j in s] for s in cluster_sets(len(columns))])
         eng.execute("demeaned working cross-products and scores per cluster",
-                    render("cluster_moments", sums=join(sums), clusters=", ".join(names), sets=groups), raw=True)
+                    render("cluster_moments", sums=join(sums), clusters=names(columns), sets=groups), raw=True)
         totals = [f"{'sum' if name == 'small' else 'fsum'}({name}) AS {name}"
                   for name in (part.rsplit(" AS ", 1)[1] for part in sums)]
         row = eng.one("working cross-products from the cluster sums",
-                      render("cluster_moment_totals", sums=join(totals)), {"gid": grouping_id(names, names[:1])})
+                      render("cluster_moment_totals", sums=join(totals)), {"gid": grouping_id(columns, columns[:1])})
     else:
         row = eng.one("demeaned working cross-products", render("crossprod", sums=join(sums)), raw=True)
     q = np.zeros((m, m))

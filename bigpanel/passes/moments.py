@@ -23,7 +23,7 @@ from typing import Callable
 from ..engines.base import Engine
 from .reduce import cell_sums, put_one_row
 from ..model.spec import Spec
-from ..sql.text import grouping_id, grouping_sets, join, render
+from ..sql.text import Fragment, grouped_columns, grouping_id, grouping_sets, join, level_joins, names, render
 
 
 @dataclass(frozen=True)
@@ -60,10 +60,9 @@ def demeaned_columns(spec: Spec) -> list[str]:
             for j, v in enumerate(spec.value_aliases)]
 
 
-def effect_joins(spec: Spec) -> str:
+def effect_joins(spec: Spec) -> Fragment:
     """The joins of the sample to every effect's solved values ``bp_alpha_d`` (as ``ad``)."""
-    return "\n".join(f"JOIN bp_alpha_{d + 1} AS a{d + 1} USING ({', '.join(spec.key_aliases(d))})"
-                     for d in range(len(spec.fe)))
+    return level_joins("bp_alpha", {d: spec.key_aliases(d) for d in range(len(spec.fe))}, "a")
 
 
 @dataclass(frozen=True)
@@ -87,11 +86,11 @@ def cross_products(eng: Engine, spec: Spec, m: int) -> Moments:
     """
     sums = [f"fsum({spec.w}e{i} * e{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
     if spec.variance == "cr1":
-        names = spec.cluster_aliases
-        groups = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
+        cluster_names = spec.cluster_aliases
+        groups = grouping_sets([[cluster_names[j] for j in s] for s in cluster_sets(len(cluster_names))])
         eng.execute("demeaned cross-products per cluster",
-                    render("cluster_moments", sums=join(sums), clusters=", ".join(names), sets=groups), raw=True)
-        return _cluster_totals(eng, names, m)
+                    render("cluster_moments", sums=join(sums), clusters=names(cluster_names), sets=groups), raw=True)
+        return _cluster_totals(eng, cluster_names, m)
     row = eng.one("demeaned cross-products", render("crossprod", sums=join(sums)), raw=True)
     return _moments(row, m)
 
@@ -122,25 +121,25 @@ def level_cross_products(eng: Engine, spec: Spec, m: int, d: int = 0, cells: str
     level's mean is far from the shift relative to its spread; the caller checks the loss.
     """
     pairs = [(i, j) for i in range(m) for j in range(i, m)]
-    tables = {"keys": ", ".join(spec.key_aliases(d)), "cells": cells, "levels": f"bp_lev_{d + 1}"}
+    tables = {"keys": names(spec.key_aliases(d)), "cells": Fragment(cells), "levels": Fragment(f"bp_lev_{d + 1}")}
     if spec.variance != "cr1":
         sums = join([f"fsum({_comoment(i, j)}) AS q_{i}_{j}" for i, j in pairs])
         return _moments(eng.one("cross-products from the level co-moments",
                                 render("level_moments", sums=sums, **tables), {"gid": gid}), m)
-    names = spec.cluster_aliases
-    clusters = [f"c.{c}_min AS {c}" for c in names]
-    if spec.cluster == spec.fe[d] and len(names) == 1:  # clustered on the effect itself: a cluster per level
+    cluster_names = spec.cluster_aliases
+    clusters = [f"c.{c}_min AS {c}" for c in cluster_names]
+    if spec.cluster == spec.fe[d] and len(cluster_names) == 1:  # clustered on the effect itself: a cluster per level
         eng.execute("cluster cross-products: the level co-moments",
                     render("level_cluster_identity",
                            values=join(clusters + [f"{_comoment(i, j)} AS q_{i}_{j}" for i, j in pairs]), **tables),
                     {"gid": gid})
-        return _cluster_totals(eng, names, m)
+        return _cluster_totals(eng, cluster_names, m)
     values = join(clusters + [f"{_comoment(i, j)} AS m_{i}_{j}" for i, j in pairs])
-    sets = grouping_sets([[names[j] for j in s] for s in cluster_sets(len(names))])
+    sets = grouping_sets([[cluster_names[j] for j in s] for s in cluster_sets(len(cluster_names))])
     eng.execute("cluster cross-products from the level co-moments",
-                render("level_cluster_moments", clusters=", ".join(names), values=values, sets=sets,
+                render("level_cluster_moments", clusters=names(cluster_names), values=values, sets=sets,
                        sums=join([f"fsum(m_{i}_{j}) AS q_{i}_{j}" for i, j in pairs]), **tables), {"gid": gid})
-    return _cluster_totals(eng, names, m)
+    return _cluster_totals(eng, cluster_names, m)
 
 
 def nested_cross_products(eng: Engine, spec: Spec, d: int, m: int) -> tuple[Moments, np.ndarray]:
@@ -154,15 +153,15 @@ def nested_cross_products(eng: Engine, spec: Spec, d: int, m: int) -> tuple[Mome
     cols = [f"{v} - s.m{j} - " + " - ".join(f"a{e + 1}.a{j}" for e in others) + f" AS u{j}"
             for j, v in enumerate(spec.value_aliases)]
     cols += spec.cluster_aliases + (["w"] if spec.weights else [])
-    joins = "\n".join(f"JOIN bp_alpha_{e + 1} AS a{e + 1} USING ({', '.join(spec.key_aliases(e))})" for e in others)
-    keys = ", ".join(spec.key_aliases(d))
+    joins = level_joins("bp_alpha", {e: spec.key_aliases(e) for e in others}, "a")
+    keys = names(spec.key_aliases(d))
     sums = cell_sums(spec, [f"u{j}" for j in range(m)], with_products=True)
     eng.execute("per-level sums of the columns without the other effects",
                 render("nested_cells", keys=keys, columns=join(cols), joins=joins, sums=join(sums)), raw=True)
     mom = level_cross_products(eng, spec, m, d, "bp_nested_cells")
     squares = eng.one("squares of the columns without the other effects",
                       render("level_moments", sums=join([f"fsum(c.q{j}) AS q{j}" for j in range(m)]), keys=keys,
-                             cells="bp_nested_cells", levels=f"bp_lev_{d + 1}"), {"gid": 0})
+                             cells=Fragment("bp_nested_cells"), levels=Fragment(f"bp_lev_{d + 1}")), {"gid": 0})
     return mom, np.array([squares[f"q{j}"] for j in range(m)], dtype=float)
 
 
@@ -195,11 +194,11 @@ def solution_cross_products(
     return Moments(n, (q + q.T) / 2), size
 
 
-def _cluster_totals(eng: Engine, names: list[str], m: int) -> Moments:
+def _cluster_totals(eng: Engine, columns: list[str], m: int) -> Moments:
     """The sample's E'E: the per-cluster sums of ``bp_cluster_moments`` over the first cluster column."""
     totals = [f"fsum(q_{i}_{j}) AS q_{i}_{j}" for i in range(m) for j in range(i, m)]
     row = eng.one("cross-products from the cluster sums", render("cluster_moment_totals", sums=join(totals)),
-                  {"gid": grouping_id(names, names[:1])})
+                  {"gid": grouping_id(columns, columns[:1])})
     return _moments(row, m)
 
 
@@ -301,7 +300,7 @@ def meat_hc(eng: Engine, spec: Spec, res: Residuals) -> np.ndarray:
     resid = join([f"({_residual_sql(used[a], a, 'e{j}')}){weight} AS u{a}" for a in range(res.count)])
     sums = [f"fsum(u{a} * u{b} * e{res.support[j]} * e{res.support[k]}) AS h_{a}_{j}_{b}_{k}"
             for a, j, b, k in res.pairs(symmetric=True)]
-    carry = ", ".join(f"e{j}" for j in res.support)
+    carry = names([f"e{j}" for j in res.support])
     row = eng.one("robust meat", render("meat_hc", sums=join(sums), resid=resid, carry=carry), raw=True)
     return _raw(row, res, symmetric=True)
 
@@ -327,8 +326,8 @@ def meat_cluster(eng: Engine, spec: Spec, res: Residuals) -> list[ClusterTerm]:
     width = len(spec.cluster_aliases)
     terms = []
     for row in tab.to_pylist():
-        cols = tuple(j for j in range(width) if not (row["gid"] >> (width - 1 - j)) & 1)
-        terms.append(ClusterTerm(cols, int(row["n_clusters"]), _raw(row, res, symmetric=False)))
+        terms.append(ClusterTerm(grouped_columns(row["gid"], width), int(row["n_clusters"]),
+                                 _raw(row, res, symmetric=False)))
     return sorted(terms, key=lambda t: (len(t.columns), t.columns))
 
 
@@ -337,6 +336,6 @@ def residual_ss(eng: Engine, spec: Spec, res: Residuals) -> float:
     residual formed before it is squared, so a nearly perfect fit keeps its digits (see
     :func:`bigpanel.numerics.solve.exact_rss`)."""
     used = _store_residuals(eng, res)
-    sql = render("residual_ss", weight=spec.w, resid=f"({_residual_sql(used[0], 0, 'e{j}')})",
-                 carry=", w" if spec.weights else "")
+    sql = render("residual_ss", weight=Fragment(spec.w), resid=Fragment(f"({_residual_sql(used[0], 0, 'e{j}')})"),
+                 carry=Fragment(", w" if spec.weights else ""))
     return float(eng.one("residual sum of squares, row by row", sql, raw=True)["rss"])

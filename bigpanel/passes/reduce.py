@@ -20,7 +20,7 @@ from scipy import sparse
 from ..engines.base import Engine
 from ..errors import BigPanelError
 from ..model.spec import Spec
-from ..sql.text import grouping_id, grouping_sets, ident, join, render
+from ..sql.text import Fragment, grouping_id, grouping_sets, ident, join, level_joins, names, render
 
 MAX_SINGLETON_ROUNDS = 200
 PAIR_TABLES = "pair tables"
@@ -98,7 +98,7 @@ class RowCodes:
     runs: tuple[np.ndarray, np.ndarray] | None = None
 
 
-def _complete(spec: Spec) -> str:
+def _complete(spec: Spec) -> Fragment:
     parts = [f"isfinite({v})" for v in spec.value_aliases]
     for d in range(len(spec.fe)):
         parts += [f"{k} IS NOT NULL" for k in spec.key_aliases(d)]
@@ -107,7 +107,7 @@ def _complete(spec: Spec) -> str:
         parts.append("tm IS NOT NULL")
     if spec.weights:
         parts.append("isfinite(w) AND w > 0")
-    return " AND ".join(parts)
+    return join(parts, " AND ")
 
 
 def _key(spec: Spec, column: str) -> str:
@@ -187,15 +187,16 @@ def create_views(eng: Engine, spec: Spec, materialize: bool = False) -> None:
     if spec.weights:
         columns.append(f"CAST({ident(spec.weights)} AS DOUBLE) AS w")
     columns += [f"{sql} AS {alias}" for alias, sql in spec.carry]
-    where = f"({spec.where})" if spec.where else "TRUE"
+    where = Fragment(f"({spec.where})" if spec.where else "TRUE")  # the filter as the spec parsed and re-rendered it
     materialize = materialize or spec.volatile_where
-    kind = "TABLE" if materialize else "VIEW"
+    kind = Fragment("TABLE" if materialize else "VIEW")
     eng.execute("used columns", render("filtered", kind=kind, columns=join(columns), where=where,
-                                       offsets=" CROSS JOIN bp_offset AS o" if offsets else ""), raw=materialize)
+                                       offsets=Fragment(" CROSS JOIN bp_offset AS o" if offsets else "")),
+                raw=materialize)
     complete = _complete(spec)
     if spec.sample_where:  # the fit uses a subset of the complete rows; bp_complete keeps them all
         eng.execute("complete rows", render("complete_rows", complete=complete))
-        complete += f" AND ({spec.sample_where})"
+        complete = Fragment(f"{complete} AND ({spec.sample_where})")
     eng.execute("sample view", render("sample", complete=complete))
 
 
@@ -264,7 +265,7 @@ def incomplete(eng: Engine, spec: Spec) -> dict[str, int]:
 def put_one_row(eng: Engine, table: str, values: dict[str, float]) -> None:
     """Store numbers as the one-row table ``table`` through bound parameters."""
     cols = join([f"CAST(${name} AS DOUBLE) AS {name}" for name in values])
-    eng.execute(f"store {table}", render("one_row", table=table, columns=cols), values)
+    eng.execute(f"store {table}", render("one_row", table=Fragment(table), columns=cols), values)
 
 
 @dataclass(frozen=True)
@@ -351,13 +352,13 @@ def _gid(spec: Spec, dims: tuple[int, ...]) -> int:
 def _build_levels(eng: Engine, spec: Spec, min_count: int) -> None:
     for d in range(len(spec.fe)):
         keys = join(spec.key_aliases(d), ", ")
-        sql = render("levels", table=f"bp_lev_{d + 1}", keys=keys)
+        sql = render("levels", table=_level_table(d), keys=keys)
         eng.execute(f"levels of {spec.fe_names[d]}", sql, {"gid": _gid(spec, (d,)), "min_count": min_count})
 
 
 def _single_levels(eng: Engine, spec: Spec) -> int:
     return sum(
-        int(eng.one("singletons", render("singleton_levels", table=f"bp_lev_{d + 1}"))["n_single"])
+        int(eng.one("singletons", render("singleton_levels", table=_level_table(d)))["n_single"])
         for d in range(len(spec.fe))
     )
 
@@ -398,7 +399,7 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
     shifted = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
     sums = join(cell_sums(spec, shifted, carries_products(spec)))
     groups = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
-    filters = ""
+    filters = Fragment("")
     rounds = 0
     n_complete = None
     while True:
@@ -407,7 +408,7 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
         eng.execute(f"per-level statistics (round {rounds})", sql, raw=True)
         _build_levels(eng, spec, min_count=1)
         if n_complete is None:
-            n_complete = int(eng.one("complete rows", render("level_rows", table="bp_lev_1"))["n"] or 0)
+            n_complete = int(eng.one("complete rows", render("level_rows", table=_level_table(0)))["n"] or 0)
             if n_complete == 0:
                 raise BigPanelError("no complete rows: every row misses a used value")
         if not drop_singletons or _single_levels(eng, spec) == 0:
@@ -417,21 +418,19 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
             break  # one effect: dropping a singleton level changes no other level
         if rounds >= MAX_SINGLETON_ROUNDS:
             raise BigPanelError(f"singletons still left after {rounds} rounds; rerun with --singletons keep")
-        filters = "".join(
-            f"\nJOIN bp_lev_{d + 1} USING ({', '.join(spec.key_aliases(d))})" for d in range(k)
-        )
+        filters = Fragment("\n" + level_joins("bp_lev", {d: spec.key_aliases(d) for d in range(k)}))
     return _fetch(eng, spec, n_complete, rounds, budget, forced)
 
 
 def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
     """Weights and row counts of effect d's levels, and for each cluster column whether d is nested in it."""
-    tab = eng.arrow("level counts", render("level_table", columns="nw, n", table=f"bp_lev_{d + 1}"))
+    tab = eng.arrow("level counts", render("level_table", columns=names(["nw", "n"]), table=_level_table(d)))
     weights = tab.column("nw").to_numpy().astype(float)
     rows = tab.column("n").to_numpy().astype(np.int64)
-    keys = ", ".join(spec.key_aliases(d))
+    keys = names(spec.key_aliases(d))
     nested = []
     for c in spec.cluster_aliases:
-        sql = render("nested", low=f"{c}_min", high=f"{c}_max", keys=keys, table=f"bp_lev_{d + 1}")
+        sql = render("nested", low=Fragment(f"{c}_min"), high=Fragment(f"{c}_max"), keys=keys, table=_level_table(d))
         nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, (d,))})["nested"]))
     return weights, rows, nested
 
@@ -440,7 +439,7 @@ def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray
     """Effect d's per-level sums (levels x columns) and the columns' total sums of squares."""
     m = len(spec.value_aliases)
     sums = join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", ")
-    sql = render("level_sums", sums=sums, table=f"bp_lev_{d + 1}", keys=", ".join(spec.key_aliases(d)))
+    sql = render("level_sums", sums=sums, table=_level_table(d), keys=names(spec.key_aliases(d)))
     tab = eng.arrow("level sums", sql, {"gid": _gid(spec, (d,))})
     rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
     return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
@@ -452,7 +451,8 @@ def _products(eng: Engine, spec: Spec) -> np.ndarray:
     m = len(spec.value_aliases)
     pairs = [(i, j) for i in range(m) for j in range(i, m)]
     sums = join([f"fsum(c.{f'q{i}' if i == j else f'p{i}_{j}'}) AS t_{i}_{j}" for i, j in pairs])
-    sql = render("level_moments", sums=sums, keys=", ".join(spec.key_aliases(0)), cells="bp_cells", levels="bp_lev_1")
+    sql = render("level_moments", sums=sums, keys=names(spec.key_aliases(0)), cells=Fragment("bp_cells"),
+                 levels=_level_table(0))
     row = eng.one("products of the shifted columns", sql, {"gid": _gid(spec, (0,))})
     out = np.zeros((m, m))
     for i, j in pairs:
@@ -460,10 +460,14 @@ def _products(eng: Engine, spec: Spec) -> np.ndarray:
     return out
 
 
-def _level_joins(spec: Spec) -> str:
+def _level_joins(spec: Spec) -> Fragment:
     """Inner joins of the sample to every effect's final level table (``l1``, ``l2``, ...)."""
-    return "\n".join(f"JOIN bp_lev_{d + 1} AS l{d + 1} USING ({', '.join(spec.key_aliases(d))})"
-                     for d in range(len(spec.fe)))
+    return level_joins("bp_lev", {d: spec.key_aliases(d) for d in range(len(spec.fe))}, "l")
+
+
+def _level_table(d: int) -> Fragment:
+    """The name of effect d's level table."""
+    return Fragment(f"bp_lev_{d + 1}")
 
 
 def pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
@@ -473,12 +477,13 @@ def pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple
     codes = [f"l{d + 1}.code" for d in range(k)]
     pairs = list(combinations(range(k), 2))
     sql = render("pair_counts", codes=join([f"{c} AS c{d + 1}" for d, c in enumerate(codes)]),
-                 grouping=", ".join(codes), weight="sum(w)" if spec.weights else "count(*)", joins=_level_joins(spec),
+                 grouping=names(codes), weight=Fragment("sum(w)" if spec.weights else "count(*)"),
+                 joins=_level_joins(spec),
                  sets=grouping_sets([[codes[d], codes[e]] for d, e in pairs]))
     eng.execute("pairs of levels", sql, raw=True)
     cross: dict[tuple[int, int], sparse.csr_matrix] = {}
     for d, e in pairs:
-        tab = eng.arrow("fetch pair tables", render("pair_table", codes=f"c{d + 1}, c{e + 1}"),
+        tab = eng.arrow("fetch pair tables", render("pair_table", codes=names([f"c{d + 1}", f"c{e + 1}"])),
                         {"gid": grouping_id(codes, [codes[d], codes[e]])})
         nw = tab.column("nw").to_numpy().astype(float)
         code_d, code_e = (tab.column(f"c{a + 1}").to_numpy() for a in (d, e))
@@ -518,7 +523,7 @@ def _stream_codes(eng: Engine, spec: Spec, big: int, levels: list[int], n_obs: i
     cols = [f"l{d + 1}.code AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
     cols.append(f"l{big + 1}.code AS c{big + 1}")
     sql = render("row_codes", codes=join(cols), joins=_level_joins(spec),
-                 order=f"\nORDER BY l{big + 1}.code" if sort else "")
+                 order=Fragment(f"\nORDER BY l{big + 1}.code" if sort else ""))
     codes = {d: np.empty(n_obs, dtype=np.int32) for d in small}
     weights = np.empty(n_obs) if spec.weights else None
     heads: list[np.ndarray] = []
