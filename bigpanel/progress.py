@@ -1,6 +1,7 @@
 """The status line a command shows on a terminal while it runs.
 
-It names the current step (a pass over the rows is numbered: "pass 2: per-level
+It names the current step (a pass over the rows is numbered, with the fewest passes
+the fit takes when the estimator states it: "pass 1 of at least 3: per-level
 statistics"), how far the engine says the running query has got when it can tell
 (DuckDB estimates a percentage), and the time since the command started. It is
 refreshed a few times a second from a thread of its own, so a long pass shows its

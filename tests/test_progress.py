@@ -13,7 +13,21 @@ def test_every_pass_over_the_rows_is_announced_and_numbered(to_parquet):
                        on_step=heard.append)
     passes = [label for label in heard if label.startswith("pass ")]
     assert len(passes) == res.solver.raw_passes == 3
-    assert [p.split(":")[0] for p in passes] == ["pass 1", "pass 2", "pass 3"]
+    # two effects, CR1: at least 3 passes (the README's table in "How it scales")
+    assert [p.split(":")[0] for p in passes] == ["pass 1 of at least 3", "pass 2 of at least 3",
+                                                 "pass 3 of at least 3"]
+
+
+def test_passes_beyond_the_least_are_numbered_alone(to_parquet):
+    # One effect with HC1 errors takes at least 2 passes (README table); a missing value adds
+    # the incomplete-row pass, which the line numbers without a total.
+    df = unit_period_panel(seed=13)
+    df.loc[3, "x1"] = float("nan")
+    heard: list[str] = []
+    res = bigpanel.fit(to_parquet(df), y="y", x=["x1", "x2"], fe="unit", variance="hc1", on_step=heard.append)
+    passes = [label.split(":")[0] for label in heard if label.startswith("pass ")]
+    assert len(passes) == res.solver.raw_passes == 3
+    assert passes == ["pass 1 of at least 2", "pass 2 of at least 2", "pass 3"]
 
 
 def test_the_line_shows_step_percent_and_elapsed_time():

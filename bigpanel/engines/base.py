@@ -56,6 +56,7 @@ class Engine(ABC):
     con: Any
     on_step: Callable[[str], None] | None = None
     raw_passes: int = 0
+    least_passes: int | None = None  # the fewest passes the running fit takes, when known (progress only)
     timings: dict[str, float] = field(default_factory=dict)
     statements: list[str] = field(default_factory=list)
     bytes_to_client: int = 0
@@ -107,9 +108,17 @@ class Engine(ABC):
         return None
 
     def _announce(self, label: str, raw: bool) -> None:
-        """Tell ``on_step`` what runs now; a pass over the rows is numbered ("pass 2: ...")."""
-        if self.on_step is not None:
-            self.on_step(f"pass {self.raw_passes + 1}: {label}" if raw else label)
+        """Tell ``on_step`` what runs now; a pass over the rows is numbered ("pass 2: ..."), and while
+        its number is within ``least_passes`` (the fewest passes the fit will take, when the
+        estimator states it) also says of how many ("pass 1 of at least 3: ...")."""
+        if self.on_step is None:
+            return
+        if not raw:
+            self.on_step(label)
+            return
+        k = self.raw_passes + 1
+        plan = f" of at least {self.least_passes}" if self.least_passes and k <= self.least_passes else ""
+        self.on_step(f"pass {k}{plan}: {label}")
 
     def _run(self, label: str, raw: bool, sql: str, fn: Callable[[], Any], record: bool = True) -> Any:
         if record:

@@ -22,6 +22,7 @@ from ..errors import BigPanelError
 from ..numerics.dof import Absorbed, count_absorbed
 from ..numerics.project import Projection
 from ..options import SINGLETONS, size_in_bytes
+from ..model.spec import Spec
 from ..passes.moments import Moments
 from ..passes.reduce import Reduction, Start
 from .base import Session
@@ -85,10 +86,26 @@ def budget_bytes(cell_budget: int | str | None) -> int:
     return int(cell_budget)
 
 
+def least_passes(spec: Spec) -> int | None:
+    """The fewest passes over the rows the steps below take on the SQL engine (the README's table
+    in *How it scales*): one effect 1, or 2 with HC1 errors; two or more effects 2 (per-level
+    statistics, then pair tables or row codes), or 3 with HC1 (the score pass) or CR1 (the
+    per-cluster sums). A filter, singleton rounds, missing values, unsorted codes, the in-engine
+    sweeps and an estimator's own passes add to it. None without effects."""
+    k = len(spec.fe)
+    if k == 0:
+        return None
+    if k == 1:
+        return 2 if spec.variance == "hc1" else 1
+    return 3 if spec.variance in ("hc1", "cr1") else 2
+
+
 def absorb(session: Session, how: Projections, in_memory: bool, back: Backend | None = None) -> Absorption:
     """Run the steps of the module docstring on the SQL engine, or in numpy when ``in_memory``;
     ``back`` is a backend the caller has already opened on the session (its views made)."""
     eng = session.eng
+    if not in_memory:
+        eng.least_passes = least_passes(session.spec)
     if back is None:
         back = (MemoryBackend if in_memory else SqlBackend)(eng, session.spec, session.src.kind)
     first = back.start()
