@@ -1,6 +1,6 @@
 """bigpanel: fixed-effects (within) regressions on panels that stay in the database engine."""
 
-from typing import Any
+from __future__ import annotations  # no module load: the entry point's handler comes first
 
 __all__ = ["fit", "event", "load", "FitResult", "EventResult", "BigPanelError", "__version__"]
 
@@ -10,7 +10,7 @@ _HOMES = {"fit": "api", "event": "api", "load": "results.saved", "FitResult": "r
           "EventResult": "results.event", "BigPanelError": "errors", "__version__": "version"}
 
 
-def __getattr__(name: str) -> Any:
+def __getattr__(name: str) -> object:
     """The names of ``__all__``, each imported when first asked for."""
     if name not in _HOMES:
         raise AttributeError(f"module 'bigpanel' has no attribute {name!r}")
