@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 import bigpanel
-from test_engines import FORMULA, _fit_on, panel, parquet_file, pg_url, spark_on  # noqa: F401 - session fixtures
+from test_engines import FORMULA, fit_on, panel, parquet_file, pg_url, spark_on  # noqa: F401 - session fixtures
 
 pytestmark = pytest.mark.server
 
@@ -24,7 +24,7 @@ CASES = {  # stores are nested in the 20 regions; weeks cut across them
 def test_webb_p_values_equal_duckdb(engine, case, request, parquet_file):  # noqa: F811
     kw = dict(**CASES[case], wild_bootstrap=True, bootstrap_weights="webb", draws=999, seed=11, tol=1e-12)
     ref = bigpanel.fit(parquet_file, FORMULA, **kw)
-    res = _fit_on(engine, request, parquet_file, kw)
+    res = fit_on(engine, request, parquet_file, kw)
     p = [[r.to_dict()["coefficients"][n]["bootstrap_p_value"] for n in ref.names] for r in (ref, res)]
     assert np.max(np.abs(np.subtract(*p))) <= 1e-12
     assert res.extras["bootstrap"]["effects_cutting_across"] == ref.extras["bootstrap"]["effects_cutting_across"]

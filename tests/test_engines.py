@@ -237,18 +237,19 @@ def reference(parquet_file):
     return {name: bigpanel.fit(parquet_file, FORMULA, tol=TOL, **kw) for name, kw in CASES.items()}
 
 
-def _fit_on(engine: str, request, parquet_file: str, kw: dict):
+def fit_on(engine: str, request, parquet_file: str, kw: dict, formula: str = FORMULA):
+    """The fit of ``formula`` on the test panel, on PostgreSQL (table ``sales``) or Spark."""
     if engine == "postgres":
-        return bigpanel.fit(request.getfixturevalue("pg_url"), FORMULA, table="sales", **kw)
+        return bigpanel.fit(request.getfixturevalue("pg_url"), formula, table="sales", **kw)
     request.getfixturevalue("spark_on")
-    return bigpanel.fit(parquet_file, FORMULA, engine="spark", **kw)
+    return bigpanel.fit(parquet_file, formula, engine="spark", **kw)
 
 
 @pytest.mark.parametrize("engine", ["postgres", "spark"])
 @pytest.mark.parametrize("case", list(CASES))
 def test_same_fit_as_duckdb(engine, case, request, parquet_file, reference):
     ref = reference[case]
-    res = _fit_on(engine, request, parquet_file, {**CASES[case], "tol": TOL})
+    res = fit_on(engine, request, parquet_file, {**CASES[case], "tol": TOL})
     assert res.names == ref.names == ["x1", "x2", "promo"]
     # each engine reports its own name (issue 13: a PostgreSQL fit used to say "duckdb")
     assert (ref.solver.engine, res.solver.engine) == ("duckdb", {"postgres": "postgresql", "spark": "spark"}[engine])
@@ -283,7 +284,7 @@ FAMILY = {  # the other estimators, weighted, with the store as the unit
 def test_estimator_family_same_as_duckdb(engine, case, request, parquet_file):
     kw = dict(fe="store", **FAMILY[case])
     ref = bigpanel.fit(parquet_file, FORMULA, **kw)
-    res = _fit_on(engine, request, parquet_file, kw)
+    res = fit_on(engine, request, parquet_file, kw)
     assert res.names == ref.names and res.nobs == ref.nobs and res.rows == ref.rows
     assert rel(res.coef, ref.coef) < 1e-9 and rel(res.std_error, ref.std_error) < 1e-9
     for key in ("random_effects", "first_difference", "hausman", "mundlak"):
@@ -307,11 +308,7 @@ IV_CASES = {  # instrumental variables: the same SQL with the instruments as two
 def test_instrumental_variables_same_as_duckdb(engine, case, request, parquet_file):
     kw = {**IV_CASES[case], "tol": TOL}
     ref = bigpanel.fit(parquet_file, IV_FORMULA, **kw)
-    if engine == "postgres":
-        res = bigpanel.fit(request.getfixturevalue("pg_url"), IV_FORMULA, table="sales", **kw)
-    else:
-        request.getfixturevalue("spark_on")
-        res = bigpanel.fit(parquet_file, IV_FORMULA, engine="spark", **kw)
+    res = fit_on(engine, request, parquet_file, kw, IV_FORMULA)
     assert res.names == ref.names == ["x1", "x2", "promo"] and res.rows == ref.rows
     assert rel(res.coef, ref.coef) < 1e-9 and rel(res.std_error, ref.std_error) < 1e-9
     for key, field in (("weak_identification", "value"), ("overidentification", "statistic"),

@@ -9,7 +9,7 @@ import pytest
 
 import bigpanel
 from conftest import rel
-from test_engines import panel, parquet_file, pg_url, spark_on  # noqa: F401 - the session's servers and data
+from test_engines import fit_on, panel, parquet_file, pg_url, spark_on  # noqa: F401 - the session's servers and data
 
 pytestmark = pytest.mark.server
 FORMULA = "{CASE WHEN store = 'S000' THEN 0 ELSE round(exp(y / 4)) END} ~ x1 + x2 + promo"
@@ -25,11 +25,7 @@ TIGHT = dict(tol=1e-12, irls_tol=1e-12)  # so that the engines' summation orders
 def test_poisson_same_fit_as_duckdb(engine, case, request, parquet_file):  # noqa: F811 - the fixture
     kw = dict(model="poisson", **CASES[case], **TIGHT)
     ref = bigpanel.fit(parquet_file, FORMULA, **kw)
-    if engine == "postgres":
-        res = bigpanel.fit(request.getfixturevalue("pg_url"), FORMULA, table="sales", **kw)
-    else:
-        request.getfixturevalue("spark_on")
-        res = bigpanel.fit(parquet_file, FORMULA, engine="spark", **kw)
+    res = fit_on(engine, request, parquet_file, kw, FORMULA)
     assert res.names == ref.names and res.nobs == ref.nobs and res.rows == ref.rows
     assert rel(res.coef, ref.coef) < 1e-9
     assert rel(res.std_error, ref.std_error) < 1e-9

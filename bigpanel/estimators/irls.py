@@ -32,9 +32,8 @@ from ..numerics.solve import Slopes, solve_slopes
 from ..passes.irls import (StepSums, check_nonnegative, create_demeaned, fetch_weights, final_pass, step_pass,
                            store_state)
 from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, RowCodes, Start,
-                             choose_strategy, create_views, incomplete, reduce_cells, start,
+                             choose_strategy, create_views, incomplete, level_keys, reduce_cells, start,
                              value_offsets)
-from ..sql.text import Fragment, join, render
 from .absorb import Projections
 from .base import Session
 
@@ -97,12 +96,6 @@ class Run:
 def working_spec(spec: Spec) -> Spec:
     """The spec the weighted passes of the last step read: weighted by the working weight ``w``."""
     return replace(spec, weights=spec.weights or WORKING_WEIGHT)
-
-
-def level_keys(eng: Engine, spec: Spec, d: int) -> pa.Table:
-    """Effect d's level keys in code order, from the reduction's level table."""
-    sql = render("level_table", columns=join(spec.key_aliases(d), ", "), table=Fragment(f"bp_lev_{d + 1}"))
-    return eng.arrow("effect keys", sql)
 
 
 def prepare(session: Session, how: Projections) -> Sample:

@@ -17,8 +17,7 @@ from ..passes.moments import (ClusterTerm, Moments, Residuals, create_tilde, cro
                               meat_cluster, meat_hc, nested_cross_products, ols_residuals, residual_ss,
                               solution_cross_products, store_effects)
 from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Reduction, Start, create_views, incomplete,
-                             reduce_cells, start)
-from ..sql.text import Fragment, join, render
+                             level_keys, reduce_cells, start)
 
 ROUNDING = 1e-14  # relative rounding of a level co-moment: plain sums, then one cancelling subtraction
 TRUSTED = 1e-10  # largest predicted relative error of the cross-products' solution taken from co-moments
@@ -196,8 +195,7 @@ class SqlBackend:
         return residual_ss(self.eng, self.spec, ols_residuals(len(self.spec.value_aliases), keep, beta))
 
     def level_keys(self, d: int) -> pa.Table:
-        sql = render("level_table", columns=join(self.spec.key_aliases(d), ", "), table=Fragment(f"bp_lev_{d + 1}"))
-        return self.eng.arrow("effect keys", sql)
+        return level_keys(self.eng, self.spec, d)
 
 
 def _accurate(q: np.ndarray, squares: np.ndarray) -> bool:

@@ -17,7 +17,7 @@ import pyarrow as pa
 
 from ..engines.base import Engine
 from .project import Projection
-from ..passes.reduce import Reduction
+from ..passes.reduce import Reduction, level_table
 from ..model.spec import Spec
 from ..sql.text import Fragment, join, level_joins, names, render
 
@@ -40,7 +40,7 @@ def _others(eng: Engine, spec: Spec, d: int, k: int, cols: int, label: str) -> n
                               joins=level_joins("bp_sweep", {e: spec.key_aliases(e) for e in others}, "a")),
                 raw=True)
     tab = eng.arrow("fetch the sums", render("alpha_by_code", columns=join([f"a.z{j}" for j in range(cols)], ", "),
-                                             alpha=Fragment("bp_sweep_next"), levels=Fragment(f"bp_lev_{d + 1}"),
+                                             alpha=Fragment("bp_sweep_next"), levels=level_table(d),
                                              keys=keys_d))
     return np.column_stack([tab.column(f"z{j}").to_numpy() for j in range(cols)])
 

@@ -21,7 +21,7 @@ from itertools import combinations
 from typing import Callable
 
 from ..engines.base import Engine
-from .reduce import cell_sums, put_one_row
+from .reduce import cell_sums, level_table, put_one_row
 from ..model.spec import Spec
 from ..sql.text import Fragment, grouped_columns, grouping_id, grouping_sets, join, level_joins, names, render
 
@@ -121,7 +121,7 @@ def level_cross_products(eng: Engine, spec: Spec, m: int, d: int = 0, cells: str
     level's mean is far from the shift relative to its spread; the caller checks the loss.
     """
     pairs = [(i, j) for i in range(m) for j in range(i, m)]
-    tables = {"keys": names(spec.key_aliases(d)), "cells": Fragment(cells), "levels": Fragment(f"bp_lev_{d + 1}")}
+    tables = {"keys": names(spec.key_aliases(d)), "cells": Fragment(cells), "levels": level_table(d)}
     if spec.variance != "cr1":
         sums = join([f"fsum({_comoment(i, j)}) AS q_{i}_{j}" for i, j in pairs])
         return _moments(eng.one("cross-products from the level co-moments",
@@ -161,7 +161,7 @@ def nested_cross_products(eng: Engine, spec: Spec, d: int, m: int) -> tuple[Mome
     mom = level_cross_products(eng, spec, m, d, "bp_nested_cells")
     squares = eng.one("squares of the columns without the other effects",
                       render("level_moments", sums=join([f"fsum(c.q{j}) AS q{j}" for j in range(m)]), keys=keys,
-                             cells=Fragment("bp_nested_cells"), levels=Fragment(f"bp_lev_{d + 1}")), {"gid": 0})
+                             cells=Fragment("bp_nested_cells"), levels=level_table(d)), {"gid": 0})
     return mom, np.array([squares[f"q{j}"] for j in range(m)], dtype=float)
 
 

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from itertools import combinations
 
 import numpy as np
+import pyarrow as pa
 import pyarrow.compute as pc
 from scipy import sparse
 
@@ -352,13 +353,13 @@ def _gid(spec: Spec, dims: tuple[int, ...]) -> int:
 def _build_levels(eng: Engine, spec: Spec, min_count: int) -> None:
     for d in range(len(spec.fe)):
         keys = join(spec.key_aliases(d), ", ")
-        sql = render("levels", table=_level_table(d), keys=keys)
+        sql = render("levels", table=level_table(d), keys=keys)
         eng.execute(f"levels of {spec.fe_names[d]}", sql, {"gid": _gid(spec, (d,)), "min_count": min_count})
 
 
 def _single_levels(eng: Engine, spec: Spec) -> int:
     return sum(
-        int(eng.one("singletons", render("singleton_levels", table=_level_table(d)))["n_single"])
+        int(eng.one("singletons", render("singleton_levels", table=level_table(d)))["n_single"])
         for d in range(len(spec.fe))
     )
 
@@ -408,7 +409,7 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
         eng.execute(f"per-level statistics (round {rounds})", sql, raw=True)
         _build_levels(eng, spec, min_count=1)
         if n_complete is None:
-            n_complete = int(eng.one("complete rows", render("level_rows", table=_level_table(0)))["n"] or 0)
+            n_complete = int(eng.one("complete rows", render("level_rows", table=level_table(0)))["n"] or 0)
             if n_complete == 0:
                 raise BigPanelError("no complete rows: every row misses a used value")
         if not drop_singletons or _single_levels(eng, spec) == 0:
@@ -424,13 +425,13 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
 
 def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
     """Weights and row counts of effect d's levels, and for each cluster column whether d is nested in it."""
-    tab = eng.arrow("level counts", render("level_table", columns=names(["nw", "n"]), table=_level_table(d)))
+    tab = eng.arrow("level counts", render("level_table", columns=names(["nw", "n"]), table=level_table(d)))
     weights = tab.column("nw").to_numpy().astype(float)
     rows = tab.column("n").to_numpy().astype(np.int64)
     keys = names(spec.key_aliases(d))
     nested = []
     for c in spec.cluster_aliases:
-        sql = render("nested", low=Fragment(f"{c}_min"), high=Fragment(f"{c}_max"), keys=keys, table=_level_table(d))
+        sql = render("nested", low=Fragment(f"{c}_min"), high=Fragment(f"{c}_max"), keys=keys, table=level_table(d))
         nested.append(bool(eng.one("nesting", sql, {"gid": _gid(spec, (d,))})["nested"]))
     return weights, rows, nested
 
@@ -439,7 +440,7 @@ def _level_sums(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray
     """Effect d's per-level sums (levels x columns) and the columns' total sums of squares."""
     m = len(spec.value_aliases)
     sums = join([f"c.s{j}" for j in range(m)] + [f"c.q{j}" for j in range(m)], ", ")
-    sql = render("level_sums", sums=sums, table=_level_table(d), keys=names(spec.key_aliases(d)))
+    sql = render("level_sums", sums=sums, table=level_table(d), keys=names(spec.key_aliases(d)))
     tab = eng.arrow("level sums", sql, {"gid": _gid(spec, (d,))})
     rhs = np.column_stack([tab.column(f"s{j}").to_numpy() for j in range(m)])
     return rhs, np.array([pc.sum(tab.column(f"q{j}")).as_py() for j in range(m)], dtype=float)
@@ -452,7 +453,7 @@ def _products(eng: Engine, spec: Spec) -> np.ndarray:
     pairs = [(i, j) for i in range(m) for j in range(i, m)]
     sums = join([f"fsum(c.{f'q{i}' if i == j else f'p{i}_{j}'}) AS t_{i}_{j}" for i, j in pairs])
     sql = render("level_moments", sums=sums, keys=names(spec.key_aliases(0)), cells=Fragment("bp_cells"),
-                 levels=_level_table(0))
+                 levels=level_table(0))
     row = eng.one("products of the shifted columns", sql, {"gid": _gid(spec, (0,))})
     out = np.zeros((m, m))
     for i, j in pairs:
@@ -465,9 +466,15 @@ def _level_joins(spec: Spec) -> Fragment:
     return level_joins("bp_lev", {d: spec.key_aliases(d) for d in range(len(spec.fe))}, "l")
 
 
-def _level_table(d: int) -> Fragment:
-    """The name of effect d's level table."""
+def level_table(d: int) -> Fragment:
+    """The name of effect d's level table (its keys, code, weight and rows per kept level)."""
     return Fragment(f"bp_lev_{d + 1}")
+
+
+def level_keys(eng: Engine, spec: Spec, d: int) -> pa.Table:
+    """Effect d's level keys in code order, from its level table."""
+    return eng.arrow("effect keys", render("level_table", columns=join(spec.key_aliases(d), ", "),
+                                           table=level_table(d)))
 
 
 def pair_tables(eng: Engine, spec: Spec, counts: list[np.ndarray]) -> dict[tuple[int, int], sparse.csr_matrix]:
