@@ -27,13 +27,13 @@ from ..model.spec import Spec
 from ..model.event import DEFAULT_HORIZON, Design, event_design, event_spec
 from ..numerics.given_rhs import solve_given
 from ..numerics.imputation import (Cells, Columns, Imputed, cell_averages, choose_columns, given_rhs, imputed,
-                                   interval, lead_rows, pretrend_moments)
+                                   interval, lead_rows, lead_sums, pretrend_moments)
 from ..numerics.inference import infer
 from ..numerics.project import Projection
 from ..numerics.rowcodes import Links
 from ..numerics.solve import Slopes, solve_slopes
-from ..passes.event import (PanelCounts, ScoreTerms, Targets, cell_sums, check_panel, cluster_scores, meat,
-                            put_components, rows_view, targets)
+from ..passes.event import (PanelCounts, ScoreTerms, Targets, check_panel, cluster_scores, meat, put_components,
+                            put_fit, rows_view, targets)
 from ..passes.moments import ClusterTerm, store_effects
 from ..passes.reduce import Reduction, Start, put_one_row
 from ..results.event import EventEstimate, EventResult
@@ -132,13 +132,15 @@ class EventStudy(Estimator):
         linked = ab.labels is not None and (ab.n_comp or 1) > 1
         if linked:
             put_components(eng, ab.labels, len(red.counts[0]))
-        tg = targets(eng, spec, design, [len(c) for c in red.counts], linked)
+        keys = [back.level_keys(d) for d in range(len(red.counts))]
+        put_fit(eng, keys, ab.proj.alpha)
+        put_one_row(eng, "bp_event_coef", {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}})
+        tg = targets(eng, spec, design, [len(c) for c in red.counts], linked, slopes.keep)
         cols = choose_columns(design.leads, design.post, tg.total)
         if not any(k is None for k in cols.estimands):
             reasons = "; ".join(f"{why}: {n:,}" for why, n in tg.excluded.items())
             raise BigPanelError(f"none of the {panel.treated:,} treated rows can be imputed ({reasons})")
         rhs, totals = given_rhs(tg.rhs, tg.total, cols, red.counts)
-        keys = [back.level_keys(d) for d in range(len(red.counts))]
         if eng.on_step:
             eng.on_step(f"implied weights ({red.strategy})")
         start = perf_counter()
@@ -161,8 +163,8 @@ class EventStudy(Estimator):
         eng, slopes, cols = f.session.eng, f.slopes, f.cols
         controls = [f"e{j}" for j in slopes.keep]
         coef = {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}}
-        put_one_row(eng, "bp_event_coef", coef)
-        cells = Cells.split(cell_sums(eng, slopes.keep, len(cols.leads), f.design.lo))
+        cells = Cells.grouped(f.targets.cells, slopes.beta, controls, cols.leads,
+                              lead_sums(f.targets.rhs, cols.source, weights.alpha, len(cols.leads)))
         imp = imputed(cells, cols.estimands, controls)
         expected = f.targets.total[cols.source[cols.first_weight_column:]]
         if not np.allclose(imp.totals, expected, rtol=1e-9, atol=0.0):

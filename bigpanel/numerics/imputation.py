@@ -35,7 +35,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute  # noqa: F401 - pa.compute.invert
 
 from .given_rhs import virtual_totals
 
@@ -84,25 +83,52 @@ def given_rhs(rhs: list[np.ndarray], total: np.ndarray, cols: Columns,
 
 @dataclass(frozen=True)
 class Cells:
-    """The sums of the cell pass, split: treated cells (cohort ``fc``, event time ``kk``) and
-    untreated groups (``kk`` the lead; NaN beyond the leads); ``keys`` holds the treated cells'
-    cohort and event time in their own types."""
+    """The sums by cell, split: treated cells (cohort ``fc``, event time ``kk``) and the
+    untreated rows by lead (``kk``); ``keys`` holds the treated cells' cohort and event time in
+    their own types."""
 
     treated: dict[str, np.ndarray]
     untreated: dict[str, np.ndarray]
     keys: pa.Table
 
     @classmethod
-    def split(cls, tab: pa.Table) -> Cells:
-        flag = pa.array(np.array(tab.column("treated").to_pylist(), dtype=bool))
-        numbers = [n for n in tab.column_names if n not in ("treated", "fc")]
-        treated = {n: _floats(tab.column(n).filter(flag)) for n in numbers}
-        untreated = {n: _floats(tab.column(n).filter(pa.compute.invert(flag))) for n in numbers}
-        return cls(treated, untreated, tab.select(["fc", "kk"]).filter(flag))
+    def grouped(cls, tab: pa.Table, beta: np.ndarray, controls: list[str], leads: list[int],
+                lead_z: np.ndarray) -> Cells:
+        """From the sums by cohort ``fc`` and event time ``k`` of the imputable rows (n, sw,
+        swt = sum w tau, sw2t, sw2 and sw<e> for each control e; w = 1 on an untreated row):
+        the treated cells (k >= 0) as they are, and the untreated rows added up per lead, with
+        sum e0 = sum tau + b' sum x~ (tau = e0 - x~'b) and sum z_a over the lead's rows from
+        ``lead_z`` (leads x extra columns)."""
+        k = _floats(tab.column("k"))
+        flag = k >= 0
+        numbers = [n for n in tab.column_names if n not in ("fc", "k")]
+        sums = {n: _floats(tab.column(n)) for n in numbers}
+        treated = {n: v[flag] for n, v in sums.items()}
+        treated["kk"] = k[flag]
+        at = [k == a for a in leads]
+        untreated = {"kk": np.array(leads, dtype=float), "n": np.array([sums["n"][g].sum() for g in at])}
+        for e in controls:
+            untreated[f"s{e}"] = np.array([sums[f"sw{e}"][g].sum() for g in at])
+        own = np.array([sums["swt"][g].sum() for g in at])
+        untreated["se0"] = own + sum((untreated[f"s{e}"] * b for e, b in zip(controls, beta)), np.zeros(len(leads)))
+        for a in range(lead_z.shape[1]):
+            untreated[f"sz{a}"] = lead_z[:, a]
+        keys = tab.select(["fc", "k"]).filter(pa.array(flag)).rename_columns(["fc", "kk"])
+        return cls(treated, untreated, keys)
 
 
 def _floats(col: pa.ChunkedArray) -> np.ndarray:
     return np.asarray(col.to_numpy(zero_copy_only=False), dtype=float)
+
+
+def lead_sums(rhs: list[np.ndarray], source: list[int], alpha: list[np.ndarray], leads: int) -> np.ndarray:
+    """sum z_a over the untreated rows at each lead i, from the rows per level at that lead
+    (``rhs[d][:, source[i]]``) and z_a's effects per level (``alpha[d][:, a]``): z is constant
+    within a level, so the sum is exact. Leads x leads."""
+    out = np.zeros((leads, leads))
+    for r, a in zip(rhs, alpha):
+        out += r[:, source[:leads]].T @ a[:, :leads]
+    return out
 
 
 def _in(cells: dict[str, np.ndarray], k: int | None) -> np.ndarray:

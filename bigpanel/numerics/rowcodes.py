@@ -35,6 +35,16 @@ An unweighted C_e that holds most of its cells, each at most once (the period of
 unit x period panel), is kept as all ones minus its missing cells M: C_e p =
 1 (1'p) - M p and C_e'v = 1 (1'v) - M'v cost the missing cells only.
 
+When the other effects hold few levels (the periods of a unit x period panel), S is
+formed densely, S = diag(n_s) + [P_ef] - T' diag(1/n_B) T with T the per-level tables
+C_e side by side (B's levels in blocks, one matrix product each), and its Cholesky
+factor, with the pinned levels left out, is the preconditioner: the conjugate
+gradients then stop after one or two iterations, whatever the graph. That is done
+when forming S (about B x G^2 multiply-adds for G other levels, at dense speed) costs
+at most DENSE_PAYS iterations' sparse products (2 x nonzeros x columns each; a dense
+multiply-add runs some 25 times faster on this machine) or a few milliseconds; else the
+preconditioner is S's diagonal.
+
 A product with a C_e of many levels reads and writes memory at random; it runs
 in threads (scipy's sparse products release the interpreter lock), each on some
 of the value columns, so the sums are the same as in one thread.
@@ -44,10 +54,10 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy import sparse
+from scipy import linalg, sparse
 from scipy.sparse.csgraph import connected_components
 
 from .project import Projection, conjugate_gradients
@@ -58,6 +68,10 @@ EDGE_CHUNK = 1 << 24  # rows (or edges) handled at a time while counting pair ta
 GRID_CHUNK = 1 << 18  # rows marked at a time in the cells table of a complement (small: the temporaries stay in cache)
 THREADED_LEVELS = 1 << 16  # a product with C_e runs its value columns in threads from this many levels of e
 RUNS_PAY = 0.75  # a link table is shortened to its runs when they are at most this share of its rows
+DENSE_LEVELS = 2048  # S is formed densely (and factored) only when the other effects hold at most this many levels
+DENSE_PAYS = 100  # ... and when forming it costs at most this many iterations' sparse products (see _dense_schur)
+DENSE_FLOOR = 1 << 26  # ... or at most this many multiply-adds (a few milliseconds)
+DENSE_CHUNK = 1 << 22  # entries of a dense block of the per-level link tables while forming S
 
 
 @dataclass(frozen=True)
@@ -89,7 +103,8 @@ class Links:
     one B level (``order``: the B level of each row; None: one row per level, in code order;
     ``gather`` adds rows up per level), ``pairs[(e, f)]`` = P_ef (e < f), for every other
     effect e the connected components of the graph linking its levels to B's (``groups[e]``:
-    their number and a label per level of e) and ``unit`` the effects whose C_e holds only ones."""
+    their number and a label per level of e), ``unit`` the effects whose C_e holds only ones
+    and ``formed`` the dense S last formed, with the counts it was formed for."""
 
     big: int
     link: dict[int, Link]
@@ -98,6 +113,7 @@ class Links:
     unit: frozenset[int]
     order: np.ndarray | None
     gather: sparse.csr_matrix | None
+    formed: dict[str, tuple[list[np.ndarray], np.ndarray]] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def nbytes(self) -> int:
@@ -218,16 +234,21 @@ def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray
         return None
     grid = grid.reshape(rows, g)
     first = grid.argmax(axis=1).astype(np.int32)
-    absent_rows, absent = np.nonzero(~grid)
-    ptr = np.concatenate([[0], np.cumsum(np.bincount(absent_rows, minlength=rows))]).astype(indptr.dtype)
-    missing = sparse.csr_matrix((np.ones(len(absent)), absent.astype(indptr.dtype), ptr), shape=(rows, g))
-    heavy = grid.sum(axis=1) * 2 > g
+    holds = np.diff(indptr)
+    ptr = np.concatenate([[0], np.cumsum(g - holds)]).astype(indptr.dtype)
+    columns = np.broadcast_to(np.arange(g, dtype=indptr.dtype), grid.shape)  # cells in row order, no temporaries
+    missing = sparse.csr_matrix((np.ones(int(ptr[-1])), columns[~grid], ptr), shape=(rows, g))
+    heavy = holds * 2 > g
     held = np.flatnonzero(grid[heavy].any(axis=0))
-    light_rows, light = np.nonzero(grid[~heavy])
-    edges = [(np.full(len(held), held[0] if len(held) else 0), held), (first[~heavy][light_rows], light)]
+    edges = [(np.full(len(held), held[0] if len(held) else 0), held),
+             (np.repeat(first[~heavy], holds[~heavy]), columns[~heavy][grid[~heavy]])]
     if order is not None:
         edges.append(_split_edges(first, order, levels))
     a, b = (np.concatenate(side) for side in zip(*edges))
+    if g * g <= DENSE_PAIRS:  # each edge once: the graph's build sorts no duplicates
+        seen = np.zeros(g * g, dtype=bool)
+        seen[a.astype(np.int32, copy=False) * g + b] = True
+        a, b = np.divmod(np.flatnonzero(seen), g)
     graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
     n_comp, labels = connected_components(graph, directed=False)
     return _Complement(missing, first), (int(n_comp), labels)
@@ -271,7 +292,7 @@ def reweighted(links: Links, sizes: list[int], weights: np.ndarray) -> Links:
     small = sorted(links.link)
     pairs = {(e, f): _pair_table(links.link[e].indices, links.link[f].indices, weights, sizes[e], sizes[f])
              for i, e in enumerate(small) for f in small[i + 1:]}
-    return replace(links, pairs=pairs, unit=frozenset())
+    return replace(links, pairs=pairs, unit=frozenset(), formed={})
 
 
 def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
@@ -279,10 +300,57 @@ def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
     return links.pairs[(e, f)] if e < f else links.pairs[(f, e)].T
 
 
-class _Schur:
-    """The operator S of the module docstring on the stacked other effects, and its diagonal."""
+def _per_level(links: Links, e: int) -> tuple[sparse.csr_matrix, np.ndarray | None]:
+    """T_e = the rows of C_e added up per level of B, as a sparse table and, for a complement,
+    the number of rows per level r (then T_e = r 1' - the sparse table)."""
+    c = links.link[e]
+    table = c.missing if isinstance(c, _Complement) else c
+    if links.gather is not None:
+        table = (links.gather @ table).tocsr()
+    if not isinstance(c, _Complement):
+        return table, None
+    runs = np.ones(table.shape[0]) if links.gather is None else np.asarray(links.gather.sum(axis=1)).ravel()
+    return table, runs
 
-    def __init__(self, links: Links, counts: list[np.ndarray]) -> None:
+
+def _dense_schur(links: Links, small: list[int], nb: np.ndarray, n: list[np.ndarray], columns: int) -> np.ndarray | None:
+    """S of the module docstring as a dense matrix, or None when the other effects hold more
+    than DENSE_LEVELS levels or forming S would cost more than DENSE_PAYS iterations' products
+    (and more than DENSE_FLOOR multiply-adds).
+    Kept in ``links.formed`` for the next solve with the same counts (the event study's
+    implied weights reuse the untreated fit's)."""
+    kept = links.formed.get("schur")
+    if kept is not None and all(np.array_equal(a, b) for a, b in zip(kept[0], [nb, *n])):
+        return kept[1]
+    sizes = [len(c) for c in n]
+    g = sum(sizes)
+    products = sum(c.missing.nnz if isinstance(c, _Complement) else c.nnz for c in links.link.values())
+    if g > DENSE_LEVELS or len(nb) * g * g > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
+        return None
+    tables = [_per_level(links, e) for e in small]
+    inv = 1.0 / nb
+    out = np.zeros((g, g))
+    step = max(1, DENSE_CHUNK // g)
+    for lo in range(0, len(nb), step):
+        hi = min(lo + step, len(nb))
+        block = np.hstack([table[lo:hi].toarray() if runs is None else runs[lo:hi, None] - table[lo:hi].toarray()
+                           for table, runs in tables])
+        out -= (block * inv[lo:hi, None]).T @ block
+    offsets = np.concatenate([[0], np.cumsum(sizes)])
+    for i, e in enumerate(small):
+        out[offsets[i]:offsets[i + 1], offsets[i]:offsets[i + 1]] += np.diag(n[i])
+        for j, f in enumerate(small):
+            if f != e:
+                out[offsets[i]:offsets[i + 1], offsets[j]:offsets[j + 1]] += _pair(links, e, f).toarray()
+    links.formed["schur"] = ([nb.copy(), *(c.copy() for c in n)], out)
+    return out
+
+
+class _Schur:
+    """The operator S of the module docstring on the stacked other effects, and its
+    preconditioner: the Cholesky factor of S formed densely, or S's diagonal."""
+
+    def __init__(self, links: Links, counts: list[np.ndarray], columns: int) -> None:
         self.links = links
         self.small = sorted(links.link)
         self.nb = counts[links.big]
@@ -305,6 +373,22 @@ class _Schur:
             free.append(~pinned)
         self.diag = np.concatenate(diag)
         self.free = np.concatenate(free)[:, None]
+        self.factor = self._factor(_dense_schur(links, self.small, self.nb, self.n, columns))
+
+    def _factor(self, dense: np.ndarray | None) -> tuple[np.ndarray, np.ndarray] | None:
+        """The Cholesky factor of S on the free levels (a level absorbed by B scaled as the
+        diagonal is), or None when S is not formed or not positive definite in rounding."""
+        if dense is None:
+            return None
+        free = np.flatnonzero(self.free[:, 0])
+        sub = dense[np.ix_(free, free)]
+        idx = np.arange(len(free))
+        scale = np.concatenate(self.n)[free]
+        sub[idx, idx] = np.where(sub[idx, idx] > 1e-9 * scale, sub[idx, idx], scale)
+        try:
+            return linalg.cho_factor(sub, lower=True, check_finite=False), free
+        except linalg.LinAlgError:
+            return None
 
     def split(self, vec: np.ndarray) -> list[np.ndarray]:
         return [vec[self.offsets[i] : self.offsets[i + 1]] for i in range(len(self.small))]
@@ -323,12 +407,17 @@ class _Schur:
         return np.vstack(out) * self.free
 
     def precondition(self, res: np.ndarray) -> np.ndarray:
-        return res * self.free / self.diag[:, None]
+        if self.factor is None:
+            return res * self.free / self.diag[:, None]
+        factor, free = self.factor
+        out = np.zeros_like(res)
+        out[free] = linalg.cho_solve(factor, res[free], check_finite=False)
+        return out
 
 
 def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Projection:
     """Effects of every dimension for every value column (see the module docstring)."""
-    op = _Schur(links, red.counts)
+    op = _Schur(links, red.counts, red.rhs[links.big].shape[1])
     big = links.big
     rhs_big = red.rhs[big]
     on_big = rhs_big / op.nb[:, None]

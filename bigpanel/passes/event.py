@@ -31,6 +31,7 @@ from ..errors import BigPanelError
 from ..model.event import Design
 from ..model.spec import Spec
 from ..sql.text import Fragment, grouping_id, grouping_sets, join, names, render
+from .moments import store_effects
 
 PANEL_KEYS = ["f1_1", "f2_1", "ft"]
 
@@ -82,12 +83,13 @@ class Targets:
     Columns, in order: one per lead (untreated rows at that event time), one per event time
     0..HI (the target weights of its imputable treated rows), one for all imputable treated
     rows. ``rhs[d]`` holds effect d's levels (code order) x columns, ``total`` each column's sum
-    over the rows, ``excluded`` the treated rows that cannot be imputed by reason.
-    """
+    over the rows, ``excluded`` the treated rows that cannot be imputed by reason, ``cells``
+    the sums by cohort ``fc`` and event time ``k`` of the imputable rows (:func:`targets`)."""
 
     rhs: list[np.ndarray]
     total: np.ndarray
     excluded: dict[str, int]
+    cells: pa.Table
 
 
 def _key_match(spec: Spec, d: int, alias: str) -> str:
@@ -108,48 +110,79 @@ def exclusion_reasons(spec: Spec, design: Design, linked: bool) -> list[tuple[st
     return [(reason, cond) for cond, reason in out]
 
 
-def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: bool) -> Targets:
+def put_fit(eng: Engine, keys: list[pa.Table], alpha: list[np.ndarray]) -> None:
+    """The tables ``bp_event_fit_d``: each effect's level keys, its code and the untreated fit's
+    effects a0.. (one per value column), for :func:`targets`."""
+    coded = [k.append_column("code", pa.array(np.arange(k.num_rows, dtype=np.int32))) for k in keys]
+    store_effects(eng, coded, alpha, prefix="bp_event_fit")
+
+
+def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: bool, controls: list[int]) -> Targets:
     """Pass 2 (see the module docstring). ``linked``: the tables ``bp_event_comp_1`` and
-    ``bp_event_comp_2`` hold the connected component of each unit and period level."""
-    k = len(spec.fe)
+    ``bp_event_comp_2`` hold the connected component of each unit and period level; the
+    tables of :func:`put_fit` the untreated fit's effects, ``bp_event_coef`` its slopes b0..
+    on the kept ``controls`` (value columns 1..K). Plain sums: the summands are demeaned."""
+    k, m = len(spec.fe), len(spec.value_aliases)
     codes = [f"c{d + 1}" for d in range(k)]
-    joins = [f"LEFT JOIN bp_lev_{d + 1} AS l{d + 1} ON {_key_match(spec, d, f'l{d + 1}')}" for d in range(k)]
+    joins = [f"LEFT JOIN bp_event_fit_{d + 1} AS l{d + 1} ON {_key_match(spec, d, f'l{d + 1}')}" for d in range(k)]
     if linked:
         joins += [f"LEFT JOIN bp_event_comp_{d} AS g{d} ON g{d}.code = l{d}.code" for d in (1, 2)]
     reasons = exclusion_reasons(spec, design, linked)
     why = "CASE " + " ".join(f"WHEN {cond} THEN {i + 1}" for i, (_, cond) in enumerate(reasons)) + " ELSE 0 END"
-    order = ["kk", "why", *codes]  # GROUPING's arguments in the order the sets name them (Spark wants that)
-    sets = grouping_sets([["kk", "why", c] for c in codes] + [["kk", "why"]])
-    columns = join([f"l{d + 1}.code AS c{d + 1}" for d in range(k)])
-    eng.execute("event study: right-hand sides and exclusions",
-                render("event_rhs", keys=names(order), columns=columns, why=Fragment(why),
-                       joins=join(joins, "\n      "),
-                       sets=sets), {"lo": design.lo, "beyond": design.hi + 1}, raw=True)
-    params = {f"lead{i}": a for i, a in enumerate(design.leads)}
-    params.update({f"post{h}": p for h, p in enumerate(design.post)})
-    sums = [f"sum(CASE WHEN kk = $lead{i} THEN sw ELSE 0 END) AS r{i}" for i in range(len(design.leads))]
-    sums += [f"sum(CASE WHEN kk = $post{h} THEN sw ELSE 0 END) AS r{len(design.leads) + h}"
-             for h in range(len(design.post))]
-    n_cols = len(design.leads) + len(design.post) + 1
-    sums.append(f"sum(CASE WHEN kk >= 0 THEN sw ELSE 0 END) AS r{n_cols - 1}")
-    values = [f"r{j}" for j in range(n_cols)]
-    rhs = []
-    for d in range(k):
-        sql = render("event_rhs_rows", columns=join([codes[d], *sums]), filter=Fragment(f" AND {codes[d]} IS NOT NULL"),
-                     group=Fragment(f"GROUP BY {codes[d]}"))
-        tab = eng.arrow("right-hand sides", sql, {**params, "gid": grouping_id(order, ["kk", "why", codes[d]])})
-        out = np.zeros((levels[d], n_cols))
-        at = tab.column(codes[d]).to_numpy().astype(np.int64)
-        for j, v in enumerate(values):
-            out[at, j] = tab.column(v).to_numpy(zero_copy_only=False).astype(float)
-        rhs.append(out)
-    gid = {"gid": grouping_id(order, ["kk", "why"])}
-    row = eng.one("right-hand side totals",
-                  render("event_rhs_rows", columns=join(sums), filter=Fragment(""), group=Fragment("")),
-                  {**params, **gid})
+    order = ["kk", "why", *codes, "fc", "k"]  # GROUPING's arguments in the order the sets name them (Spark wants that)
+    cell_set = ["why", "fc", "k"]
+    sets = grouping_sets([["kk", "why", c] for c in codes] + [cell_set])
+    columns = [f"l{d + 1}.code AS c{d + 1}" for d in range(k)]
+    columns += [f"r.v{j} - s.m{j} - " + " - ".join(f"l{d + 1}.a{j}" for d in range(k)) + f" AS e{j}" for j in range(m)]
+    es = [f"e{j}" for j in controls]
+    cell_sums = ["sum(wt * tau) AS swt", "sum(wt * wt * tau) AS sw2t", "sum(wt * wt) AS sw2"]
+    cell_sums += [f"sum(wt * {e}) AS sw{e}" for e in es]
+    eng.execute("event study: right-hand sides, exclusions and sums by cell",
+                render("event_rhs", keys=names(order), columns=join(columns, ",\n                   "),
+                       why=Fragment(why), joins=join(joins, "\n            "), sets=sets, sums=join(cell_sums),
+                       fit=Fragment(_fit("b", es))),
+                {"lo": design.lo, "beyond": design.hi + 1}, raw=True)
+    rhs = [_level_rhs(eng, design, codes[d], levels[d], grouping_id(order, ["kk", "why", codes[d]]))
+           for d in range(k)]
+    gid = {"gid": grouping_id(order, cell_set)}
+    row = eng.one("right-hand side totals", render("event_rhs_rows", columns=join(_target_sums(design, "k")),
+                                                   filter=Fragment(""), group=Fragment("")),
+                  {**_target_params(design), **gid})
     why_rows = eng.arrow("exclusions", render("event_exclusions"), gid).to_pylist()
     excluded = {reasons[int(r["why"]) - 1][0]: int(r["n"]) for r in why_rows}
-    return Targets(rhs, np.array([float(row[v] or 0.0) for v in values]), excluded)
+    cells = eng.arrow("sums by cell", render("event_cells", sums=names(["swt", "sw2t", "sw2", *(f"sw{e}" for e in es)])),
+                      gid)
+    n_cols = len(design.leads) + len(design.post) + 1
+    return Targets(rhs, np.array([float(row[f"r{j}"] or 0.0) for j in range(n_cols)]), excluded, cells)
+
+
+def _target_params(design: Design) -> dict[str, int]:
+    params = {f"lead{i}": a for i, a in enumerate(design.leads)}
+    params.update({f"post{h}": p for h, p in enumerate(design.post)})
+    return params
+
+
+def _target_sums(design: Design, time: str) -> list[str]:
+    """The sum of the target weights of each column (see :class:`Targets`) over the groups of
+    the right-hand-side pass, whose event time is the column ``time``."""
+    sums = [f"sum(CASE WHEN {time} = $lead{i} THEN sw ELSE 0 END) AS r{i}" for i in range(len(design.leads))]
+    sums += [f"sum(CASE WHEN {time} = $post{h} THEN sw ELSE 0 END) AS r{len(design.leads) + h}"
+             for h in range(len(design.post))]
+    sums.append(f"sum(CASE WHEN {time} >= 0 THEN sw ELSE 0 END) AS r{len(sums)}")
+    return sums
+
+
+def _level_rhs(eng: Engine, design: Design, code: str, levels: int, gid: int) -> np.ndarray:
+    """One effect's right-hand sides: its levels (code order) x the columns of :class:`Targets`."""
+    sums = _target_sums(design, "kk")
+    sql = render("event_rhs_rows", columns=join([code, *sums]), filter=Fragment(f" AND {code} IS NOT NULL"),
+                 group=Fragment(f"GROUP BY {code}"))
+    tab = eng.arrow("right-hand sides", sql, {**_target_params(design), "gid": gid})
+    out = np.zeros((levels, len(sums)))
+    at = tab.column(code).to_numpy().astype(np.int64)
+    for j in range(len(sums)):
+        out[at, j] = tab.column(f"r{j}").to_numpy(zero_copy_only=False).astype(float)
+    return out
 
 
 def put_components(eng: Engine, labels: np.ndarray, n_unit: int) -> None:
@@ -175,21 +208,6 @@ def rows_view(eng: Engine, spec: Spec, extra: int, linked: bool) -> None:
 def _fit(coef: str, names: list[str]) -> str:
     """``b.coef0 * name0 + ...`` over the one-row table ``b`` (0 when there is nothing to add)."""
     return " + ".join(f"b.{coef}{i} * {n}" for i, n in enumerate(names)) or "0"
-
-
-def cell_sums(eng: Engine, controls: list[int], leads: int, lo: int) -> pa.Table:
-    """Pass 3: per treated cell (cohort ``fc``, event time ``kk``) the row count and the sums of
-    the weight, weight x tau, weight^2 x tau, weight^2 and weight x e_j; per lead (the untreated
-    rows at event time ``kk``) the sums of e_0, e_j and z_a. ``controls`` are the kept controls
-    (value columns 1..K); the one-row table ``bp_event_coef`` holds their slopes as b0, b1, ...
-    Plain sums: the summands are demeaned."""
-    es = [f"e{j}" for j in controls]
-    tau = f"r.e0 - ({_fit('b', [f'r.{e}' for e in es])})"
-    sums = ["sum(wt) AS sw", "sum(wt * tau) AS swt", "sum(wt * wt * tau) AS sw2t", "sum(wt * wt) AS sw2"]
-    sums += [f"sum(wt * {e}) AS sw{e}" for e in es]
-    sums += [f"sum({e}) AS s{e}" for e in ["e0", *es]] + [f"sum(z{a}) AS sz{a}" for a in range(leads)]
-    return eng.arrow("event study: sums by cell", render("event_cells", sums=join(sums), tau=Fragment(tau)), {"lo": lo},
-                     raw=True)
 
 
 @dataclass(frozen=True)
