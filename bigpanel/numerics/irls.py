@@ -49,8 +49,8 @@ def project_step(red: Reduction, links: Links | None, tol: float, max_iter: int)
     """The change of the effects of every working column (see the module docstring)."""
     if red.strategy == ONE_WAY:
         return Projection([red.rhs[0] / red.counts[0][:, None]], 0, 0.0, True)
-    if red.strategy == ROW_CODES:
-        return solve_codes(links, red, tol, max_iter)
+    if red.strategy == ROW_CODES:  # warm-started: two or three iterations, less than forming S densely each step
+        return solve_codes(links, red, tol, max_iter, dense=False)
     return solve_effects(red, tol=tol, max_iter=max_iter)
 
 

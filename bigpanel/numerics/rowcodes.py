@@ -313,6 +313,16 @@ def _per_level(links: Links, e: int) -> tuple[sparse.csr_matrix, np.ndarray | No
     return table, runs
 
 
+def _dense_rows(table: sparse.csr_matrix, lo: int, hi: int) -> np.ndarray:
+    """Rows lo..hi of ``table`` as a dense array (duplicate cells added), counted straight from
+    its arrays: slicing the sparse table would copy them first."""
+    ptr, g = table.indptr, table.shape[1]
+    start, stop = ptr[lo], ptr[hi]
+    cells = np.repeat(np.arange(hi - lo, dtype=np.int64) * g, np.diff(ptr[lo:hi + 1]))
+    cells += table.indices[start:stop]
+    return np.bincount(cells, weights=table.data[start:stop], minlength=(hi - lo) * g).reshape(hi - lo, g)
+
+
 def _dense_schur(links: Links, small: list[int], nb: np.ndarray, n: list[np.ndarray], columns: int) -> np.ndarray | None:
     """S of the module docstring as a dense matrix, or None when the other effects hold more
     than DENSE_LEVELS levels or forming S would cost more than DENSE_PAYS iterations' products
@@ -333,7 +343,7 @@ def _dense_schur(links: Links, small: list[int], nb: np.ndarray, n: list[np.ndar
     step = max(1, DENSE_CHUNK // g)
     for lo in range(0, len(nb), step):
         hi = min(lo + step, len(nb))
-        block = np.hstack([table[lo:hi].toarray() if runs is None else runs[lo:hi, None] - table[lo:hi].toarray()
+        block = np.hstack([_dense_rows(table, lo, hi) if runs is None else runs[lo:hi, None] - _dense_rows(table, lo, hi)
                            for table, runs in tables])
         out -= (block * inv[lo:hi, None]).T @ block
     offsets = np.concatenate([[0], np.cumsum(sizes)])
@@ -350,41 +360,42 @@ class _Schur:
     """The operator S of the module docstring on the stacked other effects, and its
     preconditioner: the Cholesky factor of S formed densely, or S's diagonal."""
 
-    def __init__(self, links: Links, counts: list[np.ndarray], columns: int) -> None:
+    def __init__(self, links: Links, counts: list[np.ndarray], columns: int, dense: bool) -> None:
         self.links = links
         self.small = sorted(links.link)
         self.nb = counts[links.big]
         self.n = [counts[e] for e in self.small]
         self.offsets = np.concatenate([[0], np.cumsum([len(c) for c in self.n])])
-        inv = 1.0 / self.nb
-        diag, free = [], []
+        pinned = [np.zeros(len(n_e), dtype=bool) for n_e in self.n]
+        for p, e in zip(pinned, self.small):
+            p[np.unique(links.groups[e][1], return_index=True)[1]] = True  # one level per component
+        self.free = ~np.concatenate(pinned)[:, None]
+        dense = _dense_schur(links, self.small, self.nb, self.n, columns) if dense else None
+        scale = np.concatenate(self.n)
+        d = self._diagonal() if dense is None else np.diag(dense)
+        self.diag = np.where(d > 1e-9 * scale, d, scale)  # a level absorbed by B: any positive scale
+        self.factor = None if dense is None else self._factor(dense)
+
+    def _diagonal(self) -> np.ndarray:
+        """S's diagonal from the link tables: n_e - C_e^2' (1 / n_B) (squares of the values)."""
+        inv, links, out = 1.0 / self.nb, self.links, []
         for e, n_e in zip(self.small, self.n):
             c = links.link[e]
             if isinstance(c, _Complement):  # ones: every nonzero equals its square
-                d = n_e - c.transposed_times(links.by_row(inv))
-            else:
-                if e not in links.unit:
-                    c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
-                d = n_e - c.T @ links.by_row(inv)
-            diag.append(np.where(d > 1e-9 * n_e, d, n_e))  # a level absorbed by B: any positive scale
-            n_groups, labels = links.groups[e]
-            pinned = np.zeros(len(n_e), dtype=bool)
-            pinned[np.unique(labels, return_index=True)[1]] = True
-            free.append(~pinned)
-        self.diag = np.concatenate(diag)
-        self.free = np.concatenate(free)[:, None]
-        self.factor = self._factor(_dense_schur(links, self.small, self.nb, self.n, columns))
+                out.append(n_e - c.transposed_times(links.by_row(inv)))
+                continue
+            if e not in links.unit:
+                c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
+            out.append(n_e - c.T @ links.by_row(inv))
+        return np.concatenate(out)
 
-    def _factor(self, dense: np.ndarray | None) -> tuple[np.ndarray, np.ndarray] | None:
+    def _factor(self, dense: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         """The Cholesky factor of S on the free levels (a level absorbed by B scaled as the
-        diagonal is), or None when S is not formed or not positive definite in rounding."""
-        if dense is None:
-            return None
+        diagonal is), or None when S is not positive definite in rounding."""
         free = np.flatnonzero(self.free[:, 0])
         sub = dense[np.ix_(free, free)]
         idx = np.arange(len(free))
-        scale = np.concatenate(self.n)[free]
-        sub[idx, idx] = np.where(sub[idx, idx] > 1e-9 * scale, sub[idx, idx], scale)
+        sub[idx, idx] = self.diag[free]
         try:
             return linalg.cho_factor(sub, lower=True, check_finite=False), free
         except linalg.LinAlgError:
@@ -415,9 +426,10 @@ class _Schur:
         return out
 
 
-def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int) -> Projection:
-    """Effects of every dimension for every value column (see the module docstring)."""
-    op = _Schur(links, red.counts, red.rhs[links.big].shape[1])
+def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int, dense: bool = True) -> Projection:
+    """Effects of every dimension for every value column (see the module docstring); ``dense``
+    False keeps the diagonal preconditioner (a warm-started solve needs few iterations)."""
+    op = _Schur(links, red.counts, red.rhs[links.big].shape[1], dense)
     big = links.big
     rhs_big = red.rhs[big]
     on_big = rhs_big / op.nb[:, None]
