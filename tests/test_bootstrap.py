@@ -84,20 +84,24 @@ def p_value(t_draws: np.ndarray) -> float:
     return float(np.mean(np.abs(t_draws) >= np.abs(t_draws[0]) * (1 - TIE)))
 
 
-@pytest.mark.parametrize("engine, fe, weights", [
-    ("duckdb", ["unit"], None),
-    ("duckdb", ["unit", "period"], None),  # period effects cut across the state clusters
-    ("duckdb", ["period"], None),
-    ("duckdb", ["unit", "period"], "w"),
-    ("memory", ["unit", "period"], None),
+@pytest.mark.parametrize("engine, fe, weights, strategy", [
+    ("duckdb", ["unit"], None, None),
+    ("duckdb", ["unit", "period"], None, None),  # period effects cut across the state clusters
+    ("duckdb", ["period"], None, None),
+    ("duckdb", ["unit", "period"], "w", None),
+    ("duckdb", ["unit", "period"], None, "row codes"),  # Sigma from the link tables' Schur complement
+    ("duckdb", ["unit", "period"], "w", "row codes"),
+    ("memory", ["unit", "period"], None, None),
 ])
-def test_enumerated_rademacher_equals_brute_force(to_parquet, engine, fe, weights):
+def test_enumerated_rademacher_equals_brute_force(to_parquet, engine, fe, weights, strategy):
     df = state_panel()
     res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe=fe, cluster="state", weights=weights, engine=engine,
-                       wild_bootstrap=True, bootstrap_weights="rademacher", draws=9_999)
+                       wild_bootstrap=True, bootstrap_weights="rademacher", draws=9_999, strategy=strategy)
     boot = res.extras["bootstrap"]
     assert (boot["draws"], boot["enumerated"], boot["seed"], boot["dimension"]) == (1024, True, None, "state")
     assert boot["effects_cutting_across"] == (["period"] if "period" in fe else [])
+    if strategy == "row codes":  # the per (state, period) sums only: no pass for pair tables
+        assert res.solver.strategy["name"] == "row codes" and boot["extra_passes"] == 1
     vs = sign_vectors(10)
     for k, name in enumerate(["x1", "x2"]):
         ref = p_value(brute_force_t(df, ["x1", "x2"], fe, "state", k, vs, weights=weights))

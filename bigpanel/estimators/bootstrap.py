@@ -12,9 +12,11 @@ draws are :mod:`bigpanel.numerics.bootstrap`; what they read is
   state clusters): exact with those effects' levels handled explicitly, when at most one
   effect is nested and the cut-across effects have at most ``MAX_CROSS_LEVELS`` levels
   (and clusters x levels at most ``MAX_CROSS_PAIRS``).
-  Cost: one pass over the rows for the per (cluster, level) sums, one more for the pair
-  tables of the effects when the fit did not fetch them (row codes, in-engine sweeps; they
-  must fit the Python-side budget), and an eigen-decomposition of a T x T matrix;
+  Cost: one pass over the rows for the per (cluster, level) sums and an eigen-decomposition
+  of a T x T matrix. Sigma comes from the pair tables when the fit fetched them, from the
+  row codes' link tables when the nested effect is the one they eliminate (its Schur
+  complement, formed densely: no pass), else from one more pass for the pair tables (they
+  must fit the Python-side budget);
 * anything else is refused in one line naming what to change.
 """
 
@@ -28,7 +30,9 @@ import numpy as np
 import pyarrow as pa
 
 from ..errors import BigPanelError
-from ..numerics.bootstrap import ClusterSums, CrossEffects, cut_across_schur, plan_draws, wild_tests
+from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_sigma, plan_draws, pseudo_inverse,
+                                  wild_tests)
+from ..numerics.rowcodes import schur_matrix
 from ..numerics.bootstrap_interval import inverted_interval
 from ..numerics.inference import Inference, cluster_factor
 from ..numerics.solve import Slopes
@@ -36,6 +40,7 @@ from ..passes.moments import cluster_sets
 from ..passes.reduce import CELL_BYTES, pair_tables
 from .absorb import Absorption
 from .base import Session
+from .sql_backend import SqlBackend
 
 # the within estimator's bootstrap options and their defaults
 BOOTSTRAP_OPTIONS = {"wild_bootstrap": False, "draws": None, "bootstrap_weights": None, "seed": None, "test": None,
@@ -117,17 +122,20 @@ def _cross_effects(session: Session, ab: Absorption, boot: int,
     elif levels > MAX_CROSS_LEVELS or levels * len(keys) > MAX_CROSS_PAIRS:
         why = (f"they have {levels:,} levels for {len(keys):,} clusters (at most {MAX_CROSS_LEVELS:,} levels and "
                f"{MAX_CROSS_PAIRS:,} pairs of a cluster and a level are handled explicitly)")
-    elif len(spec.fe) > 1 and red.cross is None and red.n_obs * CELL_BYTES > ab.budget:
+    links = ab.back.links if isinstance(ab.back, SqlBackend) else None
+    from_links = links is not None and nested == [links.big] and sorted(links.link) == dims
+    if not why and len(spec.fe) > 1 and red.cross is None and not from_links and red.n_obs * CELL_BYTES > ab.budget:
         why = (f"the pair tables of the effects (up to {red.n_obs:,} pairs of levels) exceed the Python-side "
                "budget (--python-memory)")
     if why:
         raise BigPanelError(f"the wild bootstrap cannot handle {', '.join(names)} cutting across the clusters of "
                             f"{spec.cluster[boot]} exactly: {why}")
-    cross = red.cross
-    if len(spec.fe) > 1 and cross is None:  # row codes or in-engine sweeps: one pass for the pair tables
-        cross = pair_tables(session.eng, spec, red.counts)
-    pinv = cut_across_schur(red.counts, cross, nested[0] if nested else None, dims)
-    return CrossEffects(ab.back.cross_sums(boot, keys, dims).dense(), pinv), names
+    if from_links:  # row codes with the nested effect eliminated: Sigma is their Schur complement, no pass
+        sigma = schur_matrix(links, red.counts)
+    else:  # pair tables (a pass for them on the row codes otherwise, or the in-engine sweeps)
+        cross = red.cross if len(spec.fe) == 1 or red.cross is not None else pair_tables(session.eng, spec, red.counts)
+        sigma = cut_across_sigma(red.counts, cross or {}, nested[0] if nested else None, dims)
+    return CrossEffects(ab.back.cross_sums(boot, keys, dims).dense(), pseudo_inverse(sigma)), names
 
 
 def wild_bootstrap(session: Session, ab: Absorption, slopes: Slopes, inf: Inference, names: list[str],
@@ -147,6 +155,8 @@ def wild_bootstrap(session: Session, ab: Absorption, slopes: Slopes, inf: Infere
         raise BigPanelError(f"{len(cells.q):,} clusters in the combination of {' x '.join(spec.cluster)}: the wild "
                             f"bootstrap holds at most {MAX_CELLS:,}")
     cross, cut = _cross_effects(session, ab, boot, cells.keys[boot])
+    if isinstance(ab.back, SqlBackend):
+        ab.back.links = None  # kept for Sigma only
     terms = cluster_sets(len(spec.cluster))
     k = len(slopes.keep)
     factors = [cluster_factor(len(np.unique(cells.codes[:, list(t)], axis=0)), ab.mom.n, k, ab.absorbed, t)

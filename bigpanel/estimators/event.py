@@ -3,12 +3,13 @@
 source -> spec of the untreated fit (unit, period and further effects, controls; the
 sample restricted to untreated rows) -> panel check (:mod:`bigpanel.passes.event`) ->
 the ordinary within fit on the untreated rows (:func:`~bigpanel.estimators.absorb.absorb`,
-singletons kept: a unit's effect is needed to impute its treated rows) -> the right-hand
-sides of the implied weights' normal equations and the exclusions -> their solve with the
-same projections (:mod:`bigpanel.numerics.given_rhs`) -> the sums by cell (imputed
-effects, the pre-trend fit's cross-products) -> the scores per cluster -> the estimates,
-their conservative variance and the pre-trend test (:mod:`bigpanel.numerics.imputation`
-states the algebra).
+singletons kept: a unit's effect is needed to impute its treated rows) -> in one pass, the
+right-hand sides of the implied weights' normal equations, the exclusions and the sums by
+cell (imputed effects; the demeaned columns at the leads) -> the solve of those equations
+with the same projections (:mod:`bigpanel.numerics.given_rhs`; on the row-codes path the
+untreated fit's factor of the Schur complement is reused) -> the pre-trend fit's
+cross-products -> the scores per cluster -> the estimates, their conservative variance and
+the pre-trend test (:mod:`bigpanel.numerics.imputation` states the algebra).
 """
 
 from __future__ import annotations

@@ -26,12 +26,13 @@ TRUSTED = 1e-10  # largest predicted relative error of the cross-products' solut
 class SqlBackend:
     """Runs the fit's row-level steps inside the engine through an :class:`Engine`."""
 
-    def __init__(self, eng: Engine, spec: Spec, source_kind: str) -> None:
+    def __init__(self, eng: Engine, spec: Spec, source_kind: str, keep_links: bool = False) -> None:
         self.eng = eng
         self.spec = spec
         self.source_kind = source_kind
         self.red: Reduction | None = None
         self.links: Links | None = None
+        self.keep_links = keep_links  # the row codes' link tables outlive the moments (the wild bootstrap reads them)
         self.alpha: list[np.ndarray] = []
         self.stored = False
         self.demeaned_view = False
@@ -159,7 +160,8 @@ class SqlBackend:
             self.moments_from = "level co-moments (no row pass)"
             return mom
         mom = self._from_solution()
-        self.links = None  # the link tables are not needed past this point
+        if not self.keep_links:
+            self.links = None  # the link tables are not needed past this point
         if mom is not None:
             self.moments_from = "solved effects and level sums (no row pass)"
             return mom

@@ -279,11 +279,11 @@ def wild_tests(sums: ClusterSums, keep: list[int], bread: np.ndarray, tested: li
     return results
 
 
-def cut_across_schur(counts: list[np.ndarray], cross: dict[tuple[int, int], sparse.csr_matrix] | None,
+def cut_across_sigma(counts: list[np.ndarray], cross: dict[tuple[int, int], sparse.csr_matrix],
                      nested: int | None, dims: list[int]) -> np.ndarray:
-    """Sigma^+ for the effects ``dims`` that cut across the clusters, with at most one ``nested``
+    """Sigma for the effects ``dims`` that cut across the clusters, with at most one ``nested``
     effect: Sigma = D_x'WD_x - N' diag(1/W_l) N from the level weights ``counts`` and the pair
-    tables ``cross[(d, e)]`` (d < e); eigenvalues below ``SCHUR_RTOL`` of the largest are null."""
+    tables ``cross[(d, e)]`` (d < e)."""
 
     def block(d: int, e: int) -> sparse.csr_matrix:
         return cross[(d, e)] if d < e else cross[(e, d)].T.tocsr()
@@ -300,6 +300,11 @@ def cut_across_schur(counts: list[np.ndarray], cross: dict[tuple[int, int], spar
         for start in range(0, n.shape[0], step):
             part = n[start:start + step].toarray()
             sigma -= part.T @ (part / counts[nested][start:start + step, None])
+    return sigma
+
+
+def pseudo_inverse(sigma: np.ndarray) -> np.ndarray:
+    """Sigma^+, eigenvalues below ``SCHUR_RTOL`` of the largest taken as its null space."""
     eig, vec = np.linalg.eigh((sigma + sigma.T) / 2)
     keep = eig > SCHUR_RTOL * eig[-1]
     return (vec[:, keep] / eig[keep]) @ vec[:, keep].T

@@ -323,24 +323,33 @@ def _dense_rows(table: sparse.csr_matrix, lo: int, hi: int) -> np.ndarray:
     return np.bincount(cells, weights=table.data[start:stop], minlength=(hi - lo) * g).reshape(hi - lo, g)
 
 
-def _dense_schur(links: Links, small: list[int], nb: np.ndarray, n: list[np.ndarray], columns: int) -> np.ndarray | None:
-    """S of the module docstring as a dense matrix, or None when the other effects hold more
-    than DENSE_LEVELS levels or forming S would cost more than DENSE_PAYS iterations' products
-    (and more than DENSE_FLOOR multiply-adds).
-    Kept in ``links.formed`` for the next solve with the same counts (the event study's
-    implied weights reuse the untreated fit's)."""
+def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.ndarray | None:
+    """S of the module docstring as a dense matrix (:func:`schur_matrix`), or None when the other
+    effects hold more than DENSE_LEVELS levels or forming S would cost more than DENSE_PAYS
+    iterations' products (and more than DENSE_FLOOR multiply-adds)."""
+    g = sum(len(counts[e]) for e in links.link)
+    products = sum(c.missing.nnz if isinstance(c, _Complement) else c.nnz for c in links.link.values())
+    if g > DENSE_LEVELS or len(counts[links.big]) * g * g > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
+        return None
+    return schur_matrix(links, counts)
+
+
+def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
+    """S = diag(n_s) + [P_ef] - T' diag(1/n_B) T (module docstring) as a dense matrix over the
+    other effects in code order, T the per-level link tables side by side, formed by blocks of
+    B's levels: the normal equations of the other effects with B partialled out. Kept in
+    ``links.formed`` for the next call with the same counts (the event study's implied
+    weights reuse the untreated fit's)."""
+    small = sorted(links.link)
+    nb, n = counts[links.big], [counts[e] for e in small]
     kept = links.formed.get("schur")
     if kept is not None and all(np.array_equal(a, b) for a, b in zip(kept[0], [nb, *n])):
         return kept[1]
     sizes = [len(c) for c in n]
-    g = sum(sizes)
-    products = sum(c.missing.nnz if isinstance(c, _Complement) else c.nnz for c in links.link.values())
-    if g > DENSE_LEVELS or len(nb) * g * g > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
-        return None
     tables = [_per_level(links, e) for e in small]
     inv = 1.0 / nb
-    out = np.zeros((g, g))
-    step = max(1, DENSE_CHUNK // g)
+    out = np.zeros((sum(sizes), sum(sizes)))
+    step = max(1, DENSE_CHUNK // len(out))
     for lo in range(0, len(nb), step):
         hi = min(lo + step, len(nb))
         block = np.hstack([_dense_rows(table, lo, hi) if runs is None else runs[lo:hi, None] - _dense_rows(table, lo, hi)
@@ -370,7 +379,7 @@ class _Schur:
         for p, e in zip(pinned, self.small):
             p[np.unique(links.groups[e][1], return_index=True)[1]] = True  # one level per component
         self.free = ~np.concatenate(pinned)[:, None]
-        dense = _dense_schur(links, self.small, self.nb, self.n, columns) if dense else None
+        dense = _dense_schur(links, counts, columns) if dense else None
         scale = np.concatenate(self.n)
         d = self._diagonal() if dense is None else np.diag(dense)
         self.diag = np.where(d > 1e-9 * scale, d, scale)  # a level absorbed by B: any positive scale

@@ -8,13 +8,14 @@ target weight. In order:
 
 1. the panel check (:func:`check_panel`): the first-treated value must be one value per
    unit (or missing for all its rows); periods and cohorts are ranked for date periods;
-2. the right-hand sides (:func:`targets`): per level of every effect, the untreated rows at
-   each lead and the target weights of the imputable treated rows of each estimand, and
-   the treated rows that cannot be imputed, by reason;
-3. the sums by cell (:func:`cell_sums`) over :func:`rows_view`, the usable rows with the
-   untreated fit's effects and the extra columns' solutions joined back;
-4. the scores per cluster (:func:`cluster_scores`); their products over the clusters
-   (:func:`meat`) read that small table, not the rows.
+2. the right-hand sides and the sums by cell (:func:`targets`), with the untreated fit's
+   effects joined to the rows: per level of every effect, the untreated rows at each lead
+   and the target weights of the imputable treated rows of each estimand; the treated rows
+   that cannot be imputed, by reason; and per cohort and event time the sums of the
+   imputed effects (treated rows) and of the demeaned columns (untreated rows at a lead);
+3. the scores per cluster (:func:`cluster_scores`) over :func:`rows_view`, the usable rows
+   with the untreated fit's effects and the extra columns' solutions joined back; their
+   products over the clusters (:func:`meat`) read that small table, not the rows.
 
 Sums are plain (not compensated): their summands are demeaned values and imputed effects.
 """
@@ -228,7 +229,7 @@ def _one(condition: str) -> str:
 
 
 def cluster_scores(eng: Engine, t: ScoreTerms) -> None:
-    """Pass 4: per cluster, the sums that make each estimand's and the pre-trend fit's scores,
+    """Pass 3: per cluster, the sums that make each estimand's and the pre-trend fit's scores,
     into ``bp_event_scores``: sa_h = sum a [k = h] (or sum a over every treated row), sb_h =
     sum z_h u and sc_j = sum e_j u over the untreated rows, sp_j = sum e_j u2 and sq_a =
     sum (L_a - z_a) u2 (see
