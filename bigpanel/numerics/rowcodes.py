@@ -352,8 +352,8 @@ def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
     step = max(1, DENSE_CHUNK // len(out))
     for lo in range(0, len(nb), step):
         hi = min(lo + step, len(nb))
-        block = np.hstack([_dense_rows(table, lo, hi) if runs is None else runs[lo:hi, None] - _dense_rows(table, lo, hi)
-                           for table, runs in tables])
+        dense = [_dense_rows(table, lo, hi) for table, _ in tables]
+        block = np.hstack([d if runs is None else runs[lo:hi, None] - d for d, (_, runs) in zip(dense, tables)])
         out -= (block * inv[lo:hi, None]).T @ block
     offsets = np.concatenate([[0], np.cumsum(sizes)])
     for i, e in enumerate(small):

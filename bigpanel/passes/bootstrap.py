@@ -88,7 +88,7 @@ class PairSums:
 
 
 def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[int], sizes: list[int]) -> PairSums:
-    """One pass: the (weighted) sums of the demeaned columns over the rows of each pair of a cluster
+    """One pass: the (weighted, plain) sums of the demeaned columns over the rows of each pair of a cluster
     of column ``boot`` (numbered by its place in the sorted ``keys``) and a level of the effects
     ``dims`` (stacked in that order; ``sizes`` their level counts)."""
     cluster, m = spec.cluster_aliases[boot], len(spec.value_aliases)
@@ -100,7 +100,7 @@ def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[in
     sql = render("bootstrap_cross_sums", cluster=Fragment(cluster), codes=join(codes),
                  grouping=names([cluster, *codes]),
                  columns=join(columns), joins=joins, sets=grouping_sets([[cluster, c] for c in codes]),
-                 sums=join([f"fsum({spec.w}e{j}) AS f{j}" for j in range(m)]))
+                 sums=join([f"sum({spec.w}e{j}) AS f{j}" for j in range(m)]))  # plain: the summands are demeaned
     tab = eng.arrow("bootstrap: sums per cluster and level of the effects that cut across", sql, raw=True)
     gid = tab.column("gid").to_numpy()
     at = pc.index_in(tab.column(cluster), value_set=keys).to_numpy(zero_copy_only=False)

@@ -151,8 +151,8 @@ def targets(eng: Engine, spec: Spec, design: Design, levels: list[int], linked: 
                   {**_target_params(design), **gid})
     why_rows = eng.arrow("exclusions", render("event_exclusions"), gid).to_pylist()
     excluded = {reasons[int(r["why"]) - 1][0]: int(r["n"]) for r in why_rows}
-    cells = eng.arrow("sums by cell", render("event_cells", sums=names(["swt", "sw2t", "sw2", *(f"sw{e}" for e in es)])),
-                      gid)
+    sums = names(["swt", "sw2t", "sw2", *(f"sw{e}" for e in es)])
+    cells = eng.arrow("sums by cell", render("event_cells", sums=sums), gid)
     n_cols = len(design.leads) + len(design.post) + 1
     return Targets(rhs, np.array([float(row[f"r{j}"] or 0.0) for j in range(n_cols)]), excluded, cells)
 
