@@ -67,7 +67,8 @@ CONFIGS = {
     ],
     "bootstrap": [  # 50 clusters, each fit without and with 9,999 wild bootstrap draws (Rademacher weights, the
         # default above 12 clusters); store effects nested in the regions (no pass: the draws only), then week
-        # effects cutting across them (the passes of the exact treatment: per (cluster, level) sums, pair tables)
+        # effects cutting across them (the exact treatment's pass for the per (cluster, level) sums; Sigma from the
+        # row codes' link tables)
         ("store-week-region", ["store"], "region"),
         ("store-week-region", ["store"], "region", BOOTSTRAP),
         ("store-week-region", ["store", "week"], "region"),
