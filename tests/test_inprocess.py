@@ -198,6 +198,21 @@ def test_pandas_object_columns_are_converted_once_and_numbers_shared(panel):
     assert_same(by_day, bigpanel.fit(df, **MODEL))  # day is period under another name
 
 
+def test_an_interrupt_while_batches_stream_is_an_interrupt():
+    # DuckDB's interrupt between two Arrow batches of a streamed pass (the row codes) reaches
+    # Python as pyarrow's OSError; the engine must report it as KeyboardInterrupt, not a traceback.
+    from bigpanel.engines.duckdb import DuckDBEngine
+
+    con = duckdb.connect()
+    eng = DuckDBEngine(con)
+    batches = eng.stream("rows", "SELECT i, random() AS x FROM range(20000000) t(i) WHERE i % 3 <> 1", raw=True)
+    next(batches)
+    con.interrupt()
+    with pytest.raises(KeyboardInterrupt):
+        for _ in batches:
+            pass
+
+
 def test_a_query_interrupted_inside_duckdb_leaves_nothing():
     # DuckDB's own interrupt (what Ctrl-C in a notebook does) while a pass over the rows runs
     import threading

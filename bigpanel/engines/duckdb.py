@@ -58,8 +58,11 @@ class DuckDBEngine(Engine):
         return done if done >= 0 else None
 
     def interrupted(self, exc: BaseException) -> bool:
-        # this DuckDB reports an interrupted query as InterruptException or as a plain RuntimeError
+        # this DuckDB reports an interrupted query as InterruptException or as a plain RuntimeError;
+        # while Arrow batches stream, pyarrow hands it on as OSError("INTERRUPT Error: Interrupted!")
         if isinstance(exc, duckdb.InterruptException):
+            return True
+        if isinstance(exc, OSError) and str(exc).startswith("INTERRUPT Error"):
             return True
         return isinstance(exc, RuntimeError) and not isinstance(exc, duckdb.Error) and "interrupted" in str(exc).lower()
 
