@@ -21,9 +21,10 @@ def interrupted(signum: int, frame: object) -> None:
     inside a DuckDB query (which this DuckDB reports in more than one way), in numpy, or
     between passes.
     """
-    files = sys.modules.get(FILES_MODULE)  # not loaded yet: nothing can be pending
-    if files is not None:
-        files.remove_pending()
+    # not loaded yet, or still loading when the signal lands: nothing can be pending
+    remove = getattr(sys.modules.get(FILES_MODULE), "remove_pending", None)
+    if remove is not None:
+        remove()
     sys.stderr.write("bigpanel: interrupted; nothing was written\n")
     sys.stderr.flush()
     os._exit(130)

@@ -50,6 +50,17 @@ def test_sigint_exits_130_and_writes_nothing(big_panel, tmp_path, delay):
     assert not save.exists() and not list(tmp_path.glob(".*.tmp"))
 
 
+def test_sigint_while_the_files_module_loads():
+    # The signal lands while bigpanel.output.files is being imported (it is in sys.modules, its
+    # body not yet run): the handler must still answer with one line and 130, not an AttributeError.
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    code = ("import sys, types; from bigpanel.command import FILES_MODULE, interrupted; "
+            "sys.modules[FILES_MODULE] = types.ModuleType(FILES_MODULE); interrupted(2, None)")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=60)
+    assert proc.returncode == 130, proc.stderr
+    assert proc.stderr.strip() == "bigpanel: interrupted; nothing was written"
+
+
 def test_sigint_while_the_command_starts(big_panel, tmp_path):
     # The signal lands while the command's modules are still loading (typer, rich: tens of
     # milliseconds after the entry point runs): the early handler answers the same way.
