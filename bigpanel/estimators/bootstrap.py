@@ -132,8 +132,8 @@ def _cross_effects(session: Session, ab: Absorption, boot: int,
                             f"{spec.cluster[boot]} exactly: {why}")
     if from_links:  # row codes with the nested effect eliminated: Sigma is their Schur complement, no pass
         sigma = schur_matrix(links, red.counts)
-    else:  # pair tables (a pass for them on the row codes otherwise, or the in-engine sweeps)
-        cross = red.cross if len(spec.fe) == 1 or red.cross is not None else pair_tables(session.eng, spec, red.counts)
+    else:  # the fit's pair tables; one effect needs none; else a pass for them (other row codes, the sweeps)
+        cross = red.cross if red.cross is not None or len(spec.fe) == 1 else pair_tables(session.eng, spec, red.counts)
         sigma = cut_across_sigma(red.counts, cross or {}, nested[0] if nested else None, dims)
     return CrossEffects(ab.back.cross_sums(boot, keys, dims).dense(), pseudo_inverse(sigma)), names
 

@@ -135,7 +135,7 @@ class EventStudy(Estimator):
             put_components(eng, ab.labels, len(red.counts[0]))
         keys = [back.level_keys(d) for d in range(len(red.counts))]
         put_fit(eng, keys, ab.proj.alpha)
-        put_one_row(eng, "bp_event_coef", {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}})
+        put_one_row(eng, "bp_event_coef", _slope_row(slopes))
         tg = targets(eng, spec, design, [len(c) for c in red.counts], linked, slopes.keep)
         cols = choose_columns(design.leads, design.post, tg.total)
         if not any(k is None for k in cols.estimands):
@@ -159,11 +159,11 @@ class EventStudy(Estimator):
         return Fitted(session, design, panel, ab, slopes, tg, cols), weights
 
     def _estimate(self, f: Fitted, weights: Projection) -> EventResult:
-        """The sums by cell (estimates, cell averages, the pre-trend fit), then the scores per
+        """From the sums by cell: the estimates, cell averages and the pre-trend fit; then the scores per
         cluster and their products (the variance and the pre-trend test)."""
         eng, slopes, cols = f.session.eng, f.slopes, f.cols
         controls = [f"e{j}" for j in slopes.keep]
-        coef = {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}}
+        coef = _slope_row(slopes)
         cells = Cells.grouped(f.targets.cells, slopes.beta, controls, cols.leads,
                               lead_sums(f.targets.rhs, cols.source, weights.alpha, len(cols.leads)))
         imp = imputed(cells, cols.estimands, controls)
@@ -218,6 +218,11 @@ class EventStudy(Estimator):
                       "residuals_of_treated_rows": "around the cohort x event time average"},
             source=f.session.src.location, where=spec.where, warnings=_warnings(ab, weights, clusters, cells),
             timings=dict(eng.timings))
+
+
+def _slope_row(slopes: Slopes) -> dict[str, float]:
+    """The one-row table ``bp_event_coef``'s first values: ``one`` and the untreated fit's slopes b0, b1, ..."""
+    return {"one": 1.0, **{f"b{i}": float(b) for i, b in enumerate(slopes.beta)}}
 
 
 def _lead(k: int, fitted: tuple[float | None, float | None], rows: int) -> EventEstimate:
