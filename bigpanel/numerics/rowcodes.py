@@ -72,6 +72,7 @@ DENSE_LEVELS = 2048  # S is formed densely (and factored) only when the other ef
 DENSE_PAYS = 100  # ... and when forming it costs at most this many iterations' sparse products (see _dense_schur)
 DENSE_FLOOR = 1 << 26  # ... or at most this many multiply-adds (a few milliseconds)
 DENSE_CHUNK = 1 << 22  # entries of a dense block of the per-level link tables while forming S
+COARSE_CELLS = 1 << 24  # the coarse space is used while Z S (other levels x components) holds at most this many
 
 
 @dataclass(frozen=True)
@@ -384,6 +385,7 @@ class _Schur:
         d = self._diagonal() if dense is None else np.diag(dense)
         self.diag = np.where(d > 1e-9 * scale, d, scale)  # a level absorbed by B: any positive scale
         self.factor = None if dense is None else self._factor(dense)
+        self.coarse = self._coarse() if self.factor is None else None
 
     def _diagonal(self) -> np.ndarray:
         """S's diagonal from the link tables: n_e - C_e^2' (1 / n_B) (squares of the values)."""
@@ -410,6 +412,26 @@ class _Schur:
         except linalg.LinAlgError:
             return None
 
+    def _coarse(self) -> tuple[sparse.csr_matrix, tuple[np.ndarray, bool]] | None:
+        """The coarse space of the diagonal preconditioner: Z, an indicator column per (other
+        effect, component) on its free levels, and the Cholesky factor of Z'SZ; None when
+        Z S is too large to form (COARSE_CELLS) or Z'SZ is not positive definite in rounding."""
+        cell, first = [], 0
+        for e in self.small:
+            n_comp, labels = self.links.groups[e]
+            cell.append(first + labels)
+            first += n_comp
+        rows = np.flatnonzero(self.free[:, 0])
+        cols = np.concatenate(cell)[rows]
+        used, cols = np.unique(cols, return_inverse=True)
+        if len(used) * len(self.free) > COARSE_CELLS:
+            return None
+        z = sparse.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(len(self.free), len(used)))
+        try:
+            return z, linalg.cho_factor(z.T @ self.matvec(z.toarray()), lower=True, check_finite=False)
+        except linalg.LinAlgError:
+            return None
+
     def split(self, vec: np.ndarray) -> list[np.ndarray]:
         return [vec[self.offsets[i] : self.offsets[i + 1]] for i in range(len(self.small))]
 
@@ -428,7 +450,11 @@ class _Schur:
 
     def precondition(self, res: np.ndarray) -> np.ndarray:
         if self.factor is None:
-            return res * self.free / self.diag[:, None]
+            out = res * self.free / self.diag[:, None]
+            if self.coarse is not None:
+                z, factor = self.coarse
+                out += z @ linalg.cho_solve(factor, z.T @ res, check_finite=False)
+            return out
         factor, free = self.factor
         out = np.zeros_like(res)
         out[free] = linalg.cho_solve(factor, res[free], check_finite=False)
