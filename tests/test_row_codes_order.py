@@ -137,3 +137,28 @@ def test_a_worker_in_two_runs_still_links_the_firms(to_parquet, visits):
     coef, se = sm_ref(df, ["worker", "firm"], "classical")
     assert res.components == 1
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
+
+
+@pytest.mark.parametrize("table", ["dense", "sparse"])
+def test_components_found_chunk_by_chunk(monkeypatch, to_parquet, table):
+    # The firms' components are found from the edges a few at a time (chunks of 2, 4, 8 ...
+    # edges): the two blocks are linked only by the worker's second run, whose edge comes
+    # last, so stopping at the first chunk that leaves the blocks apart, or skipping the
+    # rest before one component is reached, would count two. References: scipy's components
+    # on the explicit worker x firm dummies, statsmodels LSDV for the slopes.
+    monkeypatch.setattr(rowcodes, "EDGE_CHUNK", 32)
+    if table == "sparse":
+        monkeypatch.setattr(rowcodes, "DENSE_PAIRS", 0)
+    df = two_blocks("years in one firm")
+    worker, firm = df["worker"].to_numpy(), df["firm"].to_numpy()
+    both = sparse.csr_matrix((np.ones(len(df)), (worker, firm)))
+    found, _ = connected_components(sparse.bmat([[None, both], [both.T, None]]), directed=False)
+    res = fit_codes(to_parquet(df), ["worker", "firm"])
+    coef, se = sm_ref(df, ["worker", "firm"], "classical")
+    assert found == 1 and res.components == 1
+    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
+    unlinked = df[df["worker"] != 60]  # without the linking worker: two blocks
+    res = fit_codes(to_parquet(unlinked), ["worker", "firm"])
+    coef, se = sm_ref(unlinked, ["worker", "firm"], "classical")
+    assert res.components == 2
+    assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8

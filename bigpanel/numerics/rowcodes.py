@@ -15,7 +15,7 @@ other effects once B is partialled out. S is singular (a constant added to an
 effect's levels in one connected component of its graph with B is absorbed by
 B), so one level per such component is held at zero; without that, rounding in
 r_s would let the solution drift along the null space and lose digits. Conjugate gradients preconditioned by
-the diagonal of S (Jacobi) solve it for every value column at once, with the
+the diagonal of S (Jacobi) plus a coarse space solve it for every value column at once, with the
 stopping rule of :mod:`bigpanel.numerics.project` applied to the columns with B
 partialled out (||(I - P_B) t||^2 = t'Wt - sum_l (D_B'Wt)_l^2 / n_B,l). Each
 iteration is two sparse products whose nonzeros are the rows; nothing is read
@@ -43,7 +43,12 @@ gradients then stop after one or two iterations, whatever the graph. That is don
 when forming S (about B x G^2 multiply-adds for G other levels, at dense speed) costs
 at most DENSE_PAYS iterations' sparse products (2 x nonzeros x columns each; a dense
 multiply-add runs some 25 times faster on this machine) or a few milliseconds; else the
-preconditioner is S's diagonal.
+preconditioner is M^-1 = diag(S)^-1 + Z (Z'SZ)^-1 Z', Z an indicator column per (other effect,
+component) on the free levels (a two-level additive preconditioner; Z'SZ costs one product).
+Pinning one level leaves the Jacobi-scaled S with an eigenvalue near 1/G_e per other effect e
+(the shift of e's other levels against the pinned one); the coarse term removes it. On 10M rows
+of store x week x supplier the Jacobi spectrum was [0.0010, 0.0067, 0.989 ... 1.018], and
+[0.989 ... 1.018] with the coarse term: 10 iterations became 5.
 
 A product with a C_e of many levels reads and writes memory at random; it runs
 in threads (scipy's sparse products release the interpreter lock), each on some
@@ -163,10 +168,14 @@ def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb:
     when the table is small)."""
     if ga * gb <= DENSE_PAIRS:
         flat = np.zeros(ga * gb)
+        buffer = np.empty(min(len(a), EDGE_CHUNK), dtype=np.int64)  # reused: no fresh pages per chunk
         for start in range(0, len(a), EDGE_CHUNK):
             part = slice(start, start + EDGE_CHUNK)
             weights = None if w is None else w[part]
-            flat += np.bincount(a[part].astype(np.int64) * gb + b[part], weights=weights, minlength=ga * gb)
+            cells = buffer[:len(a[part])]
+            np.multiply(a[part], gb, out=cells)
+            cells += b[part]
+            flat += np.bincount(cells, weights=weights, minlength=ga * gb)
         return sparse.csr_matrix(flat.reshape(ga, gb))
     table = sparse.csr_matrix((ga, gb))
     for start in range(0, len(a), EDGE_CHUNK):
@@ -198,7 +207,7 @@ def build_links(rc: RowCodes, rows: list[np.ndarray], fixed: bool = True) -> Lin
         if found is not None:
             link[e], groups[e] = found
             continue
-        found = _runs(codes, indptr, np.ones(n) if data is None else data, sizes[e]) if fixed else None
+        found = _runs(codes, indptr, data, sizes[e]) if fixed else None
         if found is None:
             data = np.ones(n) if data is None else data  # shared by every table that keeps its rows
             found = sparse.csr_matrix((data, codes.astype(index, copy=False), indptr), shape=(len(per_row), sizes[e]))
@@ -263,9 +272,9 @@ def _split_edges(firsts: np.ndarray, order: np.ndarray, levels: int) -> tuple[np
     return lead[order], firsts
 
 
-def _runs(codes: np.ndarray, indptr: np.ndarray, data: np.ndarray, g: int) -> sparse.csr_matrix | None:
-    """C_e with each run of equal codes inside a row as one nonzero (its count or summed weight),
-    or None when the runs would not save at least a quarter of the nonzeros."""
+def _runs(codes: np.ndarray, indptr: np.ndarray, data: np.ndarray | None, g: int) -> sparse.csr_matrix | None:
+    """C_e with each run of equal codes inside a row as one nonzero (its count, or its summed
+    weight given ``data``), or None when the runs would not save at least a quarter of the nonzeros."""
     n = len(codes)
     if n == 0:
         return None
@@ -277,7 +286,7 @@ def _runs(codes: np.ndarray, indptr: np.ndarray, data: np.ndarray, g: int) -> sp
         return None
     starts = np.flatnonzero(new)
     del new
-    weights = np.add.reduceat(data, starts)
+    weights = np.diff(starts, append=n).astype(float) if data is None else np.add.reduceat(data, starts)
     ptr = np.searchsorted(starts, indptr).astype(indptr.dtype)
     return sparse.csr_matrix((weights, codes[starts].astype(indptr.dtype), ptr), shape=(len(indptr) - 1, g))
 
@@ -500,17 +509,21 @@ def _linked_groups(c: sparse.csr_matrix, order: np.ndarray | None, levels: int) 
     level: edges between consecutive column indices inside each row connect them exactly so,
     with, when a B level has several rows (``order``), an edge from the first index of each of
     its rows to that of its first row. The edges are deduplicated chunk by chunk (in a dense
-    table of pairs when the levels are few), so memory stays a few bytes per chunk row."""
+    table of pairs when the levels are few), so memory stays a few bytes per chunk row. Once the
+    edges so far link every level into one component, the rest cannot change it: they are skipped."""
     g = c.shape[1]
     n = len(c.indices)
     dense = g * g <= DENSE_PAIRS  # so a * g + b fits an int32
     seen = np.zeros(g * g if dense else 0, dtype=bool)
     graph = sparse.csr_matrix((g, g), dtype=bool)
-    chunks = [(c.indices[start - 1:min(start + EDGE_CHUNK, n) - 1], c.indices[start:start + EDGE_CHUNK], start)
-              for start in range(1, n, EDGE_CHUNK)]
+    starts, size = [1], EDGE_CHUNK >> 4  # growing chunks: a connected graph is usually seen so early
+    while starts[-1] + size < n:
+        starts.append(starts[-1] + size)
+        size = min(2 * size, EDGE_CHUNK)
+    chunks = [(c.indices[lo - 1:hi - 1], c.indices[lo:hi], lo) for lo, hi in zip(starts, starts[1:] + [n]) if lo < n]
     if order is not None:
         chunks.append((*_split_edges(c.indices[c.indptr[:-1]], order, levels), None))
-    for a, b, start in chunks:
+    for i, (a, b, start) in enumerate(chunks):
         heads = None if start is None else (
             c.indptr[np.searchsorted(c.indptr, start):np.searchsorted(c.indptr, start + len(b))] - start)
         if dense:  # the pair across two rows becomes a loop on one level, which links nothing
@@ -518,16 +531,23 @@ def _linked_groups(c: sparse.csr_matrix, order: np.ndarray | None, levels: int) 
                 b = b.copy()
                 b[heads] = a[heads]
             seen[a.astype(np.int32, copy=False) * g + b] = True
-            continue
-        keep = a != b
-        if heads is not None:
-            keep[heads] = False
-        graph = graph + sparse.csr_matrix((np.ones(int(keep.sum()), dtype=bool), (a[keep], b[keep])), shape=(g, g))
-    if dense:
-        a, b = np.divmod(np.flatnonzero(seen), g)
-        graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
-    n_comp, labels = connected_components(graph, directed=False)
-    return int(n_comp), labels
+        else:
+            keep = a != b
+            if heads is not None:
+                keep[heads] = False
+            graph = graph + sparse.csr_matrix((np.ones(int(keep.sum()), dtype=bool), (a[keep], b[keep])),
+                                              shape=(g, g))
+        n_comp, labels = _components_of(seen, g) if dense else connected_components(graph, directed=False)
+        if n_comp == 1 or i == len(chunks) - 1:
+            return int(n_comp), labels
+    return connected_components(graph, directed=False)  # no edges at all
+
+
+def _components_of(seen: np.ndarray, g: int) -> tuple[int, np.ndarray]:
+    """Connected components of g levels given the dense table of the pairs seen linked."""
+    a, b = np.divmod(np.flatnonzero(seen), g)
+    return connected_components(sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g)),
+                                directed=False)
 
 
 def components(links: Links, sizes: list[int]) -> tuple[int, np.ndarray]:
