@@ -101,16 +101,16 @@ def least_passes(spec: Spec) -> int | None:
 
 
 def absorb(session: Session, how: Projections, in_memory: bool, back: Backend | None = None,
-           keep_links: bool = False) -> Absorption:
+           bootstrap: bool = False) -> Absorption:
     """Run the steps of the module docstring on the SQL engine, or in numpy when ``in_memory``;
     ``back`` is a backend the caller has already opened on the session (its views made);
-    ``keep_links``: the SQL backend keeps the row codes' link tables after the moments."""
+    ``bootstrap``: the wild bootstrap follows (the SQL backend keeps what it reads)."""
     eng = session.eng
     if not in_memory:
         eng.least_passes = least_passes(session.spec)
     if back is None:
         back = (MemoryBackend(eng, session.spec, session.src.kind) if in_memory
-                else SqlBackend(eng, session.spec, session.src.kind, keep_links))
+                else SqlBackend(eng, session.spec, session.src.kind, bootstrap))
     first = back.start()
     red = back.reduce(how.singletons == "drop", how.budget, how.strategy)
     lost = back.incomplete() if red.n_complete < first.n_filtered else {}

@@ -28,14 +28,16 @@ from typing import Any
 
 import numpy as np
 import pyarrow as pa
+from scipy import sparse
 
 from ..errors import BigPanelError
-from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_sigma, plan_draws, pseudo_inverse,
-                                  wild_tests)
-from ..numerics.rowcodes import schur_matrix
+from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_sigma, cut_across_sums, plan_draws,
+                                  pseudo_inverse, wild_tests)
+from ..numerics.rowcodes import Links, per_level_table, schur_matrix
 from ..numerics.bootstrap_interval import inverted_interval
 from ..numerics.inference import Inference, cluster_factor
 from ..numerics.solve import Slopes
+from ..passes.bootstrap import level_cells
 from ..passes.moments import cluster_sets
 from ..passes.reduce import CELL_BYTES, pair_tables
 from .absorb import Absorption
@@ -130,12 +132,39 @@ def _cross_effects(session: Session, ab: Absorption, boot: int,
     if why:
         raise BigPanelError(f"the wild bootstrap cannot handle {', '.join(names)} cutting across the clusters of "
                             f"{spec.cluster[boot]} exactly: {why}")
+    cross = None
     if from_links:  # row codes with the nested effect eliminated: Sigma is their Schur complement, no pass
         sigma = schur_matrix(links, red.counts)
     else:  # the fit's pair tables; one effect needs none; else a pass for them (other row codes, the sweeps)
         cross = red.cross if red.cross is not None or len(spec.fe) == 1 else pair_tables(session.eng, spec, red.counts)
         sigma = cut_across_sigma(red.counts, cross or {}, nested[0] if nested else None, dims)
-    return CrossEffects(ab.back.cross_sums(boot, keys, dims).dense(), pseudo_inverse(sigma)), names
+    sums = _sums_from_cells(session, ab, keys, nested, dims, links if from_links else None, cross)
+    if sums is None:
+        sums = ab.back.cross_sums(boot, keys, dims).dense()
+    return CrossEffects(sums, pseudo_inverse(sigma)), names
+
+
+def _sums_from_cells(session: Session, ab: Absorption, keys: pa.Array, nested: list[int], dims: list[int],
+                     links: Links | None, cross: dict[tuple[int, int], sparse.csr_matrix] | None) -> np.ndarray | None:
+    """F_c,t without a pass (:func:`bigpanel.numerics.bootstrap.cut_across_sums`) when pass 2 kept
+    its cells by cluster and one nested effect n meets one cut-across effect x, their pair
+    table taken from the row codes' link tables or the pair tables; else None."""
+    red = ab.red
+    if red.cluster_cells is None or len(nested) != 1 or len(dims) != 1:
+        return None
+    (n,), (x,) = nested, dims
+    if links is not None:
+        table, runs = per_level_table(links, x)
+    elif cross is not None:
+        table, runs = (cross[(n, x)] if n < x else cross[(x, n)].T.tocsr()), None
+    else:
+        return None
+    weight, shifted = level_cells(session.eng, session.spec, x, keys, len(red.counts[x]))
+    home = np.zeros(len(red.counts[n]), dtype=np.int64)
+    for c, level in zip(*np.nonzero(level_cells(session.eng, session.spec, n, keys, len(red.counts[n]))[0])):
+        home[level] = c
+    alpha = ab.proj.alpha
+    return cut_across_sums(shifted, weight, home, alpha[n], alpha[x], table, runs)
 
 
 def wild_bootstrap(session: Session, ab: Absorption, slopes: Slopes, inf: Inference, names: list[str],

@@ -26,13 +26,15 @@ TRUSTED = 1e-10  # largest predicted relative error of the cross-products' solut
 class SqlBackend:
     """Runs the fit's row-level steps inside the engine through an :class:`Engine`."""
 
-    def __init__(self, eng: Engine, spec: Spec, source_kind: str, keep_links: bool = False) -> None:
+    def __init__(self, eng: Engine, spec: Spec, source_kind: str, bootstrap: bool = False) -> None:
         self.eng = eng
         self.spec = spec
         self.source_kind = source_kind
         self.red: Reduction | None = None
         self.links: Links | None = None
-        self.keep_links = keep_links  # the row codes' link tables outlive the moments (the wild bootstrap reads them)
+        # the wild bootstrap follows: pass 2 keeps its cells by cluster and the row codes' link tables
+        # outlive the moments (the bootstrap reads both)
+        self.bootstrap = bootstrap
         self.alpha: list[np.ndarray] = []
         self.stored = False
         self.demeaned_view = False
@@ -52,7 +54,7 @@ class SqlBackend:
         return start(self.eng, self.spec, self.source_kind)
 
     def reduce(self, drop_singletons: bool, budget: int, strategy: str | None = None) -> Reduction:
-        self.red = reduce_cells(self.eng, self.spec, drop_singletons, budget, strategy)
+        self.red = reduce_cells(self.eng, self.spec, drop_singletons, budget, strategy, by_cluster=self.bootstrap)
         self._held(self.red)
         return self.red
 
@@ -160,7 +162,7 @@ class SqlBackend:
             self.moments_from = "level co-moments (no row pass)"
             return mom
         mom = self._from_solution()
-        if not self.keep_links:
+        if not self.bootstrap:
             self.links = None  # the link tables are not needed past this point
         if mom is not None:
             self.moments_from = "solved effects and level sums (no row pass)"

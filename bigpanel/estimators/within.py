@@ -52,7 +52,7 @@ class Within(Estimator):
                                                                   "strategy")})
         boot = BootstrapOptions.checked(**{k: self.settings.get(k, v) for k, v in BOOTSTRAP_OPTIONS.items()})
         with opened(self.request, **self.spec_options()) as session:
-            ab = absorb(session, how, in_memory=self.request.engine == "memory", keep_links=bool(boot.draws))
+            ab = absorb(session, how, in_memory=self.request.engine == "memory", bootstrap=bool(boot.draws))
             slopes, rss_from = self._slopes(session, ab)
             inf = self._inference(session, ab, slopes)
             names = [([session.spec.y, *session.spec.x])[j] for j in slopes.keep]

@@ -38,7 +38,13 @@ cluster c's rows, Sigma = D_x'W M_n D_x = D_x'WD_x - N' diag(1/W_l) N (N the wei
 pseudo-inverse (any solution gives the same D alpha). In cluster c, X~_c'W D_l = 0 for a
 nested level l (it lies inside c and X~ is orthogonal to D), so only C_c = X~_c'W D_x,
 the per (cluster, cut-across level) sums, enters. Exact as well; the sums F_c,t =
-sum_{i in c, level t} w_i e_i cost one pass over the demeaned rows.
+sum_{i in c, level t} w_i e_i cost one pass over the demeaned rows, or none with one
+nested effect n and one cut-across effect x: e = t - a_n - a_x (t the shifted columns), so
+
+    F_c,t = T_c,t - W_c,t a_x,t - sum_{l in c} W_l,t a_n,l
+
+from the per (cluster, level) weights W_c,t and sums T_c,t of the shifted columns (pass 2
+grouped by cluster and level) and the table W_l,t of (nested level, cut-across level) pairs.
 
 **Statistic.** For every combination S of cluster columns (one-way: one), the draw's scores
 are summed per cluster of S and V* = sum_S (-1)^(|S|+1) f_S B (sum g g') B with the fit's
@@ -301,6 +307,23 @@ def cut_across_sigma(counts: list[np.ndarray], cross: dict[tuple[int, int], spar
             part = n[start:start + step].toarray()
             sigma -= part.T @ (part / counts[nested][start:start + step, None])
     return sigma
+
+
+def cut_across_sums(shifted: np.ndarray, weight: np.ndarray, home: np.ndarray, nested: np.ndarray,
+                    cut: np.ndarray, table: sparse.csr_matrix, runs: np.ndarray | None) -> np.ndarray:
+    """F_c,t of the module docstring (G x T x m) with one nested and one cut-across effect and
+    no pass: ``shifted`` = T_c,t (G x T x m) and ``weight`` = W_c,t (G x T), ``home`` each nested
+    level's cluster, ``nested`` and ``cut`` the solved effects (levels x m), and W_l,t the
+    pair table: ``table``, or ``runs`` 1' - ``table`` when ``runs`` is given (a table kept as
+    its missing cells). The last term is W'V with V[l, (home_l, j)] = a_n,l,j, one sparse product."""
+    g, levels, m = shifted.shape
+    rows = len(home)
+    v = sparse.csr_matrix((nested.ravel(), (np.repeat(np.arange(rows), m), (home[:, None] * m + np.arange(m)).ravel())),
+                          shape=(rows, g * m))
+    inside = (table.T @ v).toarray()
+    if runs is not None:
+        inside = (v.T @ runs)[None, :] - inside
+    return shifted - weight[:, :, None] * cut[None, :, :] - inside.reshape(levels, g, m).transpose(1, 0, 2)
 
 
 def pseudo_inverse(sigma: np.ndarray) -> np.ndarray:

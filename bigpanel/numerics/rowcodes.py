@@ -310,7 +310,7 @@ def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
     return links.pairs[(e, f)] if e < f else links.pairs[(f, e)].T
 
 
-def _per_level(links: Links, e: int) -> tuple[sparse.csr_matrix, np.ndarray | None]:
+def per_level_table(links: Links, e: int) -> tuple[sparse.csr_matrix, np.ndarray | None]:
     """T_e = the rows of C_e added up per level of B, as a sparse table and, for a complement,
     the number of rows per level r (then T_e = r 1' - the sparse table)."""
     c = links.link[e]
@@ -356,7 +356,7 @@ def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
     if kept is not None and all(np.array_equal(a, b) for a, b in zip(kept[0], [nb, *n])):
         return kept[1]
     sizes = [len(c) for c in n]
-    tables = [_per_level(links, e) for e in small]
+    tables = [per_level_table(links, e) for e in small]
     inv = 1.0 / nb
     out = np.zeros((sum(sizes), sum(sizes)))
     step = max(1, DENSE_CHUNK // len(out))

@@ -4,6 +4,9 @@
   columns per cell h of the finest combination of cluster columns, read from the table
   ``bp_cluster_moments`` that the cluster-robust fit already left (no pass over the rows):
   H cells x m(m+1)/2 numbers, with each cell's key in every cluster column.
+* :func:`level_cells`: per (cluster, level) weights and sums of the shifted columns, read
+  from the cells pass 2 groups by cluster when the bootstrap follows (no pass); with one
+  nested and one cut-across effect they give the sums F_c,t below without a pass.
 * :func:`cross_sums`: the sums F_c,t = sum_{i in c, level t} w_i e_i per (cluster, level)
   pair with rows, for effects that cut across the bootstrap clusters (and for the clustered
   errors of a single effect's levels): one pass over the rows with the solved effects joined
@@ -24,6 +27,7 @@ from ..engines.base import Engine
 from ..model.spec import Spec
 from ..sql.text import Fragment, grouping_id, grouping_sets, join, level_joins, names, render
 from .moments import demeaned_columns, effect_joins
+from .reduce import cluster_cells_gid, level_table
 
 
 @dataclass(frozen=True)
@@ -85,6 +89,25 @@ class PairSums:
         out = np.zeros((self.clusters, self.levels, self.sums.shape[1]))
         out[self.cluster, self.level] = self.sums
         return out
+
+
+def level_cells(eng: Engine, spec: Spec, d: int, keys: pa.Array, levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """From the cells pass 2 left by cluster (``bp_cluster_cells``, no pass over the rows): per
+    (cluster, level of effect d) the weight and the sums of the shifted columns, as dense
+    clusters x levels and clusters x levels x m arrays (clusters numbered by their place in the
+    sorted ``keys``, levels by code; zero where a pair has no rows)."""
+    cluster, m = spec.cluster_aliases[0], len(spec.value_aliases)
+    sql = render("bootstrap_level_cells", cluster=Fragment(cluster), levels=level_table(d),
+                 keys=names(spec.key_aliases(d)), sums=join([f"c.s{j}" for j in range(m)]))
+    tab = eng.arrow("bootstrap: sums per cluster and level, from the cells by cluster", sql,
+                    {"gid": cluster_cells_gid(spec, cluster, d)})
+    at = pc.index_in(tab.column("cluster"), value_set=keys).to_numpy(zero_copy_only=False).astype(np.int64)
+    code = tab.column("code").to_numpy(zero_copy_only=False).astype(np.int64)
+    weight = np.zeros((len(keys), levels))
+    weight[at, code] = tab.column("nw").to_numpy(zero_copy_only=False)
+    sums = np.zeros((len(keys), levels, m))
+    sums[at, code] = np.column_stack([tab.column(f"s{j}").to_numpy(zero_copy_only=False) for j in range(m)])
+    return weight, sums
 
 
 def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[int], sizes: list[int]) -> PairSums:

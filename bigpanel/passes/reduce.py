@@ -10,7 +10,7 @@ row-codes pass fetches what that strategy iterates on.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from itertools import combinations
 
 import numpy as np
@@ -60,7 +60,9 @@ class Reduction:
     them (:func:`carries_products`) with two or more effects, ``products`` every product of two
     shifted columns summed over the sample (T'WT, columns x columns). ``strategy``
     names how the effects are partialled out (:func:`choose_strategy`); ``codes``
-    holds the per-row level codes of the row-codes strategy.
+    holds the per-row level codes of the row-codes strategy. ``cluster_cells`` names the
+    cluster column whose (cluster, level) cells pass 2 left in ``bp_cluster_cells`` (the
+    wild bootstrap's sums for effects that cut across the clusters), or is None.
     """
 
     counts: list[np.ndarray]
@@ -76,6 +78,7 @@ class Reduction:
     codes: RowCodes | None = None
     plan: Plan | None = None
     products: np.ndarray | None = None
+    cluster_cells: str | None = None
 
     @property
     def singletons(self) -> int:
@@ -392,21 +395,22 @@ def cell_sums(spec: Spec, t: list[str], with_products: bool) -> list[str]:
     return sums
 
 
-def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, forced: str | None = None) -> Reduction:
+def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, forced: str | None = None,
+                 by_cluster: bool = False) -> Reduction:
     """Pass 2 (repeated only to peel singletons): per-level statistics of every effect, the
-    level tables, the strategy (:func:`choose_strategy`) and what it fetches to numpy."""
+    level tables, the strategy (:func:`choose_strategy`) and what it fetches to numpy.
+    ``by_cluster`` (the wild bootstrap follows): with one cluster column and two or more
+    effects, the pass groups by (cluster, level) instead (:func:`_cells_pass`)."""
     k = len(spec.fe)
-    all_keys = join(_set_keys(spec, tuple(range(k))), ", ")
+    cluster = spec.cluster_aliases[0] if by_cluster and len(spec.cluster_aliases) == 1 and k > 1 else None
     shifted = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
-    sums = join(cell_sums(spec, shifted, carries_products(spec)))
-    groups = grouping_sets([_set_keys(spec, s) for s in _sets(spec)])
+    sums = cell_sums(spec, shifted, carries_products(spec))
     filters = Fragment("")
     rounds = 0
     n_complete = None
     while True:
         rounds += 1
-        sql = render("cells", keys=all_keys, sums=sums, filters=filters, sets=groups)
-        eng.execute(f"per-level statistics (round {rounds})", sql, raw=True)
+        _cells_pass(eng, spec, sums, filters, rounds, cluster)
         _build_levels(eng, spec, min_count=1)
         if n_complete is None:
             n_complete = int(eng.one("complete rows", render("level_rows", table=level_table(0)))["n"] or 0)
@@ -420,7 +424,39 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
         if rounds >= MAX_SINGLETON_ROUNDS:
             raise BigPanelError(f"singletons still left after {rounds} rounds; rerun with --singletons keep")
         filters = Fragment("\n" + level_joins("bp_lev", {d: spec.key_aliases(d) for d in range(k)}))
-    return _fetch(eng, spec, n_complete, rounds, budget, forced)
+    return replace(_fetch(eng, spec, n_complete, rounds, budget, forced), cluster_cells=cluster)
+
+
+def cluster_cells_gid(spec: Spec, cluster: str, d: int) -> int:
+    """The ``gid`` of effect d's grouping set in ``bp_cluster_cells`` (:func:`_cells_pass`)."""
+    return grouping_id([cluster, *_set_keys(spec, tuple(range(len(spec.fe))))], [cluster, *_set_keys(spec, (d,))])
+
+
+def _cells_pass(eng: Engine, spec: Spec, sums: list[str], filters: Fragment, rounds: int, cluster: str | None) -> None:
+    """Pass 2 into ``bp_cells``: one grouping set per effect. With ``cluster``, one grouping set
+    per effect and the cluster column into ``bp_cluster_cells`` instead, then each level's cells
+    added up over its clusters into ``bp_cells`` (no further pass; the sums, counts and cluster
+    ranges come out as pass 2 writes them). A level nested in the clusters has one cluster, so
+    that set has as many groups as the level's own; a cut-across effect has clusters x levels."""
+    k = len(spec.fe)
+    keys = _set_keys(spec, tuple(range(k)))
+    if cluster is None:
+        eng.execute(f"per-level statistics (round {rounds})",
+                    render("cells", table=Fragment("bp_cells"), keys=join(keys, ", "), sums=join(sums),
+                           filters=filters, sets=grouping_sets([_set_keys(spec, s) for s in _sets(spec)])), raw=True)
+        return
+    eng.execute(f"per-level statistics by cluster (round {rounds})",
+                render("cells", table=Fragment("bp_cluster_cells"), keys=join([cluster, *keys], ", "),
+                       sums=join(sums), filters=filters,
+                       sets=grouping_sets([[cluster, *_set_keys(spec, s)] for s in _sets(spec)])), raw=True)
+    columns = [part.rsplit(" AS ", 1)[1] for part in sums]
+    again = [f"{'min' if n.endswith('_min') else 'max' if n.endswith('_max') else 'sum'}({n}) AS {n}" for n in columns]
+    complete = [" AND ".join([f"gid = {_gid(spec, s)}"] + [f"{a} IS NOT NULL" for a in _set_keys(spec, s)])
+                for s in _sets(spec)]
+    eng.execute("per-level statistics from the cells by cluster",
+                render("cells_by_level", keys=join(keys, ", "), sums=join(again),
+                       sets=grouping_sets([_set_keys(spec, s) for s in _sets(spec)]),
+                       complete=join([f"({c})" for c in complete], " OR ")))
 
 
 def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:

@@ -3,7 +3,7 @@
 -- squares of every shifted value column (with one effect, also every product of
 -- two of them), and each cluster column's range per level (to tell whether an
 -- effect is nested in it).
-CREATE OR REPLACE TEMP TABLE bp_cells AS
+CREATE OR REPLACE TEMP TABLE {{table}} AS
 SELECT {{keys}},
        GROUPING({{keys}}) AS gid,
        count(*) AS n,
