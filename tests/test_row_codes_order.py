@@ -162,3 +162,28 @@ def test_components_found_chunk_by_chunk(monkeypatch, to_parquet, table):
     coef, se = sm_ref(unlinked, ["worker", "firm"], "classical")
     assert res.components == 2
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
+
+
+@pytest.mark.parametrize("way", ["sparse", "dense blocks"])
+@pytest.mark.parametrize("weighted", [False, True])
+def test_schur_matrix_equals_the_dummies(monkeypatch, way, weighted):
+    # S = D_s'W D_s - D_s'W D_B (D_B'W D_B)^-1 D_B'W D_s for the periods (kept as their missing
+    # cells when unweighted) and a third effect (a plain table), from the link tables by sparse
+    # products or by dense blocks of units; reference: numpy on the explicit dummies (1e-10).
+    monkeypatch.setattr(rowcodes, "SPARSE_SLOWER", 0.0 if way == "sparse" else 1e12)
+    rng = np.random.default_rng(31)
+    cells = [(u, t) for u in range(30) for t in range(8) if rng.random() > 0.2]
+    unit, period = (np.array(c, dtype=np.int32) for c in zip(*cells))
+    item = rng.integers(0, 5, len(unit)).astype(np.int32)
+    w = rng.uniform(0.5, 2.0, len(unit)) if weighted else None
+    rc = RowCodes(0, {1: period.copy(), 2: item.copy()}, None if w is None else w.copy())
+    links = rowcodes.build_links(rc, [np.bincount(unit), np.bincount(period), np.bincount(item)])
+    weights = np.ones(len(unit)) if w is None else w
+    counts = [np.bincount(c, weights=weights) for c in (unit, period, item)]
+    got = rowcodes.schur_matrix(links, counts)
+    d_b = np.eye(30)[unit]
+    d_s = np.hstack([np.eye(8)[period], np.eye(5)[item]])
+    ww = weights[:, None]
+    ref = d_s.T @ (ww * d_s) - d_s.T @ (ww * d_b) @ np.linalg.solve(d_b.T @ (ww * d_b), d_b.T @ (ww * d_s))
+    assert isinstance(links.link[1], sparse.csr_matrix) == weighted  # the periods as missing cells unless weighted
+    assert np.abs(got - ref).max() < 1e-10 * np.abs(ref).max()

@@ -150,3 +150,31 @@ def test_render_takes_only_generated_fragments():
     assert '"my ""col"""' in render("fractional_key", column=ident('my "col"'))
     with pytest.raises(TypeError, match="plain text"):
         render("fractional_key", column='"x"; DROP TABLE t')
+
+
+@pytest.fixture
+def bootstrap_two_way(to_parquet, recorded):
+    """A two-way fit clustered by area with the wild bootstrap (week cuts across the areas, shops
+    nest in them): pass 2 grouped by (area, level), its per-level roll-up and the cut-across
+    sums read back from it; its (sql, params)."""
+    rng = np.random.default_rng(2)
+    shops = np.repeat(np.arange(12), 5)
+    df = pd.DataFrame({"shop id": shops, 'wk"': np.tile(np.arange(5), 12), "area": shops // 3,
+                       "select": rng.normal(size=60)})
+    df["y"] = 0.4 * df["select"] + rng.normal(size=60)
+    bigpanel.fit(to_parquet(df), y="y", x=["select"], fe=["shop id", 'wk"'], cluster="area", strategy="pair tables",
+                 wild_bootstrap=True, bootstrap_weights="rademacher", draws=99)
+    (eng,) = recorded
+    return [(sql, params) for sql, params in eng.calls if "read_parquet" not in sql]
+
+
+@pytest.mark.parametrize("dialect", ["duckdb", "postgres", "spark"])
+def test_bootstrap_two_way_snapshot(bootstrap_two_way, dialect):
+    blocks = []
+    for sql, params in bootstrap_two_way:
+        steps = [sql.strip()] if dialect == "duckdb" else [
+            (f"-- materialised as {s.table}\n" if s.table else "") + s.sql for s in translate(sql, dialect)]
+        blocks.append(_params(params) + "\n" + "\n;\n".join(steps))
+    text = "\n;\n".join(blocks) + "\n"
+    assert "bp_cluster_cells" in text and "Per (bootstrap cluster, level" not in text  # no pass for the sums
+    _check(f"bootstrap_two_way.{dialect}.sql", text)

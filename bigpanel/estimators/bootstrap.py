@@ -12,8 +12,9 @@ draws are :mod:`bigpanel.numerics.bootstrap`; what they read is
   state clusters): exact with those effects' levels handled explicitly, when at most one
   effect is nested and the cut-across effects have at most ``MAX_CROSS_LEVELS`` levels
   (and clusters x levels at most ``MAX_CROSS_PAIRS``).
-  Cost: one pass over the rows for the per (cluster, level) sums and an eigen-decomposition
-  of a T x T matrix. Sigma comes from the pair tables when the fit fetched them, from the
+  Cost: the per (cluster, level) sums, from the cells pass 2 grouped by cluster when one
+  effect is nested and one cuts across (no pass), else one pass over the rows; and an
+  eigen-decomposition of a T x T matrix. Sigma comes from the pair tables when the fit fetched them, from the
   row codes' link tables when the nested effect is the one they eliminate (its Schur
   complement, formed densely: no pass), else from one more pass for the pair tables (they
   must fit the Python-side budget);
@@ -159,10 +160,14 @@ def _sums_from_cells(session: Session, ab: Absorption, keys: pa.Array, nested: l
         table, runs = (cross[(n, x)] if n < x else cross[(x, n)].T.tocsr()), None
     else:
         return None
-    weight, shifted = level_cells(session.eng, session.spec, x, keys, len(red.counts[x]))
+    cut = level_cells(session.eng, session.spec, x, keys)
+    weight = np.zeros((len(keys), len(red.counts[x])))
+    weight[cut.cluster, cut.level] = cut.weight
+    shifted = np.zeros((*weight.shape, cut.sums.shape[1]))
+    shifted[cut.cluster, cut.level] = cut.sums
+    inner = level_cells(session.eng, session.spec, n, keys)
     home = np.zeros(len(red.counts[n]), dtype=np.int64)
-    for c, level in zip(*np.nonzero(level_cells(session.eng, session.spec, n, keys, len(red.counts[n]))[0])):
-        home[level] = c
+    home[inner.level] = inner.cluster  # one cluster per nested level
     alpha = ab.proj.alpha
     return cut_across_sums(shifted, weight, home, alpha[n], alpha[x], table, runs)
 

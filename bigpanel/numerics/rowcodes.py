@@ -37,12 +37,14 @@ unit x period panel), is kept as all ones minus its missing cells M: C_e p =
 
 When the other effects hold few levels (the periods of a unit x period panel), S is
 formed densely, S = diag(n_s) + [P_ef] - T' diag(1/n_B) T with T the per-level tables
-C_e side by side (B's levels in blocks, one matrix product each), and its Cholesky
-factor, with the pinned levels left out, is the preconditioner: the conjugate
-gradients then stop after one or two iterations, whatever the graph. That is done
-when forming S (about B x G^2 multiply-adds for G other levels, at dense speed) costs
-at most DENSE_PAYS iterations' sparse products (2 x nonzeros x columns each; a dense
-multiply-add runs some 25 times faster on this machine) or a few milliseconds; else the
+C_e side by side, and its Cholesky factor, with the pinned levels left out, is the
+preconditioner: the conjugate gradients then stop after one or two iterations, whatever
+the graph. Each block T_e' diag(1/n_B) T_f is one sparse product (a table kept as its
+missing cells M expands to rank-one terms plus M_e' diag(1/n_B) M_f) or, when that costs
+more, B's levels in dense blocks, one matrix product each (about B x G_e x G_f
+multiply-adds; a dense multiply-add runs some SPARSE_SLOWER = 25 times faster than a
+sparse one on this machine). S is formed when that costs at most DENSE_PAYS iterations'
+sparse products (2 x nonzeros x columns each) or a few milliseconds; else the
 preconditioner is M^-1 = diag(S)^-1 + Z (Z'SZ)^-1 Z', Z an indicator column per (other effect,
 component) on the free levels (a two-level additive preconditioner; Z'SZ costs one product).
 Pinning one level leaves the Jacobi-scaled S with an eigenvalue near 1/G_e per other effect e
@@ -77,6 +79,7 @@ DENSE_LEVELS = 2048  # S is formed densely (and factored) only when the other ef
 DENSE_PAYS = 100  # ... and when forming it costs at most this many iterations' sparse products (see _dense_schur)
 DENSE_FLOOR = 1 << 26  # ... or at most this many multiply-adds (a few milliseconds)
 DENSE_CHUNK = 1 << 22  # entries of a dense block of the per-level link tables while forming S
+SPARSE_SLOWER = 25  # a sparse product's multiply-add against a dense one's (BLAS), on this machine
 COARSE_CELLS = 1 << 24  # the coarse space is used while Z S (other levels x components) holds at most this many
 
 
@@ -338,39 +341,79 @@ def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.nda
     effects hold more than DENSE_LEVELS levels or forming S would cost more than DENSE_PAYS
     iterations' products (and more than DENSE_FLOOR multiply-adds)."""
     g = sum(len(counts[e]) for e in links.link)
+    if g > DENSE_LEVELS:
+        return None
     products = sum(c.missing.nnz if isinstance(c, _Complement) else c.nnz for c in links.link.values())
-    if g > DENSE_LEVELS or len(counts[links.big]) * g * g > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
+    tables = [per_level_table(links, e) for e in sorted(links.link)]
+    cost = sum(_outer_cost(a, b) for i, a in enumerate(tables) for b in tables[i:])
+    if cost > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
         return None
     return schur_matrix(links, counts)
 
 
+Table = tuple[sparse.csr_matrix, np.ndarray | None]
+
+
+def _outer_cost(a: Table, b: Table) -> float:
+    """Dense-equivalent multiply-adds of :func:`_outer` (a sparse multiply-add counted as
+    SPARSE_SLOWER dense ones): the cheaper of the two ways."""
+    sparse_cost = float(np.dot(np.diff(a[0].indptr).astype(float), np.diff(b[0].indptr)))
+    return min(SPARSE_SLOWER * sparse_cost, float(a[0].shape[0]) * a[0].shape[1] * b[0].shape[1])
+
+
+def _outer(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
+    """T_a' diag(inv) T_b for two per-level tables (:func:`per_level_table`): T = A, or r 1' - A
+    when the table is kept as its missing cells A with r the rows per level. Expanded with
+    T = r 1' + s A (r = 0, s = 1 for a plain table; s = -1 for a complement):
+    1 1' r_a'D r_b + s_b 1 (r_a'D A_b) + s_a (A_a'D r_b) 1' + s_a s_b A_a'D A_b, one sparse
+    product when that is cheaper (:func:`_outer_cost`); else by dense blocks of B's levels."""
+    (ta, ra), (tb, rb) = a, b
+    if SPARSE_SLOWER * np.dot(np.diff(ta.indptr).astype(float), np.diff(tb.indptr)) > _outer_cost(a, b):
+        return _outer_dense(a, b, inv)
+    sa, sb = (1.0 if ra is None else -1.0), (1.0 if rb is None else -1.0)
+    out = sa * sb * (ta.T @ (tb.multiply(inv[:, None])).tocsr()).toarray()
+    if ra is not None:
+        out += sb * (tb.T @ (inv * ra))[None, :]
+        if rb is not None:
+            out += float(ra @ (inv * rb))
+    if rb is not None:
+        out += sa * (ta.T @ (inv * rb))[:, None]
+    return out
+
+
+def _outer_dense(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
+    """:func:`_outer` by dense blocks of B's levels, one matrix product each."""
+    out = np.zeros((a[0].shape[1], b[0].shape[1]))
+    step = max(1, DENSE_CHUNK // max(out.shape))
+    for lo in range(0, len(inv), step):
+        hi = min(lo + step, len(inv))
+        da, db = ((_dense_rows(t, lo, hi) if r is None else r[lo:hi, None] - _dense_rows(t, lo, hi)) for t, r in (a, b))
+        out += (da * inv[lo:hi, None]).T @ db
+    return out
+
+
 def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
     """S = diag(n_s) + [P_ef] - T' diag(1/n_B) T (module docstring) as a dense matrix over the
-    other effects in code order, T the per-level link tables side by side, formed by blocks of
-    B's levels: the normal equations of the other effects with B partialled out. Kept in
+    other effects in code order, T the per-level link tables side by side, block by block
+    (:func:`_outer`): the normal equations of the other effects with B partialled out. Kept in
     ``links.formed`` for the next call with the same counts (the event study's implied
-    weights reuse the untreated fit's)."""
+    weights and the wild bootstrap's Sigma reuse the fit's)."""
     small = sorted(links.link)
     nb, n = counts[links.big], [counts[e] for e in small]
     kept = links.formed.get("schur")
     if kept is not None and all(np.array_equal(a, b) for a, b in zip(kept[0], [nb, *n])):
         return kept[1]
-    sizes = [len(c) for c in n]
     tables = [per_level_table(links, e) for e in small]
     inv = 1.0 / nb
-    out = np.zeros((sum(sizes), sum(sizes)))
-    step = max(1, DENSE_CHUNK // len(out))
-    for lo in range(0, len(nb), step):
-        hi = min(lo + step, len(nb))
-        dense = [_dense_rows(table, lo, hi) for table, _ in tables]
-        block = np.hstack([d if runs is None else runs[lo:hi, None] - d for d, (_, runs) in zip(dense, tables)])
-        out -= (block * inv[lo:hi, None]).T @ block
-    offsets = np.concatenate([[0], np.cumsum(sizes)])
+    offsets = np.concatenate([[0], np.cumsum([len(c) for c in n])])
+    out = np.zeros((offsets[-1], offsets[-1]))
     for i, e in enumerate(small):
-        out[offsets[i]:offsets[i + 1], offsets[i]:offsets[i + 1]] += np.diag(n[i])
-        for j, f in enumerate(small):
-            if f != e:
-                out[offsets[i]:offsets[i + 1], offsets[j]:offsets[j + 1]] += _pair(links, e, f).toarray()
+        rows = slice(offsets[i], offsets[i + 1])
+        out[rows, rows] = np.diag(n[i]) - _outer(tables[i], tables[i], inv)
+        for j in range(i + 1, len(small)):
+            cols = slice(offsets[j], offsets[j + 1])
+            out[rows, cols] = _pair(links, e, small[j]).toarray() - _outer(tables[i], tables[j], inv)
+            out[cols, rows] = out[rows, cols].T
     links.formed["schur"] = ([nb.copy(), *(c.copy() for c in n)], out)
     return out
 

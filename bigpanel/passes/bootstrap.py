@@ -91,23 +91,30 @@ class PairSums:
         return out
 
 
-def level_cells(eng: Engine, spec: Spec, d: int, keys: pa.Array, levels: int) -> tuple[np.ndarray, np.ndarray]:
+@dataclass(frozen=True)
+class LevelCells:
+    """Per (cluster, level) pair with rows of one effect: the cluster's place in the sorted keys,
+    the level's code, its weight and the sums of the shifted columns (pairs x m)."""
+
+    cluster: np.ndarray
+    level: np.ndarray
+    weight: np.ndarray
+    sums: np.ndarray
+
+
+def level_cells(eng: Engine, spec: Spec, d: int, keys: pa.Array) -> LevelCells:
     """From the cells pass 2 left by cluster (``bp_cluster_cells``, no pass over the rows): per
-    (cluster, level of effect d) the weight and the sums of the shifted columns, as dense
-    clusters x levels and clusters x levels x m arrays (clusters numbered by their place in the
-    sorted ``keys``, levels by code; zero where a pair has no rows)."""
+    (cluster, level of effect d) pair the weight and the sums of the shifted columns."""
     cluster, m = spec.cluster_aliases[0], len(spec.value_aliases)
     sql = render("bootstrap_level_cells", cluster=Fragment(cluster), levels=level_table(d),
                  keys=names(spec.key_aliases(d)), sums=join([f"c.s{j}" for j in range(m)]))
     tab = eng.arrow("bootstrap: sums per cluster and level, from the cells by cluster", sql,
                     {"gid": cluster_cells_gid(spec, cluster, d)})
-    at = pc.index_in(tab.column("cluster"), value_set=keys).to_numpy(zero_copy_only=False).astype(np.int64)
-    code = tab.column("code").to_numpy(zero_copy_only=False).astype(np.int64)
-    weight = np.zeros((len(keys), levels))
-    weight[at, code] = tab.column("nw").to_numpy(zero_copy_only=False)
-    sums = np.zeros((len(keys), levels, m))
-    sums[at, code] = np.column_stack([tab.column(f"s{j}").to_numpy(zero_copy_only=False) for j in range(m)])
-    return weight, sums
+    at = pc.index_in(tab.column("cluster"), value_set=keys)
+    return LevelCells(at.to_numpy(zero_copy_only=False).astype(np.int64),
+                      tab.column("code").to_numpy(zero_copy_only=False).astype(np.int64),
+                      tab.column("nw").to_numpy(zero_copy_only=False).astype(float),
+                      np.column_stack([tab.column(f"s{j}").to_numpy(zero_copy_only=False) for j in range(m)]))
 
 
 def cross_sums(eng: Engine, spec: Spec, boot: int, keys: pa.Array, dims: list[int], sizes: list[int]) -> PairSums:

@@ -451,12 +451,13 @@ def _cells_pass(eng: Engine, spec: Spec, sums: list[str], filters: Fragment, rou
                        sets=grouping_sets([[cluster, *_set_keys(spec, s)] for s in _sets(spec)])), raw=True)
     columns = [part.rsplit(" AS ", 1)[1] for part in sums]
     again = [f"{'min' if n.endswith('_min') else 'max' if n.endswith('_max') else 'sum'}({n}) AS {n}" for n in columns]
-    complete = [" AND ".join([f"gid = {_gid(spec, s)}"] + [f"{a} IS NOT NULL" for a in _set_keys(spec, s)])
-                for s in _sets(spec)]
+    complete = [" AND ".join([f"gid = $gid{i}"] + [f"{a} IS NOT NULL" for a in _set_keys(spec, s)])
+                for i, s in enumerate(_sets(spec))]
     eng.execute("per-level statistics from the cells by cluster",
                 render("cells_by_level", keys=join(keys, ", "), sums=join(again),
                        sets=grouping_sets([_set_keys(spec, s) for s in _sets(spec)]),
-                       complete=join([f"({c})" for c in complete], " OR ")))
+                       complete=join([f"({c})" for c in complete], " OR ")),
+                {f"gid{i}": _gid(spec, s) for i, s in enumerate(_sets(spec))})
 
 
 def _level_arrays(eng: Engine, spec: Spec, d: int) -> tuple[np.ndarray, np.ndarray, list[bool]]:
