@@ -344,8 +344,8 @@ def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.nda
     if g > DENSE_LEVELS:
         return None
     products = sum(c.missing.nnz if isinstance(c, _Complement) else c.nnz for c in links.link.values())
-    tables = [per_level_table(links, e) for e in sorted(links.link)]
-    cost = sum(_outer_cost(a, b) for i, a in enumerate(tables) for b in tables[i:])
+    held = [_held_per_level(links, e) for e in sorted(links.link)]
+    cost = sum(_outer_cost(a, b) for i, a in enumerate(held) for b in held[i:])
     if cost > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
         return None
     return schur_matrix(links, counts)
@@ -354,11 +354,20 @@ def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.nda
 Table = tuple[sparse.csr_matrix, np.ndarray | None]
 
 
-def _outer_cost(a: Table, b: Table) -> float:
-    """Dense-equivalent multiply-adds of :func:`_outer` (a sparse multiply-add counted as
-    SPARSE_SLOWER dense ones): the cheaper of the two ways."""
-    sparse_cost = float(np.dot(np.diff(a[0].indptr).astype(float), np.diff(b[0].indptr)))
-    return min(SPARSE_SLOWER * sparse_cost, float(a[0].shape[0]) * a[0].shape[1] * b[0].shape[1])
+def _held_per_level(links: Links, e: int) -> tuple[np.ndarray, int]:
+    """The nonzeros of effect e's per-level table in each level of B (at most: runs of one level
+    may share cells) and e's level count, without forming the table."""
+    c = links.link[e]
+    table = c.missing if isinstance(c, _Complement) else c
+    held = np.diff(table.indptr).astype(float)
+    return (held if links.order is None else np.bincount(links.order, weights=held)), table.shape[1]
+
+
+def _outer_cost(a: tuple[np.ndarray, int], b: tuple[np.ndarray, int]) -> float:
+    """Dense-equivalent multiply-adds of :func:`_outer` for two tables given by
+    :func:`_held_per_level` (a sparse multiply-add counted as SPARSE_SLOWER dense ones): the
+    cheaper of the two ways."""
+    return min(SPARSE_SLOWER * float(np.dot(a[0], b[0])), float(len(a[0])) * a[1] * b[1])
 
 
 def _outer(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
@@ -368,7 +377,8 @@ def _outer(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
     1 1' r_a'D r_b + s_b 1 (r_a'D A_b) + s_a (A_a'D r_b) 1' + s_a s_b A_a'D A_b, one sparse
     product when that is cheaper (:func:`_outer_cost`); else by dense blocks of B's levels."""
     (ta, ra), (tb, rb) = a, b
-    if SPARSE_SLOWER * np.dot(np.diff(ta.indptr).astype(float), np.diff(tb.indptr)) > _outer_cost(a, b):
+    held_a, held_b = np.diff(ta.indptr).astype(float), np.diff(tb.indptr).astype(float)
+    if SPARSE_SLOWER * float(np.dot(held_a, held_b)) > float(len(inv)) * ta.shape[1] * tb.shape[1]:
         return _outer_dense(a, b, inv)
     sa, sb = (1.0 if ra is None else -1.0), (1.0 if rb is None else -1.0)
     out = sa * sb * (ta.T @ (tb.multiply(inv[:, None])).tocsr()).toarray()

@@ -399,10 +399,11 @@ def reduce_cells(eng: Engine, spec: Spec, drop_singletons: bool, budget: int, fo
                  by_cluster: bool = False) -> Reduction:
     """Pass 2 (repeated only to peel singletons): per-level statistics of every effect, the
     level tables, the strategy (:func:`choose_strategy`) and what it fetches to numpy.
-    ``by_cluster`` (the wild bootstrap follows): with one cluster column and two or more
-    effects, the pass groups by (cluster, level) instead (:func:`_cells_pass`)."""
+    ``by_cluster`` (the wild bootstrap follows): with one cluster column and two effects (one
+    may be nested in the clusters and the other cut across them: the case whose sums these
+    cells give without a pass), the pass groups by (cluster, level) instead (:func:`_cells_pass`)."""
     k = len(spec.fe)
-    cluster = spec.cluster_aliases[0] if by_cluster and len(spec.cluster_aliases) == 1 and k > 1 else None
+    cluster = spec.cluster_aliases[0] if by_cluster and len(spec.cluster_aliases) == 1 and k == 2 else None
     shifted = [f"({v} - s.m{j})" for j, v in enumerate(spec.value_aliases)]
     sums = cell_sums(spec, shifted, carries_products(spec))
     filters = Fragment("")
