@@ -92,6 +92,9 @@ CONFIGS = {
         ("store-week-supplier", ["store", "week", "supplier"], None),
         ("store-week-supplier", ["store", "week", "supplier"], "store"),
     ],
+    "staff": [  # job spells alone (shape c), for its slope of log time on log rows
+        ("staff", ["employee", "store", "year"], "employee"),
+    ],
     "poisson": [  # the Poisson fit against the linear fit with the same effects on the same panel
         ("store-week-counts", ["store", "week"], None),
         ("store-week-counts", ["store", "week"], None, POISSON),
