@@ -32,8 +32,8 @@ import pyarrow as pa
 from scipy import sparse
 
 from ..errors import BigPanelError
-from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_sigma, cut_across_sums, plan_draws,
-                                  pseudo_inverse, wild_tests)
+from ..numerics.bootstrap import (ClusterSums, CrossEffects, cut_across_sigma, cut_across_sums, pair_block,
+                                  plan_draws, pseudo_inverse, wild_tests)
 from ..numerics.rowcodes import Links, per_level_table, schur_matrix
 from ..numerics.bootstrap_interval import inverted_interval
 from ..numerics.inference import Inference, cluster_factor
@@ -157,7 +157,7 @@ def _sums_from_cells(session: Session, ab: Absorption, keys: pa.Array, nested: l
     if links is not None:
         table, runs = per_level_table(links, x)
     elif cross is not None:
-        table, runs = (cross[(n, x)] if n < x else cross[(x, n)].T.tocsr()), None
+        table, runs = pair_block(cross, n, x), None
     else:
         return None
     cut = level_cells(session.eng, session.spec, x, keys)

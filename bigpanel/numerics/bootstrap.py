@@ -285,23 +285,24 @@ def wild_tests(sums: ClusterSums, keep: list[int], bread: np.ndarray, tested: li
     return results
 
 
+def pair_block(cross: dict[tuple[int, int], sparse.csr_matrix], d: int, e: int) -> sparse.csr_matrix:
+    """The weights of the (level of d, level of e) pairs from the pair tables kept for d < e."""
+    return cross[(d, e)] if d < e else cross[(e, d)].T.tocsr()
+
+
 def cut_across_sigma(counts: list[np.ndarray], cross: dict[tuple[int, int], sparse.csr_matrix],
                      nested: int | None, dims: list[int]) -> np.ndarray:
     """Sigma for the effects ``dims`` that cut across the clusters, with at most one ``nested``
     effect: Sigma = D_x'WD_x - N' diag(1/W_l) N from the level weights ``counts`` and the pair
     tables ``cross[(d, e)]`` (d < e)."""
-
-    def block(d: int, e: int) -> sparse.csr_matrix:
-        return cross[(d, e)] if d < e else cross[(e, d)].T.tocsr()
-
     sigma = linalg.block_diag(*[np.diag(counts[d]) for d in dims])
     offsets = np.concatenate([[0], np.cumsum([len(counts[d]) for d in dims])])
     for a, d in enumerate(dims):
         for b, e in enumerate(dims):
             if a != b:
-                sigma[offsets[a]:offsets[a + 1], offsets[b]:offsets[b + 1]] = block(d, e).toarray()
+                sigma[offsets[a]:offsets[a + 1], offsets[b]:offsets[b + 1]] = pair_block(cross, d, e).toarray()
     if nested is not None:  # N' diag(1/W) N by dense blocks of levels (a sparse product is far slower here)
-        n = sparse.hstack([block(nested, d) for d in dims]).tocsr()
+        n = sparse.hstack([pair_block(cross, nested, d) for d in dims]).tocsr()
         step = max(1, BLOCK_CELLS // n.shape[1])
         for start in range(0, n.shape[0], step):
             part = n[start:start + step].toarray()

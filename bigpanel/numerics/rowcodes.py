@@ -313,11 +313,16 @@ def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
     return links.pairs[(e, f)] if e < f else links.pairs[(f, e)].T
 
 
+def _stored(c: Link) -> sparse.csr_matrix:
+    """The sparse table a link table keeps: C_e itself, or a complement's missing cells."""
+    return c.missing if isinstance(c, _Complement) else c
+
+
 def per_level_table(links: Links, e: int) -> tuple[sparse.csr_matrix, np.ndarray | None]:
     """T_e = the rows of C_e added up per level of B, as a sparse table and, for a complement,
     the number of rows per level r (then T_e = r 1' - the sparse table)."""
     c = links.link[e]
-    table = c.missing if isinstance(c, _Complement) else c
+    table = _stored(c)
     if links.gather is not None:
         table = (links.gather @ table).tocsr()
     if not isinstance(c, _Complement):
@@ -343,9 +348,9 @@ def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.nda
     g = sum(len(counts[e]) for e in links.link)
     if g > DENSE_LEVELS:
         return None
-    products = sum(c.missing.nnz if isinstance(c, _Complement) else c.nnz for c in links.link.values())
+    products = sum(_stored(c).nnz for c in links.link.values())
     held = [_held_per_level(links, e) for e in sorted(links.link)]
-    cost = sum(_outer_cost(a, b) for i, a in enumerate(held) for b in held[i:])
+    cost = sum(min(_outer_costs(*a, *b)) for i, a in enumerate(held) for b in held[i:])
     if cost > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
         return None
     return schur_matrix(links, counts)
@@ -357,17 +362,16 @@ Table = tuple[sparse.csr_matrix, np.ndarray | None]
 def _held_per_level(links: Links, e: int) -> tuple[np.ndarray, int]:
     """The nonzeros of effect e's per-level table in each level of B (at most: runs of one level
     may share cells) and e's level count, without forming the table."""
-    c = links.link[e]
-    table = c.missing if isinstance(c, _Complement) else c
+    table = _stored(links.link[e])
     held = np.diff(table.indptr).astype(float)
     return (held if links.order is None else np.bincount(links.order, weights=held)), table.shape[1]
 
 
-def _outer_cost(a: tuple[np.ndarray, int], b: tuple[np.ndarray, int]) -> float:
-    """Dense-equivalent multiply-adds of :func:`_outer` for two tables given by
-    :func:`_held_per_level` (a sparse multiply-add counted as SPARSE_SLOWER dense ones): the
-    cheaper of the two ways."""
-    return min(SPARSE_SLOWER * float(np.dot(a[0], b[0])), float(len(a[0])) * a[1] * b[1])
+def _outer_costs(held_a: np.ndarray, levels_a: int, held_b: np.ndarray, levels_b: int) -> tuple[float, float]:
+    """Dense-equivalent multiply-adds of :func:`_outer` for two tables with ``held`` nonzeros in
+    each level of B and ``levels`` columns: by one sparse product (a sparse multiply-add counted
+    as SPARSE_SLOWER dense ones) and by dense blocks."""
+    return SPARSE_SLOWER * float(np.dot(held_a, held_b)), float(len(held_a)) * levels_a * levels_b
 
 
 def _outer(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
@@ -375,10 +379,11 @@ def _outer(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
     when the table is kept as its missing cells A with r the rows per level. Expanded with
     T = r 1' + s A (r = 0, s = 1 for a plain table; s = -1 for a complement):
     1 1' r_a'D r_b + s_b 1 (r_a'D A_b) + s_a (A_a'D r_b) 1' + s_a s_b A_a'D A_b, one sparse
-    product when that is cheaper (:func:`_outer_cost`); else by dense blocks of B's levels."""
+    product when that is cheaper (:func:`_outer_costs`); else by dense blocks of B's levels."""
     (ta, ra), (tb, rb) = a, b
-    held_a, held_b = np.diff(ta.indptr).astype(float), np.diff(tb.indptr).astype(float)
-    if SPARSE_SLOWER * float(np.dot(held_a, held_b)) > float(len(inv)) * ta.shape[1] * tb.shape[1]:
+    by_sparse, by_blocks = _outer_costs(np.diff(ta.indptr).astype(float), ta.shape[1],
+                                        np.diff(tb.indptr).astype(float), tb.shape[1])
+    if by_sparse > by_blocks:
         return _outer_dense(a, b, inv)
     sa, sb = (1.0 if ra is None else -1.0), (1.0 if rb is None else -1.0)
     out = sa * sb * (ta.T @ (tb.multiply(inv[:, None])).tocsr()).toarray()
@@ -430,7 +435,8 @@ def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
 
 class _Schur:
     """The operator S of the module docstring on the stacked other effects, and its
-    preconditioner: the Cholesky factor of S formed densely, or S's diagonal."""
+    preconditioner: the Cholesky factor of S formed densely, or S's diagonal plus the coarse
+    space."""
 
     def __init__(self, links: Links, counts: list[np.ndarray], columns: int, dense: bool) -> None:
         self.links = links
@@ -525,7 +531,8 @@ class _Schur:
 
 def solve_codes(links: Links, red: Reduction, tol: float, max_iter: int, dense: bool = True) -> Projection:
     """Effects of every dimension for every value column (see the module docstring); ``dense``
-    False keeps the diagonal preconditioner (a warm-started solve needs few iterations)."""
+    False keeps the diagonal and coarse-space preconditioner (a warm-started solve needs few
+    iterations)."""
     op = _Schur(links, red.counts, red.rhs[links.big].shape[1], dense)
     big = links.big
     rhs_big = red.rhs[big]
