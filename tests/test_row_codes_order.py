@@ -187,3 +187,26 @@ def test_schur_matrix_equals_the_dummies(monkeypatch, way, weighted):
     ref = d_s.T @ (ww * d_s) - d_s.T @ (ww * d_b) @ np.linalg.solve(d_b.T @ (ww * d_b), d_b.T @ (ww * d_s))
     assert isinstance(links.link[1], sparse.csr_matrix) == weighted  # the periods as missing cells unless weighted
     assert np.abs(got - ref).max() < 1e-10 * np.abs(ref).max()
+
+
+@pytest.mark.parametrize("weights", ["none", "fixed", "per row"])
+def test_schur_diagonal_equals_the_dummies(weights):
+    # The diagonal preconditioner's S diagonal from the link tables: unweighted (periods kept as
+    # their missing cells), weighted with the tables built once (--weights), and weighted per row
+    # as the Poisson steps build them (every C_e holds the row weights). Reference: the diagonal
+    # of the dummies' Schur complement, numpy (1e-12). A unit holds each item in one row at most:
+    # with two nonzeros in one cell the diagonal is the preconditioner's approximation.
+    rng = np.random.default_rng(32)
+    cells = [(u, t) for u in range(30) for t in range(8) if rng.random() > 0.2]
+    unit, period = (np.array(c, dtype=np.int32) for c in zip(*cells))
+    item = (unit + period) % 9
+    w = None if weights == "none" else rng.uniform(0.5, 2.0, len(unit))
+    rc = RowCodes(0, {1: period.copy(), 2: item.copy()}, None if w is None else w.copy())
+    links = rowcodes.build_links(rc, [np.bincount(unit), np.bincount(period), np.bincount(item)],
+                                 fixed=weights != "per row")
+    ww = np.ones(len(unit)) if w is None else w
+    counts = [np.bincount(c, weights=ww) for c in (unit, period, item)]
+    d_b, d_s = np.eye(30)[unit], np.hstack([np.eye(8)[period], np.eye(9)[item]])
+    ref = d_s.T @ (ww[:, None] * d_s) - d_s.T @ (ww[:, None] * d_b) @ np.linalg.solve(
+        d_b.T @ (ww[:, None] * d_b), d_b.T @ (ww[:, None] * d_s))
+    assert np.abs(rowcodes.schur_diagonal(links, counts) - np.diag(ref)).max() < 1e-12 * np.abs(ref).max()

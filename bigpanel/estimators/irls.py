@@ -26,12 +26,12 @@ from ..errors import BigPanelError
 from ..model.spec import Spec
 from ..numerics.irls import Change, change, clear_cut, deviance, level_moments, project_step, step_reduction
 from ..numerics.project import components
-from ..numerics.rowcodes import Links, build_links, reweighted
+from ..numerics.rowcodes import Links, build_links
 from ..numerics.rowcodes import components as code_components
 from ..numerics.solve import Slopes, solve_slopes
 from ..passes.irls import (StepSums, check_nonnegative, create_demeaned, fetch_weights, final_pass, step_pass,
                            store_state)
-from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, RowCodes, Start,
+from ..passes.reduce import (IN_ENGINE, ONE_WAY, PAIR_TABLES, ROW_CODES, Plan, Reduction, Start,
                              choose_strategy, create_views, incomplete, level_keys, reduce_cells, start,
                              value_offsets)
 from .absorb import Projections
@@ -48,7 +48,7 @@ class Sample:
     each effect's level keys (code order), the sums of the first IRLS pass, the strategy, the
     nesting flags, the one-row table's values, the rows dropped by reason, the sums of p, p y,
     p y^2 and p y log y (``constants``), the starting effects ``f0``, the components of effects
-    1-2 and, on the row-codes path, the link tables and the row weights they share."""
+    1-2 and, on the row-codes path, the largest link tables' bytes."""
 
     first: Start
     red: Reduction
@@ -66,8 +66,7 @@ class Sample:
     f0: list[np.ndarray] = field(default_factory=list)
     n_comp: int | None = None
     labels: np.ndarray | None = None
-    links: Links | None = None
-    weights: np.ndarray | None = None
+    link_bytes: int | None = None
 
 
 @dataclass
@@ -184,22 +183,16 @@ def _pairs(k: int) -> list[tuple[int, int]]:
     return [(d, e) for d in range(k) for e in range(d + 1, k)]
 
 
-def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> None:
-    """The row-codes path's weights of a step; the first time also every row's codes, and the link
-    tables (and the components of effects 1-2) built around the weights."""
+def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> Links:
+    """The row-codes path's codes and weights of a step and the link tables built around them,
+    held only for the step's projections (the grouped pass of the next step runs without them);
+    the first time also the components of effects 1-2, which do not depend on the weights."""
     rows = [lv.rows for lv in sample.sums.levels]
-    sizes = [len(r) for r in rows]
-    if sample.links is None:
-        big = int(np.argmax(sizes))
-        n = int(rows[0].sum())
-        codes = {d: np.empty(n, dtype=np.int32) for d in range(len(sizes)) if d != big}
-        sample.weights = np.empty(n)
-        fetch_weights(eng, spec, big, sample.weights, codes)
-        sample.links = build_links(RowCodes(big, codes, sample.weights), rows, fixed=False)
-        sample.n_comp, sample.labels = code_components(sample.links, sizes)
-        return
-    fetch_weights(eng, spec, sample.links.big, sample.weights, {})
-    sample.links = reweighted(sample.links, sizes, sample.weights)
+    links = build_links(fetch_weights(eng, spec, [len(r) for r in rows], int(rows[0].sum())), rows, fixed=False)
+    sample.link_bytes = max(sample.link_bytes or 0, links.nbytes)
+    if sample.labels is None:
+        sample.n_comp, sample.labels = code_components(links, [len(r) for r in rows])
+    return links
 
 
 def irls_slopes(q: np.ndarray, sums: StepSums, keep: list[int] | None) -> tuple[Slopes, list[int]]:
@@ -247,8 +240,7 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
         passes = eng.raw_passes
         if run.steps > 1:
             run.sums = step_pass(eng, spec, pairs, first=False)
-        if strategy == ROW_CODES:
-            _row_weights(eng, spec, sample)
+        links = _row_weights(eng, spec, sample) if strategy == ROW_CODES else None
         level_py = [lv.constants["py"] for lv in sample.sums.levels]
         run.deviance = deviance(sample.constants, level_py, run.f, run.beta, run.keep,
                                 float(run.sums.levels[0].weight.sum()))
@@ -262,7 +254,8 @@ def iterate(eng: Engine, spec: Spec, sample: Sample, how: Projections, tol: floa
         if eng.on_step:
             eng.on_step(f"IRLS step {run.steps}: projections ({strategy})")
         t0 = perf_counter()
-        proj = project_step(step_reduction(run.sums, sample.nested, strategy), sample.links, how.tol, how.max_iter)
+        proj = project_step(step_reduction(run.sums, sample.nested, strategy), links, how.tol, how.max_iter)
+        del links  # not held through the next step's grouped pass
         run.a = [a + da for a, da in zip(run.a, proj.alpha)]
         run.projection_iterations.append(proj.iterations)
         run.projections_converged, run.projection_change = proj.converged, proj.change

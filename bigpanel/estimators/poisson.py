@@ -136,7 +136,7 @@ class Poisson(Estimator):
             converged=run.converged and run.projections_converged, condition_number=final.slopes.condition,
             raw_passes=eng.raw_passes, seconds=0.0, strategy=sample.plan.to_dict(),
             cross_products_from="demeaned rows at the last weights", python_budget_bytes=None,
-            largest_python_allocation_bytes=int(sample.links.nbytes) if sample.links is not None else None,
+            largest_python_allocation_bytes=sample.link_bytes,
             bytes_to_client=eng.bytes_to_client, singleton_rounds=sample.red.rounds,
             filter="materialised once (volatile)" if session.spec.volatile_where else None,
         )

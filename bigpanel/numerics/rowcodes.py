@@ -61,7 +61,7 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import linalg, sparse
@@ -190,8 +190,8 @@ def _pair_table(a: np.ndarray, b: np.ndarray, w: np.ndarray | None, ga: int, gb:
 
 def build_links(rc: RowCodes, rows: list[np.ndarray], fixed: bool = True) -> Links:
     """The tables of the module docstring from the row codes; empties ``rc`` on the way. With
-    ``fixed`` False (weights that change between solves, :func:`reweighted`) every C_e keeps a
-    nonzero per row holding the row weights: no runs merged, no complement."""
+    ``fixed`` False (the Poisson fit's working weights, whose tables are built again at every
+    step) every C_e keeps a nonzero per row holding the row weights: no runs merged, no complement."""
     sizes = [len(r) for r in rows]
     big, small = rc.big, sorted(rc.codes)
     pairs = {(e, f): _pair_table(rc.codes[e], rc.codes[f], rc.weights, sizes[e], sizes[f])
@@ -292,20 +292,6 @@ def _runs(codes: np.ndarray, indptr: np.ndarray, data: np.ndarray | None, g: int
     weights = np.diff(starts, append=n).astype(float) if data is None else np.add.reduceat(data, starts)
     ptr = np.searchsorted(starts, indptr).astype(indptr.dtype)
     return sparse.csr_matrix((weights, codes[starts].astype(indptr.dtype), ptr), shape=(len(indptr) - 1, g))
-
-
-def reweighted(links: Links, sizes: list[int], weights: np.ndarray) -> Links:
-    """``links`` (built with ``fixed`` False) with new row weights (the Poisson fit's IRLS steps):
-    every C_e holds ``weights`` as its values (the array they were built around, already
-    rewritten in place), the tables P_ef of the other effects are counted again; the
-    components do not depend on the weights."""
-    for c in links.link.values():
-        if not np.shares_memory(c.data, weights):
-            c.data = weights
-    small = sorted(links.link)
-    pairs = {(e, f): _pair_table(links.link[e].indices, links.link[f].indices, weights, sizes[e], sizes[f])
-             for i, e in enumerate(small) for f in small[i + 1:]}
-    return replace(links, pairs=pairs, unit=frozenset(), formed={})
 
 
 def _pair(links: Links, e: int, f: int) -> sparse.csr_matrix:
@@ -433,6 +419,35 @@ def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
     return out
 
 
+def schur_diagonal(links: Links, counts: list[np.ndarray]) -> np.ndarray:
+    """S's diagonal (module docstring) from the link tables: n_e - (C_e squared)' (1 / n_B) for
+    every other effect e in code order. Exact when every cell (level of B, level of e) is one
+    nonzero; a cell held by two (its rows apart in a level, or a level of B in two runs) counts
+    as two squares: the preconditioner's approximation."""
+    inv = links.by_row(1.0 / counts[links.big])
+    out = []
+    for e in sorted(links.link):
+        c = links.link[e]
+        if isinstance(c, _Complement):  # ones: every nonzero equals its square
+            squares = c.transposed_times(inv)
+        else:
+            squares = c.T @ inv if e in links.unit else _squares_times(c, inv)
+        out.append(counts[e] - squares)
+    return np.concatenate(out)
+
+
+def _squares_times(c: sparse.csr_matrix, vec: np.ndarray) -> np.ndarray:
+    """(C with every value squared)' vec, a row block at a time (no copy of C's values)."""
+    ptr, out = c.indptr, np.zeros(c.shape[1])
+    cuts = np.unique(np.concatenate([[0], np.searchsorted(ptr, np.arange(EDGE_CHUNK, ptr[-1], EDGE_CHUNK)),
+                                     [c.shape[0]]]))
+    for lo, hi in zip(cuts[:-1], cuts[1:]):
+        part = slice(ptr[lo], ptr[hi])
+        values = np.square(c.data[part]) * np.repeat(vec[lo:hi], np.diff(ptr[lo:hi + 1]))
+        out += np.bincount(c.indices[part], weights=values, minlength=c.shape[1])
+    return out
+
+
 class _Schur:
     """The operator S of the module docstring on the stacked other effects, and its
     preconditioner: the Cholesky factor of S formed densely, or S's diagonal plus the coarse
@@ -450,23 +465,10 @@ class _Schur:
         self.free = ~np.concatenate(pinned)[:, None]
         dense = _dense_schur(links, counts, columns) if dense else None
         scale = np.concatenate(self.n)
-        d = self._diagonal() if dense is None else np.diag(dense)
+        d = schur_diagonal(links, counts) if dense is None else np.diag(dense)
         self.diag = np.where(d > 1e-9 * scale, d, scale)  # a level absorbed by B: any positive scale
         self.factor = None if dense is None else self._factor(dense)
         self.coarse = self._coarse() if self.factor is None else None
-
-    def _diagonal(self) -> np.ndarray:
-        """S's diagonal from the link tables: n_e - C_e^2' (1 / n_B) (squares of the values)."""
-        inv, links, out = 1.0 / self.nb, self.links, []
-        for e, n_e in zip(self.small, self.n):
-            c = links.link[e]
-            if isinstance(c, _Complement):  # ones: every nonzero equals its square
-                out.append(n_e - c.transposed_times(links.by_row(inv)))
-                continue
-            if e not in links.unit:
-                c = sparse.csr_matrix((c.data**2, c.indices, c.indptr), shape=c.shape)
-            out.append(n_e - c.T @ links.by_row(inv))
-        return np.concatenate(out)
 
     def _factor(self, dense: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         """The Cholesky factor of S on the free levels (a level absorbed by B scaled as the

@@ -12,10 +12,10 @@ little.
 
 Each step makes one grouped pass (template ``poisson_cells``): per level of every effect (on
 the pair-table path: per pair cell) the weight sum, the weighted sums of every r_j and their
-products sum w r_i r_j. The row-codes path adds a pass sorted as the codes kept in numpy that
-writes every row's working weight into the link tables (:func:`fetch_weights`, 8 bytes a row;
-sending the weighted columns too would save that pass's scan but make the engine's sort five
-times wider). The last step's pass (:func:`final_pass`) sums the demeaned cross-products,
+products sum w r_i r_j. The row-codes path adds a pass that streams every row's codes and working weight
+(:func:`fetch_weights`, 16 bytes a row with two effects), from which numpy builds the step's
+link tables; sending the weighted columns too would save that pass's scan but send three
+times as many bytes a row. The last step's pass (:func:`final_pass`) sums the demeaned cross-products,
 the scores and the fit statistics with compensated sums.
 """
 
@@ -31,7 +31,7 @@ from ..errors import BigPanelError
 from ..model.spec import Spec
 from ..sql.text import Fragment, grouping_id, grouping_sets, join, level_joins, names, render
 from .moments import cluster_sets
-from .reduce import put_one_row
+from .reduce import RowCodes, put_one_row, stream_in_runs
 
 # sums that do not change between steps, taken in the first pass only (and p y t_j: see constants)
 CONSTANTS = {"p": "p", "py": "p * y", "pyy": "p * y * y", "pyl": "p * CASE WHEN y > 0 THEN y * ln(y) ELSE 0 END"}
@@ -202,29 +202,19 @@ def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
                      constants={name: col(name) for name in constants(spec)} if first else None, nested=nested)
 
 
-def _row_order(spec: Spec, big: int) -> Fragment:
-    """All the level codes, the largest effect's first: the order of the rows on the row-codes path."""
-    return names([f"c{d + 1}" for d in [big] + [d for d in range(len(spec.fe)) if d != big]])
+def fetch_weights(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
+    """The row-codes path's second pass of a step: every row's level codes and working weight,
+    in runs of one level of the largest effect (:func:`~bigpanel.passes.reduce.stream_in_runs`:
+    unsorted where the engine keeps its scan order, so the engine sorts nothing; the runs may
+    come in another order at every step, and the link tables are built again from them)."""
+    big = int(np.argmax(levels))
+    columns = [f"c{d + 1}" for d in range(len(levels)) if d != big] + ["w", f"c{big + 1}"]
 
+    def sql(sort: bool) -> str:
+        return render("poisson_row_weights", columns=join(columns, ", "), rows=rows_sql(spec),
+                      order=Fragment(f"\nORDER BY c{big + 1}" if sort else ""))
 
-def fetch_weights(eng: Engine, spec: Spec, big: int, weights: np.ndarray, codes: dict[int, np.ndarray]) -> None:
-    """The row-codes path's second pass of a step: every row's working weight written into
-    ``weights`` (the array the link tables share), in the order of the codes (:func:`_row_order`);
-    ``codes`` (effect -> preallocated array; empty after the first step) are filled too."""
-    columns = ["w"] + [f"c{d + 1}" for d in codes]
-    sql = render("poisson_row_weights", columns=join(columns, ", "), order=_row_order(spec, big),
-                 rows=rows_sql(spec))
-    targets = [weights, *codes.values()]
-    at = 0
-    for batch in eng.stream("IRLS step: working weight of every row", sql, raw=True):
-        size = batch.num_rows
-        if at + size > len(weights):
-            raise RuntimeError("the IRLS weights pass returned more rows than the levels hold")
-        for j, target in enumerate(targets):
-            target[at:at + size] = batch.column(j).to_numpy()
-        at += size
-    if at != len(weights):
-        raise RuntimeError(f"the IRLS weights pass returned {at:,} rows, the levels hold {len(weights):,}")
+    return stream_in_runs(eng, "IRLS step: working weight of every row", sql, big, levels, n_obs, True)
 
 
 def create_demeaned(eng: Engine, spec: Spec) -> None:

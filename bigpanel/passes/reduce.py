@@ -10,6 +10,7 @@ row-codes pass fetches what that strategy iterates on.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from itertools import combinations
 
@@ -541,44 +542,57 @@ EXTRA_RUNS = 64  # runs beyond one per level that the unsorted row codes may hol
 
 def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
     """Every sample row's int32 level code of each effect but the largest, and its weight, in
-    runs of rows of one level of the largest effect, as :mod:`bigpanel.numerics.rowcodes` needs them.
+    runs of rows of one level of the largest effect, as :mod:`bigpanel.numerics.rowcodes` needs
+    them (:func:`stream_in_runs`)."""
+    big = int(np.argmax(levels))
+    small = [d for d in range(len(levels)) if d != big]
+    cols = [f"l{d + 1}.code AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
+    cols.append(f"l{big + 1}.code AS c{big + 1}")
+
+    def sql(sort: bool) -> str:
+        return render("row_codes", codes=join(cols), joins=_level_joins(spec),
+                      order=Fragment(f"\nORDER BY l{big + 1}.code" if sort else ""))
+
+    return stream_in_runs(eng, "level codes of every row", sql, big, levels, n_obs, bool(spec.weights))
+
+
+def stream_in_runs(eng: Engine, label: str, sql: Callable[[bool], str], big: int, levels: list[int], n_obs: int,
+                   weighted: bool) -> RowCodes:
+    """Stream rows given as (codes of the other effects in order, weight when ``weighted``, code of
+    effect ``big``) by ``sql(sort)`` into preallocated arrays, in runs of one level of ``big``.
 
     Panels are mostly stored unit by unit, so on an engine that returns rows about in the
-    order it reads them the codes first stream unsorted, with the largest effect's code
+    order it reads them the rows first stream unsorted, with the largest effect's code
     beside them to find the runs; a level may come in a few runs (the engine's threads hand
     over batches a little out of order). Only when the runs outnumber the levels by more
     than a 64th (the stream stops there) does a second pass ask the engine to sort the rows
     by that code (it spills if it must); an engine without that order sorts at once. The
-    rows stream into preallocated arrays: the peak is the arrays plus one batch.
+    peak is the arrays plus one batch.
     """
-    big = int(np.argmax(levels))
     if eng.ordered_scans:
-        found = _stream_codes(eng, spec, big, levels, n_obs, sort=False)
+        found = _stream_codes(eng, label, sql(False), big, levels, n_obs, weighted)
         if found is not None:
             return found
-    found = _stream_codes(eng, spec, big, levels, n_obs, sort=True)
+    found = _stream_codes(eng, label + ", sorted", sql(True), big, levels, n_obs, weighted)
     if found is None:
         raise RuntimeError("the rows sorted by the engine came back out of order")
     return found
 
 
-def _stream_codes(eng: Engine, spec: Spec, big: int, levels: list[int], n_obs: int, sort: bool) -> RowCodes | None:
-    """One pass of :func:`fetch_codes`; None as soon as the runs are too many."""
+def _stream_codes(eng: Engine, label: str, sql: str, big: int, levels: list[int], n_obs: int,
+                  weighted: bool) -> RowCodes | None:
+    """One pass of :func:`stream_in_runs`; None as soon as the runs are too many."""
     small = [d for d in range(len(levels)) if d != big]
-    cols = [f"l{d + 1}.code AS c{d + 1}" for d in small] + (["w"] if spec.weights else [])
-    cols.append(f"l{big + 1}.code AS c{big + 1}")
-    sql = render("row_codes", codes=join(cols), joins=_level_joins(spec),
-                 order=Fragment(f"\nORDER BY l{big + 1}.code" if sort else ""))
     codes = {d: np.empty(n_obs, dtype=np.int32) for d in small}
-    weights = np.empty(n_obs) if spec.weights else None
+    weights = np.empty(n_obs) if weighted else None
     heads: list[np.ndarray] = []
     starts: list[np.ndarray] = []
     n_runs, last, at = 0, -1, 0
     most = levels[big] + max(EXTRA_RUNS, levels[big] // EXTRA_RUNS)
-    for batch in eng.stream("level codes of every row" + (", sorted" if sort else ""), sql, raw=True):
+    for batch in eng.stream(label, sql, raw=True):
         size = batch.num_rows
         if at + size > n_obs:
-            raise RuntimeError("the row-codes pass returned more rows than the levels hold")
+            raise RuntimeError(f"{label}: the pass returned more rows than the levels hold")
         if size == 0:
             continue
         for j, d in enumerate(small):
@@ -596,7 +610,7 @@ def _stream_codes(eng: Engine, spec: Spec, big: int, levels: list[int], n_obs: i
         starts.append(first + at)
         last, at = b[-1], at + size
     if at != n_obs:
-        raise RuntimeError(f"the row-codes pass returned {at:,} rows, the levels hold {n_obs:,}")
+        raise RuntimeError(f"{label}: the pass returned {at:,} rows, the levels hold {n_obs:,}")
     head = np.concatenate(heads) if heads else np.zeros(0, dtype=np.int32)
     if len(head) == levels[big] and np.array_equal(head, np.arange(levels[big])):
         return RowCodes(big, codes, weights)

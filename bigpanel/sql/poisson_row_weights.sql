@@ -1,7 +1,6 @@
--- The row-codes path of the Poisson fit: every working row's working weight (and, the first
--- time, its level codes), ordered by all the level codes, the largest effect's first, so
--- that every step returns the rows in the order of the codes kept in numpy (rows with the
--- same codes of every effect may trade places: they enter the sparse tables alike).
+-- The row-codes path of the Poisson fit: every working row's level codes and working weight,
+-- the largest effect's code last, in the engine's scan order (runs of rows of one level of
+-- that effect on a panel stored unit by unit) or, when that order does not group them,
+-- sorted by that code.
 SELECT {{columns}}
-FROM ({{rows}}) AS r
-ORDER BY {{order}}
+FROM ({{rows}}) AS r{{order}}
