@@ -255,10 +255,11 @@ def summarise(records: list[dict]) -> dict:
                 out["numpy_over_fit"][label] = round(ref["seconds"] / fit["seconds"], 2)
                 diffs = [abs(fit["coefficients"][n] - b) / abs(b) for n, b in ref["coefficients"].items()]
                 out["max_rel_slope_diff_vs_numpy"][label] = float(max(diffs))
-            linear = next((r for r in ok if fit and fit.get("options", {}).get("model") == "poisson"
-                           and r["what"] == "fit" and r["rows"] == rows and r["panel"] == fit["panel"]
-                           and r["effects"] == fit["effects"] and not r.get("options")), None)
-            if linear:  # the Poisson fit over the linear fit with the same effects on the same panel
+            linear = min((r for r in ok if fit and fit.get("options", {}).get("model") == "poisson"
+                          and r["what"] == "fit" and r["rows"] == rows and r["panel"] == fit["panel"]
+                          and r["effects"] == fit["effects"] and not r.get("options")),
+                         key=lambda r: r["seconds"], default=None)
+            if linear:  # the best Poisson fit over the best linear fit with the same effects on the same panel
                 out["poisson_over_linear"][label] = round(fit["seconds"] / linear["seconds"], 2)
         pts = [(rows, find(rows, key, "event" if key.endswith("event study") else "fit")) for rows in sizes
                if rows >= 10_000_000]
