@@ -437,14 +437,17 @@ def schur_diagonal(links: Links, counts: list[np.ndarray]) -> np.ndarray:
 
 
 def _squares_times(c: sparse.csr_matrix, vec: np.ndarray) -> np.ndarray:
-    """(C with every value squared)' vec, a row block at a time (no copy of C's values)."""
+    """(C with every value squared)' vec, a block of rows at a time, the squares written into one
+    small buffer (no copy of C's values, no fresh pages per block)."""
     ptr, out = c.indptr, np.zeros(c.shape[1])
-    cuts = np.unique(np.concatenate([[0], np.searchsorted(ptr, np.arange(EDGE_CHUNK, ptr[-1], EDGE_CHUNK)),
+    cuts = np.unique(np.concatenate([[0], np.searchsorted(ptr, np.arange(GRID_CHUNK, ptr[-1], GRID_CHUNK)),
                                      [c.shape[0]]]))
+    buffer = np.empty(int(np.diff(ptr[cuts]).max(initial=0)))
     for lo, hi in zip(cuts[:-1], cuts[1:]):
-        part = slice(ptr[lo], ptr[hi])
-        values = np.square(c.data[part]) * np.repeat(vec[lo:hi], np.diff(ptr[lo:hi + 1]))
-        out += np.bincount(c.indices[part], weights=values, minlength=c.shape[1])
+        values = np.square(c.data[ptr[lo]:ptr[hi]], out=buffer[:ptr[hi] - ptr[lo]])
+        block = sparse.csr_matrix((values, c.indices[ptr[lo]:ptr[hi]], ptr[lo:hi + 1] - ptr[lo]),
+                                  shape=(hi - lo, c.shape[1]))
+        out += block.T @ vec[lo:hi]
     return out
 
 

@@ -202,19 +202,21 @@ def _level_sums(spec: Spec, tab: pa.Table, first: bool) -> LevelSums:
                      constants={name: col(name) for name in constants(spec)} if first else None, nested=nested)
 
 
-def fetch_weights(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCodes:
-    """The row-codes path's second pass of a step: every row's level codes and working weight,
-    in runs of one level of the largest effect (:func:`~bigpanel.passes.reduce.stream_in_runs`:
-    unsorted where the engine keeps its scan order, so the engine sorts nothing; the runs may
-    come in another order at every step, and the link tables are built again from them)."""
+def fetch_weights(eng: Engine, spec: Spec, levels: list[int], codes: dict[int, np.ndarray],
+                  weights: np.ndarray) -> RowCodes:
+    """The row-codes path's second pass of a step: every row's level codes (into ``codes``, an
+    array per effect but the largest) and working weight (into ``weights``), in runs of one level
+    of the largest effect (:func:`~bigpanel.passes.reduce.stream_in_runs`: unsorted where the
+    engine keeps its scan order, so the engine sorts nothing; the runs may come in another order
+    at every step, and the link tables are built again from them)."""
     big = int(np.argmax(levels))
-    columns = [f"c{d + 1}" for d in range(len(levels)) if d != big] + ["w", f"c{big + 1}"]
+    columns = [f"c{d + 1}" for d in sorted(codes)] + ["w", f"c{big + 1}"]
 
     def sql(sort: bool) -> str:
         return render("poisson_row_weights", columns=join(columns, ", "), rows=rows_sql(spec),
                       order=Fragment(f"\nORDER BY c{big + 1}" if sort else ""))
 
-    return stream_in_runs(eng, "IRLS step: working weight of every row", sql, big, levels, n_obs, True)
+    return stream_in_runs(eng, "IRLS step: working weight of every row", sql, big, levels, codes, weights)
 
 
 def create_demeaned(eng: Engine, spec: Spec) -> None:

@@ -553,13 +553,17 @@ def fetch_codes(eng: Engine, spec: Spec, levels: list[int], n_obs: int) -> RowCo
         return render("row_codes", codes=join(cols), joins=_level_joins(spec),
                       order=Fragment(f"\nORDER BY l{big + 1}.code" if sort else ""))
 
-    return stream_in_runs(eng, "level codes of every row", sql, big, levels, n_obs, bool(spec.weights))
+    codes = {d: np.empty(n_obs, dtype=np.int32) for d in small}
+    return stream_in_runs(eng, "level codes of every row", sql, big, levels, codes,
+                          np.empty(n_obs) if spec.weights else None)
 
 
-def stream_in_runs(eng: Engine, label: str, sql: Callable[[bool], str], big: int, levels: list[int], n_obs: int,
-                   weighted: bool) -> RowCodes:
-    """Stream rows given as (codes of the other effects in order, weight when ``weighted``, code of
-    effect ``big``) by ``sql(sort)`` into preallocated arrays, in runs of one level of ``big``.
+def stream_in_runs(eng: Engine, label: str, sql: Callable[[bool], str], big: int, levels: list[int],
+                   codes: dict[int, np.ndarray], weights: np.ndarray | None) -> RowCodes:
+    """Stream rows given as (codes of the other effects in order, weight when ``weights`` is given,
+    code of effect ``big``) by ``sql(sort)`` into the arrays ``codes`` (each other effect's, one
+    entry per row) and ``weights``, in runs of one level of ``big``; the arrays may be reused
+    from an earlier stream (fresh pages cost time on some machines).
 
     Panels are mostly stored unit by unit, so on an engine that returns rows about in the
     order it reads them the rows first stream unsorted, with the largest effect's code
@@ -570,21 +574,20 @@ def stream_in_runs(eng: Engine, label: str, sql: Callable[[bool], str], big: int
     peak is the arrays plus one batch.
     """
     if eng.ordered_scans:
-        found = _stream_codes(eng, label, sql(False), big, levels, n_obs, weighted)
+        found = _stream_codes(eng, label, sql(False), big, levels, codes, weights)
         if found is not None:
             return found
-    found = _stream_codes(eng, label + ", sorted", sql(True), big, levels, n_obs, weighted)
+    found = _stream_codes(eng, label + ", sorted", sql(True), big, levels, codes, weights)
     if found is None:
         raise RuntimeError("the rows sorted by the engine came back out of order")
     return found
 
 
-def _stream_codes(eng: Engine, label: str, sql: str, big: int, levels: list[int], n_obs: int,
-                  weighted: bool) -> RowCodes | None:
+def _stream_codes(eng: Engine, label: str, sql: str, big: int, levels: list[int], codes: dict[int, np.ndarray],
+                  weights: np.ndarray | None) -> RowCodes | None:
     """One pass of :func:`stream_in_runs`; None as soon as the runs are too many."""
-    small = [d for d in range(len(levels)) if d != big]
-    codes = {d: np.empty(n_obs, dtype=np.int32) for d in small}
-    weights = np.empty(n_obs) if weighted else None
+    small = sorted(codes)
+    n_obs = len(weights) if weights is not None else len(codes[small[0]])
     heads: list[np.ndarray] = []
     starts: list[np.ndarray] = []
     n_runs, last, at = 0, -1, 0
@@ -613,8 +616,8 @@ def _stream_codes(eng: Engine, label: str, sql: str, big: int, levels: list[int]
         raise RuntimeError(f"{label}: the pass returned {at:,} rows, the levels hold {n_obs:,}")
     head = np.concatenate(heads) if heads else np.zeros(0, dtype=np.int32)
     if len(head) == levels[big] and np.array_equal(head, np.arange(levels[big])):
-        return RowCodes(big, codes, weights)
-    return RowCodes(big, codes, weights, (head, np.diff(np.concatenate(starts + [[n_obs]]))))
+        return RowCodes(big, dict(codes), weights)
+    return RowCodes(big, dict(codes), weights, (head, np.diff(np.concatenate(starts + [[n_obs]]))))
 
 
 def _fetch(eng: Engine, spec: Spec, n_complete: int, rounds: int, budget: int, forced: str | None) -> Reduction:
