@@ -164,6 +164,24 @@ def test_components_found_chunk_by_chunk(monkeypatch, to_parquet, table):
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
 
 
+@pytest.mark.parametrize("linking_rows", [True, False])
+def test_components_of_rows_holding_half_the_levels(linking_rows):
+    # Every unit holds half the periods (kept as its missing cells): rows of 0-4, rows of 5-9 and,
+    # when ``linking_rows``, rows of 4-8, which link the two halves through period 4 and 5-8 (one
+    # component, else two). Reference: scipy's components on the explicit unit x period dummies.
+    spans = [range(0, 5)] * 6 + [range(5, 10)] * 6 + ([range(4, 9)] * 3 if linking_rows else [])
+    unit = np.concatenate([np.full(len(s), u) for u, s in enumerate(spans)]).astype(np.int32)
+    period = np.concatenate([np.array(s) for s in spans]).astype(np.int32)
+    links = rowcodes.build_links(RowCodes(0, {1: period.copy()}, None), [np.bincount(unit), np.bincount(period)])
+    both = sparse.csr_matrix((np.ones(len(unit)), (unit, period)))
+    found, labels = connected_components(sparse.bmat([[None, both], [both.T, None]]), directed=False)
+    n_comp, got = links.groups[1]
+    assert not isinstance(links.link[1], sparse.csr_matrix)  # the missing-cells form
+    assert n_comp == found == (1 if linking_rows else 2)
+    ref = labels[len(spans):]
+    assert all(len(set(got[ref == c])) == 1 for c in set(ref)) and len(set(got)) == found
+
+
 @pytest.mark.parametrize("way", ["sparse", "dense blocks"])
 @pytest.mark.parametrize("weighted", [False, True])
 def test_schur_matrix_equals_the_dummies(monkeypatch, way, weighted):

@@ -231,8 +231,8 @@ def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray
     x levels of e table is at most twice the row count and no row holds a level twice; else None.
 
     Two rows holding more than half the levels each share one, so all the levels such rows hold
-    are linked; the other rows link their levels to their first, and a B level in several rows
-    links the first levels of those rows (as :func:`_linked_groups`)."""
+    are linked; the other rows link their levels to their first (:func:`_union_edges`), and a B
+    level in several rows links the first levels of those rows (as :func:`_linked_groups`)."""
     rows, n = len(indptr) - 1, len(codes)
     if rows * g > 2 * n or n == 0:
         return None
@@ -253,8 +253,7 @@ def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray
     missing = sparse.csr_matrix((np.ones(int(ptr[-1])), columns[~grid], ptr), shape=(rows, g))
     heavy = holds * 2 > g
     held = np.flatnonzero(grid[heavy].any(axis=0))
-    edges = [(np.full(len(held), held[0] if len(held) else 0), held),
-             (np.repeat(first[~heavy], holds[~heavy]), columns[~heavy][grid[~heavy]])]
+    edges = [(np.full(len(held), held[0] if len(held) else 0), held), _union_edges(grid, first, np.flatnonzero(~heavy))]
     if order is not None:
         edges.append(_split_edges(first, order, levels))
     a, b = (np.concatenate(side) for side in zip(*edges))
@@ -265,6 +264,20 @@ def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray
     graph = sparse.csr_matrix((np.ones(len(a), dtype=bool), (a, b)), shape=(g, g))
     n_comp, labels = connected_components(graph, directed=False)
     return _Complement(missing, first), (int(n_comp), labels)
+
+
+def _union_edges(grid: np.ndarray, first: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Edges from the first level each of ``rows`` holds (a row of ``grid``, rows x levels) to every
+    level it holds, once per pair: the rows that share a first level OR-ed together (at most
+    levels x levels edges, where an edge per held cell took an array per cell)."""
+    if len(rows) == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    lead = first[rows]
+    order = np.argsort(lead, kind="stable")
+    lead = lead[order]
+    starts = np.flatnonzero(np.concatenate([[True], lead[1:] != lead[:-1]]))
+    group, level = np.nonzero(np.logical_or.reduceat(grid[rows[order]], starts, axis=0))
+    return lead[starts][group].astype(np.int64), level
 
 
 def _split_edges(firsts: np.ndarray, order: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
