@@ -65,6 +65,23 @@ def rel(a, b) -> float:
     return float(np.max(np.abs(a - b) / np.maximum(np.abs(b), 1e-300)))
 
 
+FILE_LAYOUTS = ["units reversed", "two units split", "period by period"]
+
+
+def in_file_layout(df: pd.DataFrame, layout: str) -> pd.DataFrame:
+    """A unit x period panel's rows in one of ``FILE_LAYOUTS``: units in runs out of code order,
+    units 3 and 17 in two runs each (their periods from 5 moved to the end), or no runs of a
+    unit at all (period by period)."""
+    if layout == "units reversed":
+        df = df.sort_values(["unit", "period"], ascending=[False, True])
+    elif layout == "two units split":
+        late = df["unit"].isin([3, 17]) & (df["period"] >= 5)
+        df = pd.concat([df[~late], df[late]])
+    else:
+        df = df.sort_values(["period", "unit"])
+    return df.reset_index(drop=True)
+
+
 def make_panel(seed: int, n_units: int = 60, n_periods: int = 12, k: int = 3, keep: float = 0.8) -> pd.DataFrame:
     """An unbalanced generated panel with unit and period effects correlated with x."""
     rng = np.random.default_rng(seed)

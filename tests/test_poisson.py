@@ -18,7 +18,7 @@ from typer.testing import CliRunner
 import bigpanel
 from bigpanel import BigPanelError
 from bigpanel.cli import app
-from conftest import dummy_block, rel
+from conftest import FILE_LAYOUTS, dummy_block, in_file_layout, rel
 
 X = ["x1", "x2"]
 
@@ -94,21 +94,13 @@ def test_matches_glm_with_dummies(to_parquet, fe, strategy):
         assert res.solver.strategy["name"] == strategy
 
 
-@pytest.mark.parametrize("layout", ["units reversed", "two units split", "period by period"])
+@pytest.mark.parametrize("layout", FILE_LAYOUTS)
 def test_row_codes_whatever_the_file_order(to_parquet, layout):
     # Every IRLS step streams the rows' codes and working weights in the engine's scan order and
     # builds its link tables from the runs that come: units in runs out of code order, two units
     # in two runs each, or no runs at all (period by period: the engine sorts, at every step).
     # Reference: statsmodels GLM with explicit dummies (coefficients 1e-8, HC1 errors 1e-6).
-    df = count_panel(3)
-    if layout == "units reversed":
-        df = df.sort_values(["unit", "period"], ascending=[False, True])
-    elif layout == "two units split":
-        late = df["unit"].isin([3, 17]) & (df["period"] >= 5)
-        df = pd.concat([df[~late], df[late]])
-    else:
-        df = df.sort_values(["period", "unit"])
-    df = df.reset_index(drop=True)
+    df = in_file_layout(count_panel(3), layout)
     fe = ["unit", "period", "item"]
     res = bigpanel.fit(to_parquet(df), "y ~ x1 + x2", fe=fe, model="poisson", strategy="row codes")
     coef, se = sandwich(df, fe)

@@ -12,7 +12,7 @@ from scipy.sparse.csgraph import connected_components
 import bigpanel
 import bigpanel.numerics.rowcodes as rowcodes
 from bigpanel.passes.reduce import RowCodes
-from conftest import rel
+from conftest import FILE_LAYOUTS, in_file_layout, rel
 from test_strategies import X, sm_ref, unit_period_panel
 
 SORTED = "level codes of every row, sorted"
@@ -22,20 +22,13 @@ def fit_codes(path: str, fe: list[str], vcov: str = "classical", cluster: str | 
     return bigpanel.fit(path, y="y", x=X, fe=fe, variance=vcov, cluster=cluster, strategy="row codes", tol=1e-12)
 
 
-@pytest.mark.parametrize("layout", ["units reversed", "two units split", "period by period"])
+@pytest.mark.parametrize("layout", FILE_LAYOUTS)
 def test_row_order_of_the_file(to_parquet, layout):
     # The unit (the largest effect) comes in runs whose order is not the code order, two
     # units come in two runs each, or the file is written period by period (no runs at
     # all: the engine sorts in a second pass). Reference: statsmodels LSDV.
-    df = unit_period_panel(seed=21)
-    if layout == "units reversed":
-        df = df.sort_values(["unit", "period"], ascending=[False, True])
-    elif layout == "two units split":
-        late = df["unit"].isin([3, 17]) & (df["period"] >= 5)
-        df = pd.concat([df[~late], df[late]])
-    else:
-        df = df.sort_values(["period", "unit"])
-    res = fit_codes(to_parquet(df.reset_index(drop=True)), ["unit", "period", "item"])
+    df = in_file_layout(unit_period_panel(seed=21), layout)
+    res = fit_codes(to_parquet(df), ["unit", "period", "item"])
     coef, se = sm_ref(df, ["unit", "period", "item"], "classical")
     assert (SORTED in res.timings) == (layout == "period by period")
     assert rel(res.coef, coef) < 1e-8 and rel(res.std_error, se) < 1e-8
