@@ -199,7 +199,7 @@ def _row_weights(eng: Engine, spec: Spec, sample: Sample) -> Links:
     links = build_links(fetch_weights(eng, spec, sizes, *sample.row_arrays), rows, fixed=False)
     sample.link_bytes = max(sample.link_bytes or 0, links.nbytes)
     if sample.labels is None:
-        sample.n_comp, sample.labels = code_components(links, [len(r) for r in rows])
+        sample.n_comp, sample.labels = code_components(links, sizes)
     return links
 
 

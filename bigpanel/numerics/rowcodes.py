@@ -225,6 +225,14 @@ def build_links(rc: RowCodes, rows: list[np.ndarray], fixed: bool = True) -> Lin
     return Links(big, link, pairs, groups, frozenset(unit), order, gather)
 
 
+def _row_blocks(indptr: np.ndarray) -> list[tuple[int, int]]:
+    """Consecutive blocks (lo, hi) of a table's rows holding about GRID_CHUNK nonzeros each (more
+    when one row holds more): what a loop over the rows handles at a time."""
+    cuts = np.unique(np.concatenate([[0], np.searchsorted(indptr, np.arange(GRID_CHUNK, indptr[-1], GRID_CHUNK)),
+                                     [len(indptr) - 1]]))
+    return list(zip(cuts[:-1].tolist(), cuts[1:].tolist()))
+
+
 def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray | None,
                 levels: int) -> tuple[_Complement, tuple[int, np.ndarray]] | None:
     """C_e as a :class:`_Complement` and the connected components of e's levels, when the rows
@@ -238,8 +246,7 @@ def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray
         return None
     grid = np.zeros(rows * g, dtype=bool)
     flat = np.int32 if rows * g < np.iinfo(np.int32).max else np.int64
-    cuts = np.unique(np.concatenate([[0], np.searchsorted(indptr, np.arange(GRID_CHUNK, n, GRID_CHUNK)), [rows]]))
-    for lo, hi in zip(cuts[:-1], cuts[1:]):
+    for lo, hi in _row_blocks(indptr):
         cells = np.repeat(np.arange(lo, hi, dtype=flat) * g, np.diff(indptr[lo:hi + 1]))
         cells += codes[indptr[lo]:indptr[hi]]
         grid[cells] = True
@@ -453,10 +460,9 @@ def _squares_times(c: sparse.csr_matrix, vec: np.ndarray) -> np.ndarray:
     """(C with every value squared)' vec, a block of rows at a time, the squares written into one
     small buffer (no copy of C's values, no fresh pages per block)."""
     ptr, out = c.indptr, np.zeros(c.shape[1])
-    cuts = np.unique(np.concatenate([[0], np.searchsorted(ptr, np.arange(GRID_CHUNK, ptr[-1], GRID_CHUNK)),
-                                     [c.shape[0]]]))
-    buffer = np.empty(int(np.diff(ptr[cuts]).max(initial=0)))
-    for lo, hi in zip(cuts[:-1], cuts[1:]):
+    blocks = _row_blocks(ptr)
+    buffer = np.empty(max((int(ptr[hi] - ptr[lo]) for lo, hi in blocks), default=0))
+    for lo, hi in blocks:
         values = np.square(c.data[ptr[lo]:ptr[hi]], out=buffer[:ptr[hi] - ptr[lo]])
         block = sparse.csr_matrix((values, c.indices[ptr[lo]:ptr[hi]], ptr[lo:hi + 1] - ptr[lo]),
                                   shape=(hi - lo, c.shape[1]))
