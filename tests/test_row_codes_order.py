@@ -180,8 +180,10 @@ def test_components_of_rows_holding_half_the_levels(linking_rows):
 def test_schur_matrix_equals_the_dummies(monkeypatch, way, weighted):
     # S = D_s'W D_s - D_s'W D_B (D_B'W D_B)^-1 D_B'W D_s for the periods (kept as their missing
     # cells when unweighted) and a third effect (a plain table), from the link tables by sparse
-    # products or by dense blocks of units; reference: numpy on the explicit dummies (1e-10).
+    # products or by dense blocks of units (a few units per block, the last one short, so that
+    # the blocks' buffers are refilled); reference: numpy on the explicit dummies (1e-10).
     monkeypatch.setattr(rowcodes, "SPARSE_SLOWER", 0.0 if way == "sparse" else 1e12)
+    monkeypatch.setattr(rowcodes, "DENSE_CHUNK", 64)
     rng = np.random.default_rng(31)
     cells = [(u, t) for u in range(30) for t in range(8) if rng.random() > 0.2]
     unit, period = (np.array(c, dtype=np.int32) for c in zip(*cells))

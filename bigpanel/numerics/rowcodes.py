@@ -42,11 +42,12 @@ preconditioner: the conjugate gradients then stop after one or two iterations, w
 the graph. Each block T_e' diag(1/n_B) T_f is one sparse product (a table kept as its
 missing cells M expands to rank-one terms plus M_e' diag(1/n_B) M_f) or, when that costs
 more, B's levels in dense blocks, one matrix product each (about B x G_e x G_f
-multiply-adds; a dense multiply-add runs some SPARSE_SLOWER = 25 times faster than a
-sparse one on this machine). S is formed when that costs at most DENSE_PAYS iterations'
-sparse products (2 x nonzeros x columns each) or a few milliseconds; else the
-preconditioner is M^-1 = diag(S)^-1 + Z (Z'SZ)^-1 Z', Z an indicator column per (other effect,
-component) on the free levels (a two-level additive preconditioner; Z'SZ costs one product).
+multiply-adds, half that for e = f by BLAS's symmetric rank-k update; a dense multiply-add
+runs some SPARSE_SLOWER = 25 times faster than a sparse one on this machine). S is formed
+when that costs at most DENSE_PAYS iterations' sparse products (2 x nonzeros x columns
+each) or a few milliseconds; else the preconditioner is M^-1 = diag(S)^-1 + Z (Z'SZ)^-1 Z',
+Z an indicator column per (other effect, component) on the free levels (a two-level additive
+preconditioner; Z'SZ costs one product).
 Pinning one level leaves the Jacobi-scaled S with an eigenvalue near 1/G_e per other effect e
 (the shift of e's other levels against the pinned one); the coarse term removes it. On 10M rows
 of store x week x supplier the Jacobi spectrum was [0.0010, 0.0067, 0.989 ... 1.018], and
@@ -65,6 +66,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import linalg, sparse
+from scipy.linalg import blas
 from scipy.sparse.csgraph import connected_components
 
 from .project import Projection, conjugate_gradients
@@ -337,14 +339,22 @@ def per_level_table(links: Links, e: int) -> tuple[sparse.csr_matrix, np.ndarray
     return table, runs
 
 
-def _dense_rows(table: sparse.csr_matrix, lo: int, hi: int) -> np.ndarray:
-    """Rows lo..hi of ``table`` as a dense array (duplicate cells added), counted straight from
-    its arrays: slicing the sparse table would copy them first."""
-    ptr, g = table.indptr, table.shape[1]
+Table = tuple[sparse.csr_matrix, np.ndarray | None]
+
+
+def _dense_rows(table: Table, lo: int, hi: int, out: np.ndarray) -> np.ndarray:
+    """Rows lo..hi of a per-level table (:func:`per_level_table`) as a dense array written into
+    ``out`` (duplicate cells added; r - the rows for a complement), read straight from its arrays:
+    slicing the sparse table would copy them first, and a fresh array per block costs fresh pages."""
+    sub, runs = table
+    ptr, dense = sub.indptr, out[:hi - lo]
     start, stop = ptr[lo], ptr[hi]
-    cells = np.repeat(np.arange(hi - lo, dtype=np.int64) * g, np.diff(ptr[lo:hi + 1]))
-    cells += table.indices[start:stop]
-    return np.bincount(cells, weights=table.data[start:stop], minlength=(hi - lo) * g).reshape(hi - lo, g)
+    block = sparse.csr_matrix((sub.data[start:stop], sub.indices[start:stop], ptr[lo:hi + 1] - start),
+                              shape=(hi - lo, sub.shape[1]))
+    block.toarray(out=dense)
+    if runs is not None:
+        np.subtract(runs[lo:hi, None], dense, out=dense)
+    return dense
 
 
 def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.ndarray | None:
@@ -360,9 +370,6 @@ def _dense_schur(links: Links, counts: list[np.ndarray], columns: int) -> np.nda
     if cost > max(DENSE_PAYS * 2 * products * columns, DENSE_FLOOR):
         return None
     return schur_matrix(links, counts)
-
-
-Table = tuple[sparse.csr_matrix, np.ndarray | None]
 
 
 def _held_per_level(links: Links, e: int) -> tuple[np.ndarray, int]:
@@ -403,14 +410,33 @@ def _outer(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
 
 
 def _outer_dense(a: Table, b: Table, inv: np.ndarray) -> np.ndarray:
-    """:func:`_outer` by dense blocks of B's levels, one matrix product each."""
+    """:func:`_outer` by dense blocks of B's levels, one matrix product each, into buffers
+    allocated once. When ``a`` is ``b`` each block is formed once and the product is the
+    symmetric rank-k update (D^1/2 T)'(D^1/2 T): half the multiply-adds."""
+    if a is b:
+        return _outer_symmetric(a, np.sqrt(inv))
     out = np.zeros((a[0].shape[1], b[0].shape[1]))
-    step = max(1, DENSE_CHUNK // max(out.shape))
+    step = min(len(inv), max(1, DENSE_CHUNK // max(out.shape)))
+    left, right = np.empty((step, out.shape[0])), np.empty((step, out.shape[1]))
     for lo in range(0, len(inv), step):
         hi = min(lo + step, len(inv))
-        da, db = ((_dense_rows(t, lo, hi) if r is None else r[lo:hi, None] - _dense_rows(t, lo, hi)) for t, r in (a, b))
-        out += (da * inv[lo:hi, None]).T @ db
+        db = _dense_rows(b, lo, hi, right)
+        out += _dense_rows(a, lo, hi, left).T @ np.multiply(db, inv[lo:hi, None], out=db)
     return out
+
+
+def _outer_symmetric(a: Table, root: np.ndarray) -> np.ndarray:
+    """T_a' diag(root^2) T_a by dense blocks, each scaled by ``root`` and added by BLAS's
+    symmetric rank-k update into the upper triangle (a column-major result: no copies)."""
+    g = a[0].shape[1]
+    out = np.zeros((g, g), order="F")
+    step = min(len(root), max(1, DENSE_CHUNK // g))
+    block = np.empty((step, g))
+    for lo in range(0, len(root), step):
+        hi = min(lo + step, len(root))
+        scaled = np.multiply(_dense_rows(a, lo, hi, block), root[lo:hi, None], out=block[:hi - lo])
+        out = blas.dsyrk(1.0, scaled.T, beta=1.0, c=out, overwrite_c=True)
+    return np.triu(out) + np.triu(out, 1).T
 
 
 def schur_matrix(links: Links, counts: list[np.ndarray]) -> np.ndarray:
