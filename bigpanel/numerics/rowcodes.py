@@ -258,11 +258,12 @@ def _complement(codes: np.ndarray, indptr: np.ndarray, g: int, order: np.ndarray
     first = grid.argmax(axis=1).astype(np.int32)
     holds = np.diff(indptr)
     ptr = np.concatenate([[0], np.cumsum(g - holds)]).astype(indptr.dtype)
-    columns = np.broadcast_to(np.arange(g, dtype=indptr.dtype), grid.shape)  # cells in row order, no temporaries
-    missing = sparse.csr_matrix((np.ones(int(ptr[-1])), columns[~grid], ptr), shape=(rows, g))
     heavy = holds * 2 > g
-    held = np.flatnonzero(grid[heavy].any(axis=0))
+    held = np.flatnonzero(grid.any(axis=0, where=heavy[:, None]))
     edges = [(np.full(len(held), held[0] if len(held) else 0), held), _union_edges(grid, first, np.flatnonzero(~heavy))]
+    np.logical_not(grid, out=grid)  # now the missing cells: the held ones are no longer needed
+    columns = np.broadcast_to(np.arange(g, dtype=indptr.dtype), grid.shape)  # cells in row order, no temporaries
+    missing = sparse.csr_matrix((np.ones(int(ptr[-1])), columns[grid], ptr), shape=(rows, g))
     if order is not None:
         edges.append(_split_edges(first, order, levels))
     a, b = (np.concatenate(side) for side in zip(*edges))
